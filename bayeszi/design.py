@@ -1,0 +1,316 @@
+"""Formulas to numeric matrices, with the encoding kept for new data.
+
+:func:`build_design` turns a data frame and a :class:`~bayeszi.spec.ModelSpec` into a
+:class:`Design`: the response, the log offset, one matrix per part (columns named by term,
+on the user's own scale), the centring and scaling the sampler uses inside, and the group
+codes. :meth:`Design.encode` encodes new data exactly as the fitted data were encoded (same
+factor levels, same columns), refusing unseen levels with the list of known ones.
+
+Example
+-------
+>>> import pandas as pd
+>>> from bayeszi.spec import ModelSpec
+>>> from bayeszi.design import build_design
+>>> df = pd.DataFrame({"y": [0, 1, 3, 0], "x": [0.1, 0.5, 0.9, 0.2], "s": list("abab")})
+>>> d = build_design(df, ModelSpec(counts="y ~ x + C(s)", family="zip"))
+>>> d.counts.terms
+['Intercept', 'x', 'C(s)[T.b]']
+"""
+
+from __future__ import annotations
+
+import re
+import warnings
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from formulaic import Formula, model_matrix
+from formulaic.errors import FormulaicError
+
+from bayeszi import validate as V
+from bayeszi.errors import BayesziError
+from bayeszi.families import get_family
+from bayeszi.spec import ModelSpec
+
+
+@dataclass
+class PartDesign:
+    """One part's design matrix on the user's scale, with the sampler's internal scaling.
+
+    ``X_std = (X - center) / scale``; the intercept column keeps center 0 and scale 1.
+    """
+
+    part: str
+    rhs: str
+    terms: list[str]
+    X: np.ndarray
+    center: np.ndarray
+    scale: np.ndarray
+    intercept: int | None
+    model_spec: Any = field(repr=False, default=None)
+
+    @property
+    def X_std(self) -> np.ndarray:
+        """The centred and scaled matrix the sampler sees."""
+        return (self.X - self.center) / self.scale
+
+    def to_user_scale(self, b_std: np.ndarray) -> np.ndarray:
+        """Map coefficients on the internal scale (last axis = terms) to the user's scale."""
+        beta = b_std / self.scale
+        if self.intercept is not None:
+            shift = np.tensordot(beta, self.center, axes=([-1], [0]))
+            beta = beta.copy()
+            beta[..., self.intercept] = beta[..., self.intercept] - shift
+        return beta
+
+
+@dataclass
+class GroupDesign:
+    """Codes of one grouping column (nested groups get combined labels ``outer/inner``)."""
+
+    name: str
+    levels: list[str]
+    codes: np.ndarray
+    counts_per_level: np.ndarray
+
+
+@dataclass
+class Design:
+    """Everything numeric a model needs, and how to encode new rows the same way."""
+
+    spec: ModelSpec
+    n: int
+    y: np.ndarray
+    log_offset: np.ndarray
+    counts: PartDesign
+    zeros: PartDesign | None
+    groups: list[GroupDesign]
+    levels: dict[str, list[str]]
+    used_columns: list[str]
+    index: pd.Index
+
+    def encode(self, data: pd.DataFrame, *, need_exposure: bool = True) -> EncodedRows:
+        """Encode new rows like the fitted data; unknown groups get code -1."""
+        data = V.check_frame(data)
+        needed = [c for c in self.used_columns if c != self.spec.response]
+        needed = [c for c in needed if c not in self.spec.groups]
+        if not need_exposure:
+            needed = [c for c in needed if c not in (self.spec.exposure, self.spec.offset)]
+        V.check_columns(data, needed, role="needed by the fitted model")
+        V.check_finite(data, needed, role="needed by the fitted model")
+        for col, known in self.levels.items():
+            if col not in data.columns:
+                continue
+            vals = data[col].astype(str)
+            unseen = sorted(set(vals) - set(known))
+            if unseen:
+                raise BayesziError(
+                    f"column {col!r} has level(s) {unseen[:10]} not seen when fitting; known "
+                    f"levels: {known[:30]}. Recode them to a known level or refit with them"
+                )
+        Xc = _materialize(self.counts, data)
+        Xz = _materialize(self.zeros, data) if self.zeros is not None else None
+        log_offset = np.zeros(len(data))
+        if self.spec.exposure is not None and self.spec.exposure in data.columns:
+            log_offset = np.log(V.check_exposure(data, self.spec.exposure))
+        elif self.spec.offset is not None and self.spec.offset in data.columns:
+            log_offset = V.check_offset(data, self.spec.offset)
+        codes: dict[str, np.ndarray] = {}
+        for g in self.groups:
+            if g.name in data.columns:
+                labels = _group_labels(data, g.name, self.spec.nested)
+                lookup = {lv: i for i, lv in enumerate(g.levels)}
+                codes[g.name] = np.array([lookup.get(lv, -1) for lv in labels], dtype=np.int64)
+        return EncodedRows(Xc, Xz, log_offset, codes, len(data))
+
+
+@dataclass
+class EncodedRows:
+    """New rows encoded for prediction."""
+
+    X_counts: np.ndarray
+    X_zeros: np.ndarray | None
+    log_offset: np.ndarray
+    group_codes: dict[str, np.ndarray]
+    n: int
+
+
+def _materialize(part: PartDesign, data: pd.DataFrame) -> np.ndarray:
+    try:
+        mm = part.model_spec.get_model_matrix(data)
+    except FormulaicError as err:
+        raise BayesziError(f"{part.part} formula '~ {part.rhs}' could not be applied to the new "
+                           f"data: {_first_line(err)}") from None
+    return np.asarray(mm, dtype=float)
+
+
+def _first_line(err: Exception) -> str:
+    return str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
+
+
+def _required(rhs: str, part: str) -> list[str]:
+    try:
+        return sorted(Formula(rhs).required_variables)
+    except FormulaicError as err:
+        raise BayesziError(f"{part} formula '~ {rhs}' cannot be read: {_first_line(err)}. "
+                           "Check for a stray operator or unbalanced brackets") from None
+
+
+def _categorical_vars(rhs: str, data: pd.DataFrame, variables: list[str]) -> list[str]:
+    out = []
+    for v in variables:
+        s = data[v]
+        wrapped = re.search(r"\bC\(\s*" + re.escape(v) + r"\b", rhs) is not None
+        if wrapped or not pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s):
+            out.append(v)
+    return out
+
+
+def _check_text_as_number(rhs: str, data: pd.DataFrame, variables: list[str], part: str) -> None:
+    for v in variables:
+        wrapped = re.search(r"\bC\(\s*" + re.escape(v) + r"\b", rhs) is not None
+        if not wrapped and V.looks_numeric_text(data[v]):
+            raise BayesziError(
+                f"column {v!r} in the {part} formula holds numbers stored as text; convert it "
+                f"with pandas.to_numeric(data[{v!r}]) or, if it is a category, write C({v})"
+            )
+
+
+def _part(part: str, rhs: str, data: pd.DataFrame) -> PartDesign:
+    try:
+        mm = model_matrix(rhs, data, na_action="raise")
+    except FormulaicError as err:
+        raise BayesziError(f"{part} formula '~ {rhs}' cannot be used: {_first_line(err)}") from None
+    except Exception as err:  # a transform raised (e.g. log of a negative) inside formulaic
+        raise BayesziError(f"{part} formula '~ {rhs}' failed on the data: {_first_line(err)}") \
+            from None
+    X = np.asarray(mm, dtype=float)
+    terms = [str(c) for c in mm.columns]
+    if X.shape[1] == 0:
+        raise BayesziError(f"{part} formula '~ {rhs}' has no terms; use '~ 1' for an intercept")
+    if not np.all(np.isfinite(X)):
+        bad = ~np.all(np.isfinite(X), axis=1)
+        cols = [t for t, ok in zip(terms, np.all(np.isfinite(X), axis=0), strict=True) if not ok]
+        raise BayesziError(
+            f"{part} formula '~ {rhs}' gives non-finite values in term(s) {cols} at row(s) "
+            f"{V._rows(data.index, bad)} (e.g. log of zero); transform the data first"
+        )
+    intercept = terms.index("Intercept") if "Intercept" in terms else None
+    center = np.zeros(X.shape[1])
+    scale = np.ones(X.shape[1])
+    for j in range(X.shape[1]):
+        if j == intercept:
+            continue
+        col = X[:, j]
+        sd = col.std()
+        if sd == 0:
+            raise BayesziError(
+                f"term {terms[j]!r} of the {part} formula is constant in the data (every row "
+                f"{col[0]:g}); it cannot be estimated. Drop it from the formula"
+            )
+        binary = np.all((col == 0) | (col == 1))
+        if intercept is not None:
+            center[j] = col.mean()
+        # Gelman et al. (2008): continuous inputs scaled by 2 sd, binary inputs left as they are.
+        scale[j] = 1.0 if binary else 2.0 * sd
+    Xs = (X - center) / scale
+    rank = np.linalg.matrix_rank(Xs)
+    if rank < X.shape[1]:
+        warnings.warn(
+            f"the {part} formula's terms {terms} are collinear (rank {rank} of {X.shape[1]}): "
+            "some coefficients are not identified by the data and will show only their prior. "
+            "Drop one of the redundant terms",
+            V.BayesziWarning,
+            stacklevel=4,
+        )
+    return PartDesign(part, rhs, terms, X, center, scale, intercept, mm.model_spec)
+
+
+def _group_labels(data: pd.DataFrame, name: str, nested: dict[str, str]) -> list[str]:
+    labels = data[name].astype(str)
+    outer = nested.get(name)
+    if outer is not None:
+        labels = data[outer].astype(str) + "/" + labels
+    return list(labels)
+
+
+def build_design(data: pd.DataFrame, spec: ModelSpec) -> Design:
+    """Validate ``data`` against ``spec`` and encode it. See the module example."""
+    data = V.check_frame(data)
+    fam = get_family(spec.family)
+    V.check_columns(data, [spec.response], role="response, left of the counts formula")
+    c_vars = _required(spec.counts_rhs, "counts")
+    z_vars = _required(spec.zeros_rhs, "zeros") if fam.zeros_kind else []
+    if spec.response in c_vars or spec.response in z_vars:
+        raise BayesziError(
+            f"the response {spec.response!r} also appears as a predictor; remove it from the "
+            "right side of the formulas"
+        )
+    V.check_columns(data, c_vars, role="counts formula")
+    V.check_columns(data, z_vars, role="zeros formula")
+    extra = [c for c in (spec.exposure, spec.offset) if c is not None]
+    V.check_columns(data, extra, role="exposure" if spec.exposure else "offset")
+    nest_outer = [spec.nested[g] for g in spec.groups if g in spec.nested]
+    V.check_columns(data, list(spec.groups) + nest_outer, role="groups")
+    used = list(dict.fromkeys([spec.response, *c_vars, *z_vars, *extra,
+                               *spec.groups, *nest_outer]))
+    V.check_finite(data, used, role="used by the model")
+    y = V.check_response(data, spec.response, fam.zeros_kind)
+    _check_text_as_number(spec.counts_rhs, data, c_vars, "counts")
+    _check_text_as_number(spec.zeros_rhs, data, z_vars, "zeros")
+    log_offset = np.zeros(len(data))
+    if spec.exposure is not None:
+        log_offset = np.log(V.check_exposure(data, spec.exposure))
+    elif spec.offset is not None:
+        log_offset = V.check_offset(data, spec.offset)
+    counts = _part("counts", spec.counts_rhs, data)
+    zeros = _part("zeros", spec.zeros_rhs, data) if fam.zeros_kind else None
+    levels: dict[str, list[str]] = {}
+    for rhs, variables in ((spec.counts_rhs, c_vars), (spec.zeros_rhs, z_vars)):
+        for v in _categorical_vars(rhs, data, variables):
+            levels[v] = sorted(set(data[v].astype(str)))
+    groups = [_group(data, g, spec.nested) for g in spec.groups]
+    for part, terms in spec.varying.items():
+        pd_ = counts if part == "counts" else zeros
+        if pd_ is None:
+            raise BayesziError(f"varying slopes were asked for the {part} part, but family "
+                               f"{spec.family!r} has no {part} part")
+        missing = [t for t in terms if t not in pd_.terms]
+        if missing:
+            raise BayesziError(
+                f"varying slope term(s) {missing} are not columns of the {part} design; "
+                f"available: {pd_.terms}"
+            )
+    return Design(spec, len(data), y, log_offset, counts, zeros, groups, levels, used,
+                  data.index)
+
+
+def _group(data: pd.DataFrame, name: str, nested: dict[str, str]) -> GroupDesign:
+    labels = _group_labels(data, name, nested)
+    levels = sorted(set(labels))
+    lookup = {lv: i for i, lv in enumerate(levels)}
+    codes = np.array([lookup[lv] for lv in labels], dtype=np.int64)
+    per = np.bincount(codes, minlength=len(levels))
+    if len(levels) < 2:
+        raise BayesziError(
+            f"grouping column {name!r} has a single level ({levels[0]!r}); a group effect needs "
+            "at least two groups (five or more to estimate their spread). Drop it from groups"
+        )
+    if len(levels) < 5:
+        warnings.warn(
+            f"grouping column {name!r} has only {len(levels)} levels; the spread of its effects "
+            "is poorly determined and leans on its prior",
+            V.BayesziWarning,
+            stacklevel=3,
+        )
+    singles = int(np.sum(per == 1))
+    if singles:
+        warnings.warn(
+            f"grouping column {name!r} has {singles} level(s) with a single record; their "
+            "effects are shrunk strongly toward the average and say little about those groups",
+            V.BayesziWarning,
+            stacklevel=3,
+        )
+    return GroupDesign(name, levels, codes, per)
