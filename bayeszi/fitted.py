@@ -133,6 +133,18 @@ class FittedModel:
     def __repr__(self) -> str:
         return format_fit(self)
 
+    # ------------------------------------------------------------------ groups (groups issue)
+    # (group-level methods go here)
+
+    # ------------------------------------------------------------------ checks (checks.py)
+    # (posterior predictive check methods go here)
+
+    # ------------------------------------------------------------------ LOO (compare.py)
+    # (LOO methods go here)
+
+    # ------------------------------------------------------------------ predictions (predict.py)
+    # (prediction and contrast methods go here)
+
     # ------------------------------------------------------------------ persistence
     def save(self, path: str) -> str:
         """Write the fit to one netCDF file (draws, spec, design data); returns the path."""
