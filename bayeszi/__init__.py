@@ -1,5 +1,8 @@
 """bayeszi: Bayesian regression for counts with excess zeros.
 
+The heavy modules (PyMC, ArviZ) load on first use, so ``import bayeszi`` and
+``bayeszi.data`` stay quick.
+
 Example
 -------
 >>> import bayeszi as bz
@@ -9,27 +12,38 @@ Example
 
 from __future__ import annotations
 
+import importlib
+from typing import Any
+
+from bayeszi.errors import BayesziError
+
 __version__ = "0.1.0"
 
-from bayeszi.api import fit, fit_spec, load, make_spec, prior_predictive
-from bayeszi.errors import BayesziError
-from bayeszi.families import FAMILY_NAMES, get_family
-from bayeszi.priors import Prior
-from bayeszi.spec import ModelSpec, SamplerSettings
-from bayeszi.validate import BayesziWarning
+_LAZY = {
+    "fit": "bayeszi.api",
+    "fit_spec": "bayeszi.api",
+    "load": "bayeszi.api",
+    "make_spec": "bayeszi.api",
+    "prior_predictive": "bayeszi.api",
+    "FAMILY_NAMES": "bayeszi.families",
+    "get_family": "bayeszi.families",
+    "Prior": "bayeszi.priors",
+    "ModelSpec": "bayeszi.spec",
+    "SamplerSettings": "bayeszi.spec",
+    "BayesziWarning": "bayeszi.validate",
+    "FittedModel": "bayeszi.fitted",
+}
 
-__all__ = [
-    "BayesziError",
-    "BayesziWarning",
-    "FAMILY_NAMES",
-    "ModelSpec",
-    "Prior",
-    "SamplerSettings",
-    "__version__",
-    "fit",
-    "fit_spec",
-    "get_family",
-    "load",
-    "make_spec",
-    "prior_predictive",
-]
+__all__ = ["BayesziError", "__version__", *sorted(_LAZY)]
+
+
+def __getattr__(name: str) -> Any:
+    if name in _LAZY:
+        value = getattr(importlib.import_module(_LAZY[name]), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'bayeszi' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(_LAZY))

@@ -88,8 +88,19 @@ def diagnose(idata: az.InferenceData, thresholds: Thresholds | None = None) -> d
     """Per-parameter R-hat and ESS (DataFrame) plus the divergence count and flags."""
     th = thresholds or Thresholds()
     names = parameter_names(idata)
-    summ = az.summary(idata, var_names=names, kind="diagnostics", round_to="none")
-    summ = summ[["r_hat", "ess_bulk", "ess_tail"]]
+    chains = int(idata.posterior.sizes["chain"])
+    import logging
+
+    log = logging.getLogger("arviz")
+    level = log.level
+    log.setLevel(logging.CRITICAL)  # one chain: arviz logs a shape message; we say it plainly
+    try:
+        summ = az.summary(idata, var_names=names, kind="diagnostics", round_to="none")
+    finally:
+        log.setLevel(level)
+    summ = summ[["r_hat", "ess_bulk", "ess_tail"]].copy()
+    if chains < 2:
+        summ["r_hat"] = np.nan
     div = int(np.asarray(idata.sample_stats["diverging"]).sum())
     n_draws = int(idata.posterior.sizes["chain"] * idata.posterior.sizes["draw"])
     bad_rhat = summ.index[summ["r_hat"] > th.rhat].tolist()
@@ -104,6 +115,7 @@ def diagnose(idata: az.InferenceData, thresholds: Thresholds | None = None) -> d
         "bad_ess": bad_ess,
         "max_treedepth_hits": max_depth,
         "thresholds": th,
+        "chains": chains,
     }
 
 
@@ -116,6 +128,9 @@ def problems(diag: dict) -> list[str]:
     """Plain-language descriptions of each sampler problem, with what to try."""
     th: Thresholds = diag["thresholds"]
     out = []
+    if diag.get("chains", 2) < 2:
+        out.append("only one chain was run, so R-hat cannot check convergence; use chains=2 "
+                   "or more")
     if diag["divergences"]:
         out.append(
             f"{diag['divergences']} divergent transition(s) out of {diag['draws']} draws: the "
