@@ -41,6 +41,7 @@ dtype('int64')
 from __future__ import annotations
 
 import difflib
+import functools
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -67,7 +68,7 @@ FAMILY_NAMES: tuple[str, ...] = (
 # to about 1e-14 (relative) at its switch point, so the switch is invisible to the sampler.
 # ---------------------------------------------------------------------------------------------
 #: alpha at or below this uses the Stirling form of lgamma(y + 1/alpha) - lgamma(1/alpha):
-#: theta = 1/alpha >= 1e4, where the two-term Stirling correction is exact to ~1e-23.
+#: theta = 1/alpha >= 1e4, where Stirling's series with its 1/(12 x) term is exact to 3e-15.
 _ALPHA_STIRLING = 1e-4
 _LOG_ALPHA_STIRLING = math.log(_ALPHA_STIRLING)
 #: arguments below this use a power series (10 terms: truncation error < 1e-19 relative).
@@ -76,6 +77,8 @@ _LOG_SERIES_CUT = math.log(_SERIES_CUT)
 #: t = -log f(0) below this: log(1 - exp(-t)) = log t - t/2 + t^2/24 + O(t^4).
 _TRUNC_CUT = 1e-5
 _LOG_TRUNC_CUT = math.log(_TRUNC_CUT)
+#: pmf_table restarts its ratio recurrence from the exact log-pmf every this many k.
+_REANCHOR = 32
 
 # Power-series coefficients (lowest order first), each for |x| <= _SERIES_CUT.
 #: L(x) = log1p(x) / x = sum_k (-x)^k / (k + 1)
@@ -143,7 +146,10 @@ def _np_log1p_ratio(lx: np.ndarray) -> np.ndarray:
         return _horner(np.exp(lx), _L_COEF)
 
     def direct(lx):
-        return _np_softplus(lx) * np.exp(-lx)
+        out = _np_softplus(lx)
+        scale = np.negative(lx)
+        out *= np.exp(scale, out=scale)
+        return out
 
     return _piecewise(lx < _LOG_SERIES_CUT, series, direct, lx)
 
@@ -156,7 +162,10 @@ def _np_one_minus_log1p_ratio(lx: np.ndarray) -> np.ndarray:
         return x * _horner(x, _G_COEF)
 
     def direct(lx):
-        return 1.0 - _np_softplus(lx) * np.exp(-lx)
+        out = _np_softplus(lx)
+        scale = np.negative(lx)
+        out *= np.exp(scale, out=scale)
+        return np.subtract(1.0, out, out=out)
 
     return _piecewise(lx < _LOG_SERIES_CUT, series, direct, lx)
 
@@ -168,7 +177,9 @@ def _np_expm1m_plus(t: np.ndarray) -> np.ndarray:
         return t * t * _horner(t, _E_COEF)
 
     def direct(t):
-        return np.expm1(-t) + t
+        out = np.expm1(-t)
+        out += t
+        return out
 
     return _piecewise(t < _SERIES_CUT, series, direct, t)
 
@@ -185,30 +196,21 @@ def _np_h_ratio(u: np.ndarray) -> np.ndarray:
     return _piecewise(u < _SERIES_CUT, series, direct, u)
 
 
-def _np_lgamma_ratio(y: np.ndarray, la: np.ndarray) -> np.ndarray:
-    """D(y, theta) = lgamma(y + theta) - lgamma(theta) - y log(theta), theta = exp(-la).
+def _np_nb_stirling_part(y: np.ndarray, la: np.ndarray) -> np.ndarray:
+    """D(y, theta) = lgamma(y + theta) - lgamma(theta) - y log(theta) for theta = exp(-la) >= 1e4.
 
-    For theta < 1e4 directly; for theta >= 1e4 from Stirling's series
-    lgamma(x) = (x - 1/2) log x - x + log(2 pi)/2 + 1/(12 x) - 1/(360 x^3) + ..., which gives
-    D = theta H(y/theta) - log1p(y/theta)/2 + [Stirling corrections] with no cancellation
-    (D ~ y(y - 1)/(2 theta) when theta is huge, i.e. the Poisson limit).
+    From Stirling's series lgamma(x) = (x - 1/2) log x - x + log(2 pi)/2 + 1/(12 x) + O(x^-3):
+    D = y H(u) - log1p(u)/2 - alpha^2 y / (12 (1 + u)) with u = alpha y, free of cancellation;
+    D ~ alpha y (y - 1)/2 as alpha -> 0 (the Poisson limit). The first neglected term,
+    [1/theta^3 - 1/(theta + y)^3]/360, is below 3e-15 for theta >= 1e4.
     """
-
-    def direct(y, la):
-        theta = np.exp(-la)
-        return sc.gammaln(y + theta) - sc.gammaln(theta) + y * la
-
-    def stirling(y, la):
-        alpha = np.exp(la)
-        u = alpha * y
-        log1p_u = np.log1p(u)
-        out = y * _np_h_ratio(u)
-        out -= 0.5 * log1p_u
-        out -= alpha * alpha * y / (12.0 * (1.0 + u))
-        out -= alpha**3 / 360.0 * np.expm1(-3.0 * log1p_u)
-        return out
-
-    return _piecewise(la > _LOG_ALPHA_STIRLING, direct, stirling, y, la)
+    alpha = np.exp(la)
+    u = alpha * y
+    out = _np_h_ratio(u)
+    out *= y
+    out -= 0.5 * np.log1p(u)
+    out -= alpha * alpha * y / (12.0 * (1.0 + u))
+    return out
 
 
 def _np_count_logf(y, eta_c, la, nb: bool) -> np.ndarray:
@@ -218,44 +220,83 @@ def _np_count_logf(y, eta_c, la, nb: bool) -> np.ndarray:
         out -= np.exp(eta_c)
         out -= sc.gammaln(np.add(y, 1.0))
         return out
-    # log f = lgamma(y+theta) - lgamma(theta) - lgamma(y+1) + theta log(theta/(theta+mu))
-    #         + y log(mu/(theta+mu))
-    #       = D(y, theta) - lgamma(y+1) + y (eta_c - log1p(alpha mu)) - mu L(alpha mu)
-    lx = eta_c + la
-    out = np.multiply(y, eta_c - _np_softplus(lx))
+
+    # NB log f = lgamma(y+theta) - lgamma(theta) - lgamma(y+1) + theta log(theta/(theta+mu))
+    #            + y log(mu/(theta+mu)),  theta = 1/alpha, and with x = alpha mu:
+    #   theta log(theta/(theta+mu)) = -theta log1p(x),   log(mu/(theta+mu)) = log_sigmoid(log x).
+    def moderate_theta(y, eta_c, la):  # alpha > 1e-4: theta <= 1e4, lgamma difference is exact
+        theta = np.exp(-la)
+        lx = eta_c + la
+        out = np.multiply(y, sc.log_expit(lx))  # full broadcast shape from the start
+        work = np.add(y, theta)
+        sc.gammaln(work, out=work)
+        out += work
+        out -= sc.gammaln(theta)
+        # reuse the work array for -theta log1p(x) when shapes allow (they do for draws x rows)
+        work = np.logaddexp(0.0, lx, out=work if work.shape == lx.shape else None)
+        work *= theta
+        out -= work
+        return out
+
+    def huge_theta(y, eta_c, la):  # alpha <= 1e-4: Stirling form of the lgamma difference
+        lx = eta_c + la
+        out = np.multiply(y, np.subtract(eta_c, _np_softplus(lx)))
+        work = _np_log1p_ratio(lx)
+        work *= np.exp(eta_c)  # theta log1p(x) = mu L(x)
+        out -= work
+        out += _np_nb_stirling_part(y, la)
+        return out
+
+    out = _piecewise(la > _LOG_ALPHA_STIRLING, moderate_theta, huge_theta, y, eta_c, la)
     out -= sc.gammaln(np.add(y, 1.0))
-    out -= np.exp(eta_c) * _np_log1p_ratio(lx)
-    out += _np_lgamma_ratio(y, la)
     return out
 
 
+def _np_nb_neg_logf0(eta_c, la) -> np.ndarray:
+    """t = -log f(0) = (1/alpha) log1p(alpha mu) = mu L(alpha mu) > 0 for the NB."""
+
+    def moderate_theta(eta_c, la):
+        out = np.logaddexp(0.0, eta_c + la)
+        out *= np.exp(-la)
+        return out
+
+    def huge_theta(eta_c, la):
+        out = _np_log1p_ratio(eta_c + la)
+        out *= np.exp(eta_c)
+        return out
+
+    return _piecewise(la > _LOG_ALPHA_STIRLING, moderate_theta, huge_theta, eta_c, la)
+
+
 def _np_count_logf0(eta_c, la, nb: bool) -> np.ndarray:
-    """log f(0) = -mu (Poisson) or -(1/alpha) log1p(alpha mu) = -mu L(alpha mu) (NB)."""
-    if not nb:
-        return -np.exp(eta_c)
-    return -np.exp(eta_c) * _np_log1p_ratio(eta_c + la)
-
-
-def _np_log1mexp_neg(t: np.ndarray, logt: np.ndarray) -> np.ndarray:
-    """log(1 - exp(-t)) for t >= 0 given t and log t; exact also when t underflows."""
-
-    def series(t, logt):
-        return logt - 0.5 * t + t * t / 24.0
-
-    def direct(t, logt):
-        return np.log(-np.expm1(-t))
-
-    return _piecewise(t < _TRUNC_CUT, series, direct, t, logt)
+    """log f(0) = -mu (Poisson) or -(1/alpha) log1p(alpha mu) (NB)."""
+    return np.negative(_np_nb_neg_logf0(eta_c, la) if nb else np.exp(eta_c))
 
 
 def _np_count_log1m_f0(eta_c, la, nb: bool) -> tuple[np.ndarray, np.ndarray]:
-    """(log f(0), log(1 - f(0))) of the count process."""
-    if not nb:
-        t = np.exp(eta_c)
-        return -t, _np_log1mexp_neg(t, np.broadcast_to(eta_c, t.shape))
-    ratio = _np_log1p_ratio(eta_c + la)
-    t = np.exp(eta_c) * ratio
-    return -t, _np_log1mexp_neg(t, eta_c + np.log(ratio))
+    """(log f(0), log(1 - f(0))) of the count process, both exact to rounding.
+
+    log(1 - f0) = log(-expm1(-t)) with t = -log f0; for t < 1e-5 (tiny mu, where t may even
+    underflow) it is log t - t/2 + t^2/24 + O(t^4), with log t = eta_c + log L(alpha mu) (NB).
+    """
+    t = _np_nb_neg_logf0(eta_c, la) if nb else np.exp(eta_c)
+    t = np.asarray(t, dtype=np.float64)  # a fresh array of ours (0-d for scalars)
+    out = np.negative(t, out=np.empty_like(t))
+    np.expm1(out, out=out)
+    np.negative(out, out=out)
+    with np.errstate(divide="ignore"):
+        np.log(out, out=out)
+    small = t < _TRUNC_CUT
+    if small.any():
+        ts = t[small]
+        if nb:
+            ec, lz = _np_take(small, eta_c, la)
+            logt = ec + np.log(_np_log1p_ratio(ec + lz))
+        else:
+            (logt,) = _np_take(small, eta_c)
+        out[small] = logt - 0.5 * ts + ts * ts / 24.0
+    np.negative(t, out=t)
+    return t, out
 
 
 def _np_take(mask: np.ndarray, *arrays: np.ndarray) -> list[np.ndarray]:
@@ -306,13 +347,7 @@ def _pt_lgamma_ratio(y, la):
     la_s = pt.minimum(la, _LOG_ALPHA_STIRLING)
     alpha = pt.exp(la_s)
     u = alpha * y
-    log1p_u = pt.log1p(u)
-    stirling = (
-        y * _pt_h_ratio(u)
-        - 0.5 * log1p_u
-        - alpha * alpha * y / (12.0 * (1.0 + u))
-        - alpha**3 / 360.0 * pt.expm1(-3.0 * log1p_u)
-    )
+    stirling = y * _pt_h_ratio(u) - 0.5 * pt.log1p(u) - alpha * alpha * y / (12.0 * (1.0 + u))
     return pt.switch(pt.gt(la, _LOG_ALPHA_STIRLING), direct, stirling)
 
 
@@ -345,6 +380,29 @@ def _pt_count_log1m_f0(eta_c, la, nb: bool):
     series = logt_s - 0.5 * t_s + t_s * t_s / 24.0
     direct = pt.log1mexp(-t_d)
     return -t, pt.switch(pt.lt(t, _TRUNC_CUT), series, direct)
+
+
+def _full(x: np.ndarray, shape: tuple[int, ...]) -> np.ndarray:
+    """x itself if it already has ``shape``, else a broadcast (writable) copy."""
+    return x if np.shape(x) == shape else np.array(np.broadcast_to(x, shape), dtype=np.float64)
+
+
+def _lift(v: Any) -> Any:
+    return None if v is None else np.atleast_1d(v)
+
+
+def _array_method(method: Callable) -> Callable:
+    """Run a NumPy method on inputs lifted to at least 1-d (a view, no copy), so that the in-place
+    arithmetic inside never meets a NumPy scalar; all-scalar calls get a 0-d array back.
+    (Lifting a 0-d input to shape (1,) never changes a broadcast shape with other arrays.)"""
+
+    @functools.wraps(method)
+    def wrapper(self, *args, **kwargs):
+        scalar = all(np.ndim(v) == 0 for v in (*args, *kwargs.values()) if v is not None)
+        out = method(self, *map(_lift, args), **{k: _lift(v) for k, v in kwargs.items()})
+        return np.asarray(out).reshape(()) if scalar else out
+
+    return wrapper
 
 
 # =============================================================================================
@@ -405,6 +463,8 @@ class Family:
         nb = self.has_dispersion
         y = pt.as_tensor_variable(y)
         eta_c = pt.as_tensor_variable(eta_c)
+        if nb and log_alpha is None:
+            raise BayesziError(f"family {self.name!r} needs log_alpha, but None was given.")
         la = pt.as_tensor_variable(log_alpha) if nb else None
         logf = _pt_count_logf(y, eta_c, la, nb)
         if self.zeros_kind is None:
@@ -420,6 +480,7 @@ class Family:
             return pt.switch(is_zero, _pt_logaddexp(log_p, log_1mp + logf0), log_1mp + logf)
         return pt.switch(is_zero, log_p, log_1mp + logf - log1m_f0)
 
+    @_array_method
     def logpmf(self, y: Any, eta_c: Any, eta_z: Any, log_alpha: Any) -> np.ndarray:
         """Elementwise log-pmf in NumPy (float64), same values as :meth:`logp`.
 
@@ -451,9 +512,8 @@ class Family:
         zero = np.broadcast_to(np.asarray(y) == 0, shape)
         pos = ~zero
         if self.zeros_kind == "hurdle":
-            if pos.any():
-                ec, lz = _np_take(pos, eta_c, la if nb else 0.0)
-                out[pos] -= _np_count_log1m_f0(ec, lz, nb)[1]
+            if pos.any():  # on the full array: cheaper in memory than gathering the positives
+                out -= _np_count_log1m_f0(eta_c, la if nb else 0.0, nb)[1]
             if zero.any():
                 (ez,) = _np_take(zero, eta_z)
                 out[zero] = sc.log_expit(ez)
@@ -492,26 +552,31 @@ class Family:
         eta_c, eta_z, la = self._inputs(eta_c, eta_z, log_alpha)
         shape = self._shape(eta_c, eta_z, la)
         if size is not None:
-            size = (size,) if np.isscalar(size) else tuple(size)
-            shape = np.broadcast_shapes(shape, size)
-            if shape != size:
+            size = (int(size),) if np.isscalar(size) else tuple(int(s) for s in size)
+            try:
+                fits = np.broadcast_shapes(shape, size) == size
+            except ValueError:
+                fits = False
+            if not fits:
                 raise BayesziError(
                     f"size {size} does not hold the parameters' broadcast shape {shape}; "
                     f"pass size=None or a shape the parameters broadcast to."
                 )
-        eta_c = np.broadcast_to(eta_c, shape)
-        la_b = np.broadcast_to(la, shape) if la is not None else None
+            shape = size
+        # work on flat copies (also makes scalar calls return an array of shape ())
+        n = math.prod(shape)
+        eta_c = np.broadcast_to(eta_c, shape).reshape(n)
+        la = np.broadcast_to(la, shape).reshape(n) if la is not None else None
         nb = self.has_dispersion
         if self.zeros_kind == "hurdle":
-            counts = self._random_positive(rng, eta_c, la_b, nb)
+            counts = self._random_positive(rng, eta_c, la, nb)
         else:
-            mu = np.exp(eta_c)
-            if nb:
-                mu = rng.gamma(np.exp(-la_b), np.exp(eta_c + la_b))
+            mu = rng.gamma(np.exp(-la), np.exp(eta_c + la)) if nb else np.exp(eta_c)
             counts = rng.poisson(mu).astype(np.int64, copy=False)
         if self.zeros_kind is not None:
-            counts[rng.random(shape) < sc.expit(np.broadcast_to(eta_z, shape))] = 0
-        return counts
+            p = sc.expit(np.broadcast_to(eta_z, shape).reshape(n))
+            counts[rng.random(n) < p] = 0
+        return counts.reshape(shape)
 
     @staticmethod
     def _random_positive(rng, eta_c, la, nb) -> np.ndarray:
@@ -530,6 +595,7 @@ class Family:
         return 1 + rng.poisson(rest).astype(np.int64, copy=False)
 
     # ------------------------------------------------------------------ moments
+    @_array_method
     def mean(self, eta_c: Any, eta_z: Any, log_alpha: Any) -> np.ndarray:
         """E[Y]: mu (plain), (1 - p) mu (ZI), (1 - p) mu / (1 - f(0)) (hurdle).
 
@@ -539,13 +605,15 @@ class Family:
         2.0
         """
         eta_c, eta_z, la = self._inputs(eta_c, eta_z, log_alpha)
+        shape = self._shape(eta_c, eta_z, la)
         if self.zeros_kind is None:
-            return np.exp(eta_c)
+            return _full(np.exp(eta_c), shape)
         log_mean = eta_c + sc.log_expit(-eta_z)
         if self.zeros_kind == "hurdle":
             log_mean = log_mean - _np_count_log1m_f0(eta_c, la, self.has_dispersion)[1]
-        return np.exp(log_mean)
+        return _full(np.exp(log_mean), shape)
 
+    @_array_method
     def variance(self, eta_c: Any, eta_z: Any, log_alpha: Any) -> np.ndarray:
         """Var[Y] in closed form (formulas in ``docs/families.md``).
 
@@ -569,16 +637,28 @@ class Family:
         # Var = (1-p) m+ [mu (1 + alpha) + p m+ - (m+ - 1)], with m+ - 1 = (mu - q)/q and
         # mu - q = mu G(alpha mu) + E(mu L(alpha mu)) >= 0 computed without cancellation.
         log_f0, log_q = _np_count_log1m_f0(eta_c, la if nb else 0.0, nb)
-        q = np.exp(log_q)
-        m_plus = np.exp(eta_c - log_q)
         if nb:
-            lx = eta_c + la
-            mu_minus_q = mu * _np_one_minus_log1p_ratio(lx) + _np_expm1m_plus(-log_f0)
+            mu_minus_q = _np_one_minus_log1p_ratio(eta_c + la)
+            mu_minus_q *= mu
+            np.negative(log_f0, out=log_f0)  # t = mu L(alpha mu)
+            mu_minus_q += _np_expm1m_plus(log_f0)
         else:
             mu_minus_q = _np_expm1m_plus(mu)
-        bracket = mu * (1.0 + alpha) + p * m_plus - mu_minus_q / q
-        return one_m_p * m_plus * bracket
+        del log_f0
+        np.negative(log_q, out=log_q)
+        np.exp(log_q, out=log_q)  # now 1 / q
+        mu_minus_q *= log_q  # (mu - q) / q = m+ - 1
+        m_plus = np.multiply(mu, log_q)
+        del log_q
+        bracket = np.multiply(p, m_plus)
+        bracket += mu * (1.0 + alpha)
+        bracket -= mu_minus_q
+        del mu_minus_q
+        bracket *= m_plus
+        bracket *= one_m_p
+        return bracket
 
+    @_array_method
     def prob_zero(self, eta_c: Any, eta_z: Any, log_alpha: Any) -> np.ndarray:
         """P(Y = 0).
 
@@ -589,6 +669,7 @@ class Family:
         """
         return np.exp(self.log_prob_zero(eta_c, eta_z, log_alpha))
 
+    @_array_method
     def log_prob_zero(self, eta_c: Any, eta_z: Any, log_alpha: Any) -> np.ndarray:
         """log P(Y = 0), stable (log-sum-exp for ZI, log-sigmoid for hurdle).
 
@@ -599,12 +680,13 @@ class Family:
         """
         eta_c, eta_z, la = self._inputs(eta_c, eta_z, log_alpha)
         if self.zeros_kind == "hurdle":
-            return np.array(np.broadcast_to(sc.log_expit(eta_z), self._shape(eta_c, eta_z, la)))
+            return _full(sc.log_expit(eta_z), self._shape(eta_c, eta_z, la))
         log_f0 = _np_count_logf0(eta_c, la, self.has_dispersion)
         if self.zeros_kind is None:
             return log_f0
         return np.logaddexp(sc.log_expit(eta_z), sc.log_expit(-eta_z) + log_f0)
 
+    @_array_method
     def prob_extra_zero_given_zero(self, eta_c: Any, eta_z: Any, log_alpha: Any) -> np.ndarray:
         """Share of zeros that come from the zeros part: ZI p / P(0); hurdle 1; plain 0.
 
@@ -622,6 +704,7 @@ class Family:
         log_p0 = self.log_prob_zero(eta_c, eta_z, la)
         return np.minimum(np.exp(sc.log_expit(eta_z) - log_p0), 1.0)
 
+    @_array_method
     def positive_mean(self, eta_c: Any, eta_z: Any, log_alpha: Any) -> np.ndarray:
         """Mean of the count part: mu (plain, ZI); E[Y | Y > 0] = mu / (1 - f(0)) (hurdle).
 
@@ -633,11 +716,12 @@ class Family:
         eta_c, eta_z, la = self._inputs(eta_c, eta_z, log_alpha)
         shape = self._shape(eta_c, eta_z, la)
         if self.zeros_kind != "hurdle":
-            return np.array(np.broadcast_to(np.exp(eta_c), shape))
+            return _full(np.exp(eta_c), shape)
         log_q = _np_count_log1m_f0(eta_c, la, self.has_dispersion)[1]
-        return np.array(np.broadcast_to(np.exp(eta_c - log_q), shape))
+        return _full(np.exp(eta_c - log_q), shape)
 
     # ------------------------------------------------------------------ tails and tables
+    @_array_method
     def sf(self, k: Any, eta_c: Any, eta_z: Any, log_alpha: Any) -> np.ndarray:
         """P(Y >= k) for integer k >= 0, computed directly (not as 1 - cdf), so tiny tails keep
         their relative accuracy.
@@ -653,7 +737,7 @@ class Family:
         eta_c, eta_z, la = self._inputs(eta_c, eta_z, log_alpha)
         k = np.asarray(k, dtype=np.float64)
         nb = self.has_dispersion
-        kpos = np.maximum(k, 1.0)
+        kpos = np.maximum(np.ceil(k), 1.0)  # P(Y >= k) = P(Y >= ceil(k))
         if nb:
             tail = sc.betainc(kpos, np.exp(-la), sc.expit(eta_c + la))
         else:
@@ -669,7 +753,8 @@ class Family:
         """P(Y = k) for k = 0..kmax, as an array of shape (broadcast shape, kmax + 1).
 
         Uses the ratio recurrence f(k+1)/f(k) = mu/(k+1) (Poisson) or
-        (k + theta)/(k + 1) * alpha mu/(1 + alpha mu) (NB), on the log scale.
+        (k + theta)/(k + 1) * alpha mu/(1 + alpha mu) (NB) on the log scale, restarted from the
+        exact log f(k) every 32 steps so that rounding cannot build up for large kmax.
 
         Example
         -------
@@ -681,12 +766,14 @@ class Family:
         kmax = int(kmax)
         eta_c, eta_z, la = self._inputs(eta_c, eta_z, log_alpha)
         nb = self.has_dispersion
+        final_shape = (*self._shape(eta_c, eta_z, la), kmax + 1)
+        eta_c, eta_z, la = _lift(eta_c), _lift(eta_z), _lift(la)  # see _array_method
         shape = self._shape(eta_c, eta_z, la)
         out = np.empty((*shape, kmax + 1), dtype=np.float64)
         log_f0, log1m_f0 = _np_count_log1m_f0(eta_c, la if nb else 0.0, nb)
         out[..., 0] = np.exp(self.log_prob_zero(eta_c, eta_z, la))
         if kmax == 0:
-            return out
+            return out.reshape(final_shape)
         # log of the factor applied to every k >= 1: (1 - p), or (1 - p)/(1 - f0) for hurdles.
         if self.zeros_kind is None:
             log_scale = 0.0
@@ -701,12 +788,15 @@ class Family:
             step = eta_c
         log_fk = np.array(np.broadcast_to(log_f0, shape), dtype=np.float64)
         for k in range(kmax):
-            log_fk += step
-            log_fk -= math.log(k + 1.0)
-            if nb and k > 0:
-                log_fk += np.log1p(alpha * k)
+            if (k + 1) % _REANCHOR == 0:  # exact value now and then: no drift over many k
+                log_fk[...] = _np_count_logf(float(k + 1), eta_c, la, nb)
+            else:
+                log_fk += step
+                log_fk -= math.log(k + 1.0)
+                if nb and k > 0:
+                    log_fk += np.log1p(alpha * k)
             out[..., k + 1] = np.exp(log_fk + log_scale)
-        return out
+        return out.reshape(final_shape)
 
 
 _FAMILIES: dict[str, Family] = {
