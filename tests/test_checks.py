@@ -1,0 +1,472 @@
+"""Posterior predictive checks (bayeszi.checks, bayeszi.checkplots) on simulated data.
+
+Sources of the check values, named beside each test:
+- Zero-inflated Poisson and its zero-source probability p / (p + (1 - p) exp(-mu)):
+  Lambert (1992), Technometrics 34:1-14.
+- Randomized quantile residuals are exactly N(0, 1) under the true model: Dunn & Smyth
+  (1996), Journal of Computational and Graphical Statistics 5:236-244; the normality test is
+  scipy.stats.kstest against scipy.stats.norm.
+- Posterior predictive tail probabilities of a correctly specified model are no more spread
+  than uniform (from memory: Meng 1994, Annals of Statistics 22:1142-1160), so a central
+  (0.05, 0.95) or (0.01, 0.99) band holds at least 90% or 98% of them.
+- Reference pmfs: scipy.stats.poisson.
+Fits are small (1,500 records, 2 chains x 400 draws) and shared through ``cached_fit``.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from matplotlib.figure import Figure
+from scipy import special, stats
+from simulate import simulate
+
+import bayeszi as bz
+from bayeszi import checks
+from bayeszi.draws import fitted_rows, linear_predictors
+from bayeszi.families import get_family
+
+SMALL = dict(draws=400, tune=400, chains=2, cores=1, seed=3, progressbar=False)
+
+
+# ------------------------------------------------------------------------- fits
+
+
+def _zip_data() -> pd.DataFrame:
+    return simulate("zip", n=1500, seed=11)[0]
+
+
+@pytest.fixture(scope="module")
+def zip_poisson(cached_fit):
+    """ZIP data (zero share ~0.46) fitted with a Poisson: too few zeros predicted."""
+    return cached_fit("checks-zip-poisson", lambda: bz.fit(
+        _zip_data(), counts="y ~ x1 + x2", family="poisson", exposure="exposure", **SMALL))
+
+
+@pytest.fixture(scope="module")
+def zip_zip(cached_fit):
+    """ZIP data fitted with the true ZIP model."""
+    return cached_fit("checks-zip-zip", lambda: bz.fit(
+        _zip_data(), counts="y ~ x1 + x2", zeros="~ w", family="zip", exposure="exposure",
+        **SMALL))
+
+
+@pytest.fixture(scope="module")
+def zinb_poisson(cached_fit):
+    """ZINB data (alpha 0.5) fitted with a Poisson: zeros and spread both missed."""
+    return cached_fit("checks-zinb-poisson", lambda: bz.fit(
+        simulate("zinb", n=1500, seed=12)[0], counts="y ~ x1 + x2", family="poisson",
+        exposure="exposure", **SMALL))
+
+
+def _site_data() -> tuple[pd.DataFrame, dict]:
+    # 20 sites whose chance of an extra zero differs (logit sd 1.2), counts part shared
+    return simulate("zip", n=1500, seed=13, n_sites=20, site_sd=(0.0, 1.2))
+
+
+@pytest.fixture(scope="module")
+def zip_sites(cached_fit):
+    """ZIP data with site-level zero inflation, fitted without site effects."""
+    return cached_fit("checks-zip-sites", lambda: bz.fit(
+        _site_data()[0], counts="y ~ x1 + x2", zeros="~ w", family="zip",
+        exposure="exposure", **SMALL))
+
+
+@pytest.fixture(scope="module")
+def hurdle_groups(cached_fit):
+    """A small hurdle-Poisson fit with site effects (groups in both parts)."""
+    df, _ = simulate("hurdle-poisson", n=400, seed=14, n_sites=8, site_sd=(0.3, 0.3))
+    return cached_fit("checks-hurdle-groups", lambda: bz.fit(
+        df, counts="y ~ x1 + x2", zeros="~ w", family="hurdle-poisson", exposure="exposure",
+        groups="site", draws=200, tune=200, chains=2, cores=1, seed=3, progressbar=False))
+
+
+# ------------------------------------------------------------------------- no fit needed
+
+
+def test_default_kmax_is_the_99th_percentile_capped():
+    # the rule documented in checks.default_kmax: ceil of the 99% quantile, in [1, 50]
+    y = np.arange(101)                     # 99% quantile = 99
+    assert checks.default_kmax(y) == 50    # capped
+    assert checks.default_kmax(np.zeros(10, dtype=int)) == 1
+    y = np.r_[np.zeros(990, dtype=int), np.full(10, 7)]
+    assert checks.default_kmax(y) == int(np.ceil(np.quantile(y, 0.99)))
+
+
+def test_tail_probability_counts_ties_half():
+    # definition in checks._tail_prob: P(rep > obs) + P(rep = obs) / 2
+    rep = np.array([1, 2, 2, 3])
+    assert checks._tail_prob(rep, 2) == pytest.approx(0.25 + 0.5 * 0.5)
+    assert checks._tail_prob(rep, 5) == 0.0
+    assert checks._tail_prob(rep, 0) == 1.0
+
+
+def test_model_label_names_both_parts():
+    assert "zeros part models P(extra zero)" in checks.model_label("zinb")
+    assert "zeros part models P(Y = 0)" in checks.model_label("hurdle-negbin")
+    assert "no zeros part" in checks.model_label("poisson")
+
+
+# ------------------------------------------------------------------------- zero share
+
+
+def test_poisson_fit_to_zip_data_misses_the_zeros(zip_poisson):
+    table = zip_poisson.zero_check()
+    overall = table.iloc[0]
+    assert overall["group"] == "all records"
+    assert overall["tail prob"] < 0.01
+    assert overall["verdict"] == "more zeros than the model predicts"
+    assert overall["observed share"] > overall["replicated 95%"]
+
+
+def test_zip_fit_reproduces_the_zero_share(zip_zip):
+    overall = zip_zip.zero_check().iloc[0]
+    # correct model: tail probability is not extreme (Meng 1994, see module docstring)
+    assert 0.05 < overall["tail prob"] < 0.95
+    # expected share is the posterior mean of the average P(Y = 0): recompute it
+    fam = get_family("zip")
+    lp = linear_predictors(zip_zip, fitted_rows(zip_zip))
+    p0 = fam.prob_zero(lp.counts, lp.zeros, lp.log_alpha).mean()
+    assert overall["expected share"] == pytest.approx(p0, rel=1e-12)
+
+
+def test_zero_check_per_site_points_at_the_zero_heavy_sites(zip_sites):
+    df, truth = _site_data()
+    # "site" is not used by the model, so its labels come as a Series of the fitted frame
+    table = zip_sites.zero_check(by=df["site"])
+    sites = table[table["group"] == "site"].set_index("level")
+    assert len(sites) == 20
+    # per-site observed zeros add up to the overall count
+    assert sites["observed zeros"].sum() == table.iloc[0]["observed zeros"]
+    assert sites["records"].sum() == len(df)
+    # the model has no site effects: sites with a larger true extra-zero effect show more
+    # zeros than it predicts. Truth: simulate()'s site_zeros, indexed by site number.
+    effect = pd.Series(truth["site_zeros"], index=[f"s{i:02d}" for i in range(20)])
+    excess = sites["observed share"] - sites["expected share"]
+    rho = stats.spearmanr(excess, effect[excess.index]).statistic
+    assert rho > 0.7
+    more = sites.index[sites["verdict"].str.startswith("more")]
+    fewer = sites.index[sites["verdict"].str.startswith("fewer")]
+    assert len(more) >= 1 and len(fewer) >= 1
+    assert effect[more].mean() > effect[fewer].mean()
+    # rows of a group are sorted from most zero-heavy (smallest tail probability)
+    assert np.all(np.diff(sites["tail prob"].to_numpy()) >= 0)
+
+
+def test_zero_check_uses_the_fit_groups_by_default(hurdle_groups):
+    table = hurdle_groups.zero_check()
+    assert set(table["group"]) == {"all records", "site"}
+    assert (table["group"] == "site").sum() == 8
+    only_overall = hurdle_groups.zero_check(by=[])
+    assert len(only_overall) == 1
+    # tables stack with pandas (their attrs hold no arrays that pandas cannot compare)
+    assert len(pd.concat([table, only_overall])) == len(table) + 1
+
+
+# ------------------------------------------------------------------------- frequencies
+
+
+def test_rootogram_shows_the_zero_deficit_of_a_poisson_fit(zip_poisson):
+    tab = zip_poisson.count_frequencies()
+    zero = tab.loc["0"]
+    # the Poisson expects far fewer zeros than observed: the zero bar hangs below the line
+    assert zero["observed"] > zero["95%"]
+    assert zero["hanging bottom"] < 0
+    fig = zip_poisson.rootogram()
+    assert isinstance(fig, Figure)
+    bar0 = fig.axes[0].patches[0]
+    assert bar0.get_y() == pytest.approx(zero["hanging bottom"])
+    assert bar0.get_y() < 0
+
+
+def test_expected_frequencies_sum_to_n_and_tail_matches_the_survival_function(zip_zip):
+    n = zip_zip.design.n
+    freq = checks.expected_frequency_draws(zip_zip)
+    K = freq.shape[1] - 2
+    assert freq.columns[-1] == f"{K + 1}+"
+    # every draw's expected frequencies over 0..K plus the tail bin add up to n
+    np.testing.assert_allclose(freq.sum(axis=1), n, rtol=1e-12)
+    # the tail bin (1 - P(Y <= K) per record) equals the closed-form survival function
+    fam = get_family("zip")
+    lp = linear_predictors(zip_zip, fitted_rows(zip_zip))
+    tail = fam.sf(K + 1, lp.counts, lp.zeros, lp.log_alpha).sum(axis=1)
+    np.testing.assert_allclose(freq.iloc[:, -1], tail, rtol=1e-9, atol=1e-9)
+    table = zip_zip.count_frequencies()
+    assert table["observed"].sum() == n
+    assert table["expected"].sum() == pytest.approx(n, rel=1e-12)
+
+
+def test_expected_frequencies_match_scipy_poisson(zip_zip):
+    # reference: scipy.stats.poisson.pmf composed into the ZIP (Lambert 1992), per draw,
+    # with mu and p rebuilt from the user-scale coefficients and the data
+    df = _zip_data()
+    post = zip_zip.idata.posterior
+    b = post["counts_coef"].values.reshape(-1, 3)
+    g = post["zeros_coef"].values.reshape(-1, 2)
+    X = np.column_stack([np.ones(len(df)), df["x1"], df["x2"]])
+    Z = np.column_stack([np.ones(len(df)), df["w"]])
+    take = np.arange(0, b.shape[0], 40)            # 20 draws keep scipy quick
+    mu = np.exp(b[take] @ X.T + np.log(df["exposure"].to_numpy()))
+    p = special.expit(g[take] @ Z.T)
+    kmax = 6
+    ref = np.stack([((1 - p) * stats.poisson.pmf(k, mu) + p * (k == 0)).sum(axis=1)
+                    for k in range(kmax + 1)], axis=1)
+    full = checks.expected_frequency_draws(zip_zip, kmax=kmax).to_numpy()
+    np.testing.assert_allclose(full[take, : kmax + 1], ref, rtol=1e-9)
+
+
+def test_chunking_does_not_change_expected_frequencies(zip_zip):
+    a = checks.expected_frequency_draws(zip_zip, kmax=5, draws=100)
+    b = checks.expected_frequency_draws(zip_zip, kmax=5, draws=100, max_floats=5_000)
+    np.testing.assert_allclose(a.to_numpy(), b.to_numpy(), rtol=1e-12)
+    assert len(a) == 100
+
+
+# ------------------------------------------------------------------------- spread and maximum
+
+
+def test_poisson_fit_to_zinb_data_misses_spread_and_maximum(zinb_poisson):
+    disp = zinb_poisson.dispersion_check()
+    assert disp.loc["variance / mean", "tail prob"] < 0.01
+    assert disp.loc["variance / mean", "verdict"] == "more spread than the model predicts"
+    mx = zinb_poisson.max_count_check()
+    assert mx.loc["maximum", "tail prob"] < 0.01
+    assert mx.loc["maximum", "observed"] == zinb_poisson.design.y.max()
+
+
+def test_correct_model_reproduces_spread(zip_zip):
+    disp = zip_zip.dispersion_check(seed=5)
+    # correct model: not extreme (Meng 1994, see module docstring)
+    assert 0.01 < disp.loc["variance / mean", "tail prob"] < 0.99
+    reps = checks.replicated_statistics(zip_zip, draws=200, seed=5)
+    assert len(reps) == 200
+    obs = reps.attrs["observed"]
+    y = zip_zip.design.y
+    assert obs["variance / mean"] == pytest.approx(y.var(ddof=1) / y.mean())
+    assert np.all(reps["maximum"] >= 0)
+
+
+def test_replicated_data_are_seeded(zip_zip):
+    a = checks.replicated_statistics(zip_zip, draws=50, seed=9)
+    b = checks.replicated_statistics(zip_zip, draws=50, seed=9)
+    c = checks.replicated_statistics(zip_zip, draws=50, seed=10)
+    pd.testing.assert_frame_equal(a, b)
+    assert not a.equals(c)
+
+
+# ------------------------------------------------------------------------- residuals
+
+
+@pytest.mark.parametrize("method", ["posterior", "loo"])
+def test_residuals_of_the_true_model_are_standard_normal(zip_zip, method):
+    res = zip_zip.residuals(method=method, seed=1)
+    assert len(res) == zip_zip.design.n
+    # Dunn & Smyth (1996): N(0, 1) under the true model; scipy.stats.kstest vs norm
+    assert stats.kstest(res["residual"], "norm").pvalue > 0.01
+    assert np.all((res["PIT low"] <= res["PIT"]) & (res["PIT"] <= res["PIT high"]))
+    if method == "loo":
+        assert np.isfinite(res["pareto k"]).all()
+
+
+def test_residuals_of_a_poisson_fit_to_zinb_data_are_not_normal(zinb_poisson):
+    res = zinb_poisson.residuals(seed=1)
+    assert stats.kstest(res["residual"], "norm").pvalue < 0.01
+
+
+def test_residual_pit_bounds_are_the_posterior_cdf(zip_zip):
+    # PIT high = posterior mean of P(Y <= y), checked with scipy's Poisson cdf (Lambert 1992)
+    res = zip_zip.residuals(seed=1)
+    df = _zip_data()
+    post = zip_zip.idata.posterior
+    b = post["counts_coef"].values.reshape(-1, 3)
+    g = post["zeros_coef"].values.reshape(-1, 2)
+    rows = np.arange(0, len(df), 50)
+    X = np.column_stack([np.ones(len(df)), df["x1"], df["x2"]])[rows]
+    Z = np.column_stack([np.ones(len(df)), df["w"]])[rows]
+    mu = np.exp(b @ X.T + np.log(df["exposure"].to_numpy()[rows]))
+    p = special.expit(g @ Z.T)
+    y = df["y"].to_numpy()[rows]
+    cdf = (p + (1 - p) * stats.poisson.cdf(y, mu)).mean(axis=0)
+    np.testing.assert_allclose(res["PIT high"].to_numpy()[rows], cdf, rtol=1e-9, atol=1e-12)
+
+
+# ------------------------------------------------------------------------- zero sources
+
+
+def test_zero_sources_equal_lambert_closed_form(zip_zip):
+    # Lambert (1992): P(extra zero | Y = 0) = p / (p + (1 - p) exp(-mu)), averaged over draws
+    df = _zip_data()
+    post = zip_zip.idata.posterior
+    b = post["counts_coef"].values.reshape(-1, 3)
+    g = post["zeros_coef"].values.reshape(-1, 2)
+    zero = df["y"].to_numpy() == 0
+    X = np.column_stack([np.ones(len(df)), df["x1"], df["x2"]])[zero]
+    Z = np.column_stack([np.ones(len(df)), df["w"]])[zero]
+    mu = np.exp(b @ X.T + np.log(df["exposure"].to_numpy()[zero]))
+    p = special.expit(g @ Z.T)
+    lambert = (p / (p + (1 - p) * np.exp(-mu))).mean(axis=0)
+    table = zip_zip.zero_sources()
+    assert list(table.index) == list(df.index[zero])
+    np.testing.assert_allclose(table["P(zero from zeros part)"], lambert, rtol=1e-10)
+    assert table["note"].iloc[0].startswith("zero-inflated")
+
+
+def test_zero_sources_by_group_add_up(zip_sites):
+    df, _ = _site_data()
+    per_row = zip_sites.zero_sources()
+    by_site = zip_sites.zero_sources(by=df["site"])
+    assert set(by_site["group"]) == {"site"}
+    assert by_site["observed zeros"].sum() == int((df["y"] == 0).sum())
+    assert by_site["expected extra zeros"].sum() == pytest.approx(
+        per_row["P(zero from zeros part)"].sum(), rel=1e-10)
+    assert (by_site["5%"] <= by_site["expected extra zeros"]).all()
+    assert ((by_site["share extra"] > 0) & (by_site["share extra"] <= 1)).all()
+
+
+def test_zero_sources_say_where_zeros_come_from_without_inflation(hurdle_groups, zip_poisson):
+    hurdle = hurdle_groups.zero_sources()
+    assert (hurdle["P(zero from zeros part)"] == 1.0).all()
+    assert hurdle["note"].iloc[0].startswith("hurdle: every zero comes from the zeros part")
+    assert "site" in hurdle.columns
+    by_site = hurdle_groups.zero_sources(by="site")
+    np.testing.assert_array_equal(by_site["expected extra zeros"], by_site["observed zeros"])
+    plain = zip_poisson.zero_sources()
+    assert (plain["P(zero from zeros part)"] == 0.0).all()
+    assert plain.attrs["message"].startswith("no zeros part")
+
+
+# ------------------------------------------------------------------------- figures
+
+
+def test_figures_are_built_and_labelled(zip_sites, hurdle_groups):
+    fig = zip_sites.rootogram()
+    text = fig.get_suptitle()
+    assert "zeros part models P(extra zero)" in text
+    assert "sqrt" in fig.axes[0].get_ylabel()
+    fig = zip_sites.zero_check_plot(by=_site_data()[0]["site"], draws=200)
+    assert isinstance(fig, Figure) and len(fig.axes) == 2
+    fig = hurdle_groups.zero_check_plot()
+    assert "P(Y = 0)" in fig.get_suptitle()
+    fig = zip_sites.replicated_statistics_plot(draws=200)
+    assert len(fig.axes) == 3
+    fig = zip_sites.residual_plots(draws=200)
+    assert len(fig.axes) == 2
+    assert "Dunn & Smyth" in fig.get_suptitle()
+
+
+# ------------------------------------------------------------------------- bad input
+
+
+def test_bad_settings_get_clear_errors(zip_zip):
+    with pytest.raises(bz.BayesziError, match="by='nope'.*columns available"):
+        zip_zip.zero_check(by="nope")
+    with pytest.raises(bz.BayesziError, match="too many to check"):
+        zip_zip.zero_check(by="x1")            # continuous: 1,500 distinct values
+    with pytest.raises(bz.BayesziError, match="one label per fitted record"):
+        zip_zip.zero_check(by=np.zeros(3))
+    with pytest.raises(bz.BayesziError, match="does not cover"):
+        zip_zip.zero_check(by=pd.Series(["a", "b"], name="g"))
+    with pytest.raises(bz.BayesziError, match="kmax"):
+        zip_zip.count_frequencies(kmax=-1)
+    with pytest.raises(bz.BayesziError, match="interval"):
+        zip_zip.count_frequencies(interval=1.5)
+    with pytest.raises(bz.BayesziError, match="draws"):
+        zip_zip.dispersion_check(draws=0)
+    with pytest.raises(bz.BayesziError, match="method"):
+        zip_zip.residuals(method="pearson")
+    with pytest.raises(bz.BayesziError, match="seed"):
+        zip_zip.max_count_check(seed="abc")
+    with pytest.raises(bz.BayesziError, match="flag"):
+        checks.zero_check(zip_zip, flag=0.7)
+
+
+# ------------------------------------------------------------------------- negative binomial
+
+
+@pytest.fixture(scope="module")
+def synthetic_zinb():
+    """The benchmark's ZINB with reach effects and a synthetic posterior (no sampling)."""
+    import os
+    import sys
+
+    sys.path.insert(0, os.path.join(os.path.dirname(__file__), os.pardir, "benchmarks"))
+    from bench_checks import synthetic_fit
+
+    return synthetic_fit(rows=600, draws=200, chains=2, seed=3)
+
+
+def test_zinb_zero_sources_and_frequencies_match_scipy(synthetic_zinb):
+    m = synthetic_zinb
+    lp = linear_predictors(m, fitted_rows(m))
+    mu, p = np.exp(lp.counts), special.expit(lp.zeros)
+    alpha = np.exp(lp.log_alpha)
+    # scipy.stats.nbinom with n = 1/alpha, prob = 1/(1 + alpha mu): variance mu + alpha mu^2
+    n_nb, prob = 1 / alpha, 1 / (1 + alpha * mu)
+    f0 = stats.nbinom.pmf(0, n_nb, prob)
+    zero = m.design.y == 0
+    # Lambert's zero-source formula with the NB zero probability in place of exp(-mu)
+    ref = (p / (p + (1 - p) * f0))[:, zero].mean(axis=0)
+    np.testing.assert_allclose(m.zero_sources()["P(zero from zeros part)"], ref, rtol=1e-9)
+    freq = checks.expected_frequency_draws(m, kmax=5).to_numpy()
+    for k in range(6):
+        want = ((1 - p) * stats.nbinom.pmf(k, n_nb, prob) + p * (k == 0)).sum(axis=1)
+        np.testing.assert_allclose(freq[:, k], want, rtol=1e-9)
+    np.testing.assert_allclose(freq.sum(axis=1), m.design.n, rtol=1e-12)
+    # by-reach zero check uses the fit's groups
+    table = m.zero_check(draws=50)
+    assert (table["group"] == "reach").sum() == len(m.design.groups[0].levels)
+
+
+def test_records_sharing_inputs_are_pooled_exactly(monkeypatch):
+    import os
+    import sys
+
+    sys.path.insert(0, os.path.join(os.path.dirname(__file__), os.pardir, "benchmarks"))
+    from bench_checks import synthetic_fit
+
+    m = synthetic_fit(rows=4000, draws=30, chains=2, seed=4, layout="discrete")
+    pooled, weight = checks._distinct_inputs(fitted_rows(m))
+    # at most 30 reaches x 3 substrates x 4 seasons x 4 trap-night values (bench_data.py;
+    # the barrier is a property of the reach)
+    assert pooled.n <= 30 * 3 * 4 * 4 and weight.sum() == m.design.n
+    fast = checks.expected_frequency_draws(m, kmax=6).to_numpy()
+    monkeypatch.setattr(checks, "_distinct_inputs",
+                        lambda rows: (rows, np.ones(rows.n)))
+    slow = checks.expected_frequency_draws(m, kmax=6).to_numpy()
+    np.testing.assert_allclose(fast, slow, rtol=1e-11)
+
+
+def test_benchmark_script_runs_small(capsys):
+    import os
+    import sys
+
+    sys.path.insert(0, os.path.join(os.path.dirname(__file__), os.pardir, "benchmarks"))
+    from bench_checks import main
+
+    main(["--rows", "300", "--draws", "100", "--repeat", "1", "--only", "frequencies"])
+    out = capsys.readouterr().out
+    assert "expected frequencies" in out and "peak MB" in out
+
+
+# ------------------------------------------------------------------------- heavier
+
+
+@pytest.mark.slow
+def test_grouped_zip_fit_passes_its_own_checks(cached_fit):
+    df, _ = simulate("zip", n=1500, seed=15, n_sites=20, site_sd=(0.3, 0.8))
+    m = cached_fit("checks-zip-groups", lambda: bz.fit(
+        df, counts="y ~ x1 + x2", zeros="~ w", family="zip", exposure="exposure",
+        groups="site", **SMALL))
+    table = m.zero_check()
+    assert 0.05 < table.iloc[0]["tail prob"] < 0.95
+    sites = table[table["group"] == "site"]
+    assert len(sites) == 20
+    # correct model: each site's tail probability is outside (0.01, 0.99) with chance at most
+    # 0.02 (Meng 1994), so three or more such sites out of 20 would happen < 1% of the time
+    extreme = ((sites["tail prob"] < 0.01) | (sites["tail prob"] > 0.99)).sum()
+    assert extreme <= 2
+    res = m.residuals(seed=2)
+    assert stats.kstest(res["residual"], "norm").pvalue > 0.01
+    by_site = m.zero_sources(by="site")
+    assert len(by_site) == 20
