@@ -228,12 +228,77 @@ def _part(part: str, rhs: str, data: pd.DataFrame) -> PartDesign:
     return PartDesign(part, rhs, terms, X, center, scale, intercept, mm.model_spec)
 
 
+def _label_strings(s: pd.Series) -> pd.Series:
+    """Group labels as text; whole-number floats lose their ``.0`` so that a column read as
+    integers when fitting and as floats later (say after a merge) gives the same labels."""
+    if pd.api.types.is_float_dtype(s):
+        v = s.to_numpy(dtype=float)
+        if np.all(np.isfinite(v)) and np.all(v == np.round(v)):
+            return pd.Series(v.astype(np.int64), index=s.index).astype(str)
+    return s.astype(str)
+
+
 def _group_labels(data: pd.DataFrame, name: str, nested: dict[str, str]) -> list[str]:
-    labels = data[name].astype(str)
+    """Labels of grouping column ``name``; a nested group's are ``outer/inner``, so that
+    reach "R1" of one river and reach "R1" of another are two groups."""
+    labels = _label_strings(data[name])
     outer = nested.get(name)
     if outer is not None:
-        labels = data[outer].astype(str) + "/" + labels
+        labels = _label_strings(data[outer]) + "/" + labels
     return list(labels)
+
+
+def _level_order(levels: set[str]) -> list[str]:
+    """Sorted levels: numerically when every label is a number (2 before 10), else as text."""
+    try:
+        return sorted(levels, key=float)
+    except ValueError:
+        return sorted(levels)
+
+
+def _check_group_labels(data: pd.DataFrame, columns: list[str]) -> None:
+    """Refuse missing or blank labels in grouping (and nesting) columns, saying what it means."""
+    for c in columns:
+        s = data[c]
+        bad = s.isna().to_numpy()
+        if not pd.api.types.is_numeric_dtype(s):
+            bad = bad | (s.astype(str).str.strip() == "").to_numpy()
+        if bad.any():
+            raise BayesziError(
+                f"grouping column {c!r} has {int(bad.sum())} missing or blank label(s), first at "
+                f"row(s) {V._rows(data.index, bad)}; a record without a group cannot share in its "
+                "group's effect. Drop those rows, or give them a label of their own (e.g. "
+                "'unknown'), which the model then treats as one more group"
+            )
+
+
+def _check_group_roles(spec: ModelSpec, data: pd.DataFrame, c_vars: list[str],
+                       z_vars: list[str], has_zeros: bool) -> None:
+    """Settings that contradict each other: a grouping column that is also a categorical
+    predictor, correlated intercepts without a zeros part, a varying intercept."""
+    for rhs, variables, part in ((spec.counts_rhs, c_vars, "counts"),
+                                 (spec.zeros_rhs, z_vars, "zeros")):
+        both = _categorical_vars(rhs, data, [v for v in variables if v in spec.groups])
+        if both:
+            raise BayesziError(
+                f"column {both[0]!r} is both a grouping column and a categorical predictor of "
+                f"the {part} formula: each level's effect would be estimated twice, once freely "
+                "and once pooled, and neither is identified. Remove it from the formula (the "
+                "group effects already give each level its own intercept) or from groups"
+            )
+    if spec.correlated and not has_zeros:
+        raise BayesziError(
+            f"correlated=True links each group's counts and zeros intercepts, but family "
+            f"{spec.family!r} has no zeros part; drop correlated=True or choose a family with "
+            "one (zip, zinb, hurdle-poisson, hurdle-negbin)"
+        )
+    for part, terms in spec.varying.items():
+        if "Intercept" in terms:
+            raise BayesziError(
+                f"varying[{part!r}] lists 'Intercept'; every group already has its own "
+                "intercept in both parts. List only slope terms, e.g. varying={'counts': "
+                "['depth']}"
+            )
 
 
 def build_design(data: pd.DataFrame, spec: ModelSpec) -> Design:
@@ -254,6 +319,7 @@ def build_design(data: pd.DataFrame, spec: ModelSpec) -> Design:
     V.check_columns(data, extra, role="exposure" if spec.exposure else "offset")
     nest_outer = [spec.nested[g] for g in spec.groups if g in spec.nested]
     V.check_columns(data, list(spec.groups) + nest_outer, role="groups")
+    _check_group_labels(data, list(dict.fromkeys([*spec.groups, *nest_outer])))
     used = list(dict.fromkeys([spec.response, *c_vars, *z_vars, *extra,
                                *spec.groups, *nest_outer]))
     V.check_finite(data, used, role="used by the model")
@@ -271,7 +337,9 @@ def build_design(data: pd.DataFrame, spec: ModelSpec) -> Design:
     for rhs, variables in ((spec.counts_rhs, c_vars), (spec.zeros_rhs, z_vars)):
         for v in _categorical_vars(rhs, data, variables):
             levels[v] = sorted(set(data[v].astype(str)))
+    _check_group_roles(spec, data, c_vars, z_vars, fam.zeros_kind is not None)
     groups = [_group(data, g, spec.nested) for g in spec.groups]
+    _check_distinct_groups(groups)
     for part, terms in spec.varying.items():
         pd_ = counts if part == "counts" else zeros
         if pd_ is None:
@@ -283,13 +351,17 @@ def build_design(data: pd.DataFrame, spec: ModelSpec) -> Design:
                 f"varying slope term(s) {missing} are not columns of the {part} design; "
                 f"available: {pd_.terms}"
             )
+    for part, terms in spec.varying.items():
+        _check_slopes_vary(counts if part == "counts" else zeros, terms, groups)
     return Design(spec, len(data), y, log_offset, counts, zeros, groups, levels, used,
                   data.index)
 
 
 def _group(data: pd.DataFrame, name: str, nested: dict[str, str]) -> GroupDesign:
+    """Codes of grouping column ``name``, with warnings about groups too few or too small to
+    say much on their own."""
     labels = _group_labels(data, name, nested)
-    levels = sorted(set(labels))
+    levels = _level_order(set(labels))
     lookup = {lv: i for i, lv in enumerate(levels)}
     codes = np.array([lookup[lv] for lv in labels], dtype=np.int64)
     per = np.bincount(codes, minlength=len(levels))
@@ -300,17 +372,61 @@ def _group(data: pd.DataFrame, name: str, nested: dict[str, str]) -> GroupDesign
         )
     if len(levels) < 5:
         warnings.warn(
-            f"grouping column {name!r} has only {len(levels)} levels; the spread of its effects "
-            "is poorly determined and leans on its prior",
+            f"grouping column {name!r} has only {len(levels)} levels; the spread (sd) of its "
+            "effects is poorly determined by so few groups and leans on its prior, and "
+            "predictions for a new group are correspondingly uncertain",
             V.BayesziWarning,
             stacklevel=3,
         )
-    singles = int(np.sum(per == 1))
-    if singles:
+    singles = np.flatnonzero(per == 1)
+    if singles.size:
+        shown = [levels[i] for i in singles[:5]]
         warnings.warn(
-            f"grouping column {name!r} has {singles} level(s) with a single record; their "
-            "effects are shrunk strongly toward the average and say little about those groups",
+            f"grouping column {name!r} has {singles.size} level(s) with a single record (e.g. "
+            f"{shown}); their effects are shrunk strongly toward the typical group and say "
+            "little about those groups themselves. This is not an error: the pooling is the "
+            "honest answer for so little data",
             V.BayesziWarning,
             stacklevel=3,
         )
     return GroupDesign(name, levels, codes, per)
+
+
+def _same_partition(a: np.ndarray, b: np.ndarray) -> bool:
+    pairs = np.unique(np.stack([a, b]), axis=1)
+    return pairs.shape[1] == len(np.unique(a)) == len(np.unique(b))
+
+
+def _check_distinct_groups(groups: list[GroupDesign]) -> None:
+    """Two grouping columns that split the records the same way cannot be told apart."""
+    for i, g in enumerate(groups):
+        for h in groups[i + 1:]:
+            if _same_partition(g.codes, h.codes):
+                raise BayesziError(
+                    f"grouping columns {g.name!r} and {h.name!r} split the records into the "
+                    "same groups, so their effects cannot be told apart (only their sum is "
+                    "identified). Keep one of them in groups"
+                )
+
+
+def _check_slopes_vary(pdes: PartDesign | None, terms: tuple[str, ...],
+                       groups: list[GroupDesign]) -> None:
+    """Warn when a varying-slope term never changes within a group."""
+    if pdes is None:
+        return
+    for t in terms:
+        x = pdes.X[:, pdes.terms.index(t)]
+        for g in groups:
+            lo = np.full(len(g.levels), np.inf)
+            hi = np.full(len(g.levels), -np.inf)
+            np.minimum.at(lo, g.codes, x)
+            np.maximum.at(hi, g.codes, x)
+            if np.all(hi - lo <= 1e-12 * max(1.0, float(np.abs(x).max()))):
+                warnings.warn(
+                    f"term {t!r} of the {pdes.part} part has one value within each level of "
+                    f"{g.name!r}, so a slope varying by {g.name} cannot be told apart from each "
+                    f"{g.name}'s own intercept; its sd will show mostly its prior. Drop {t!r} "
+                    "from varying (a group-level predictor needs no varying slope)",
+                    V.BayesziWarning,
+                    stacklevel=3,
+                )

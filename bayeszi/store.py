@@ -58,12 +58,15 @@ def _frame_to_dataset(df: pd.DataFrame) -> tuple[xr.Dataset, dict[str, str]]:
             kinds[c] = "str"
             data_vars[c] = ("obs", s.astype(str).to_numpy(dtype=object))
     data_vars["__row_label__"] = ("obs", np.array([str(i) for i in df.index], dtype=object))
+    kinds["__index__"] = "int" if pd.api.types.is_integer_dtype(df.index) else "str"
     return xr.Dataset(data_vars), kinds
 
 
 def _dataset_to_frame(ds: xr.Dataset, kinds: dict[str, str]) -> pd.DataFrame:
     cols = {}
     for c, kind in kinds.items():
+        if c == "__index__":
+            continue
         v = ds[c].values
         if kind == "bool":
             cols[c] = v.astype(bool)
@@ -130,7 +133,9 @@ def load(path: str) -> FittedModel:
         )
     const = groups.pop("constant_data")
     data = _dataset_to_frame(const, meta["column_kinds"])
-    data.index = pd.Index(const["__row_label__"].values.astype(str))
+    labels = const["__row_label__"].values.astype(str)
+    int_index = meta["column_kinds"].get("__index__") == "int"
+    data.index = pd.Index(labels.astype(np.int64) if int_index else labels)
     idata = az.InferenceData(**groups)
     idata.posterior.attrs.pop("bayeszi", None)
     spec = ModelSpec.from_dict(meta["spec"])
