@@ -24,8 +24,9 @@ import numpy as np
 import pymc as pm
 import pytensor.tensor as pt
 
-from bayeszi.design import Design, PartDesign
+from bayeszi.design import Design, GroupDesign, PartDesign
 from bayeszi.families import get_family
+from bayeszi.patterns import Likelihood, find_patterns, pattern_logp, pattern_random
 from bayeszi.priors import Prior, PriorSet
 
 
@@ -45,14 +46,6 @@ def _dist(name: str, p: Prior, dims: str | tuple[str, ...] | None = None,
     return pm.HalfStudentT(name, sigma=p.a, nu=p.b, **kw)
 
 
-def _sd_dist(p: Prior):
-    if p.dist == "halfnormal":
-        return pm.HalfNormal.dist(sigma=p.a)
-    if p.dist == "exponential":
-        return pm.Exponential.dist(lam=p.a)
-    return pm.HalfStudentT.dist(sigma=p.a, nu=p.b)
-
-
 def _coefficients(part: str, pdes: PartDesign, priors: dict[str, Prior]):
     name = f"{part}_std_coef"
     dims = f"{part}_term"
@@ -64,6 +57,72 @@ def _coefficients(part: str, pdes: PartDesign, priors: dict[str, Prior]):
     # Mixed families of priors: one raw variable per term, stacked.
     raws = [_dist(f"{part}_std_coef_{j}", p) for j, p in enumerate(plist)]
     return pm.Deterministic(name, pt.stack(raws), dims=dims)
+
+
+def _correlated_intercepts(g: GroupDesign, priors: PriorSet):
+    """Counts and zeros intercepts of group ``g`` with correlation ``corr_{g}`` (non-centred).
+
+    Each part keeps its own sd prior. For a 2 x 2 correlation matrix the LKJ(eta) density,
+    proportional to det(R)^(eta - 1) = (1 - rho^2)^(eta - 1), is exactly a Beta(eta, eta)
+    density for (rho + 1) / 2, so rho is sampled that way (``z_corr_{g}``, a raw variable
+    like the z's). The effects are ``sd_c z_c`` and ``sd_z (rho z_c + sqrt(1 - rho^2) z_z)``
+    with independent standard normal z's: correlation rho, sds sd_c and sd_z.
+    """
+    sd_c = _dist(f"counts_sd_{g.name}", priors.group_sd["counts"])
+    sd_z = _dist(f"zeros_sd_{g.name}", priors.group_sd["zeros"])
+    half = pm.Beta(f"z_corr_{g.name}", alpha=priors.lkj_eta, beta=priors.lkj_eta)
+    rho = pm.Deterministic(f"corr_{g.name}", 2.0 * half - 1.0)
+    zc = pm.Normal(f"counts_z_{g.name}", 0.0, 1.0, dims=g.name)
+    zz = pm.Normal(f"zeros_z_{g.name}", 0.0, 1.0, dims=g.name)
+    ec = pm.Deterministic(f"counts_effect_{g.name}", sd_c * zc, dims=g.name)
+    ez = pm.Deterministic(f"zeros_effect_{g.name}",
+                          sd_z * (rho * zc + pt.sqrt(1.0 - rho**2) * zz), dims=g.name)
+    return ec, ez
+
+
+def _slopes(part: str, pdes: PartDesign, terms: tuple[str, ...], g: GroupDesign,
+            prior: Prior, codes):
+    """Group deviations of the slopes of ``terms`` (internal scale, non-centred): the part's
+    linear predictor gains ``sum_t slope[group, t] * x_std[:, t]``."""
+    idx = [pdes.terms.index(t) for t in terms]
+    Xs = pt.as_tensor_variable(pdes.X_std[:, idx])
+    dims = (g.name, f"{part}_slope_term")
+    sd = _dist(f"{part}_slope_sd_{g.name}", prior, dims=f"{part}_slope_term")
+    z = pm.Normal(f"{part}_slope_z_{g.name}", 0.0, 1.0, dims=dims)
+    slope = pm.Deterministic(f"{part}_slope_{g.name}", z * sd, dims=dims)
+    return pt.sum(slope[codes] * Xs, axis=1)
+
+
+def _group_terms(design: Design, priors: PriorSet, g: GroupDesign, eta_c, eta_z):
+    """Add group ``g``'s intercepts (both parts) and varying slopes to the linear predictors.
+
+    Non-centred throughout: effect = sd * z with z ~ Normal(0, 1), which samples well when a
+    group holds few records (the usual case); ``{part}_effect_{g}`` are the effects.
+    """
+    spec = design.spec
+    codes = pt.as_tensor_variable(g.codes)
+    parts = ["counts"] + (["zeros"] if design.zeros is not None else [])
+    if spec.correlated and design.zeros is not None:
+        ec, ez = _correlated_intercepts(g, priors)
+        eta_c = eta_c + ec[codes]
+        eta_z = eta_z + ez[codes]
+    else:
+        for part in parts:
+            sd = _dist(f"{part}_sd_{g.name}", priors.group_sd[part])
+            z = pm.Normal(f"{part}_z_{g.name}", 0.0, 1.0, dims=g.name)
+            eff = pm.Deterministic(f"{part}_effect_{g.name}", sd * z, dims=g.name)
+            if part == "counts":
+                eta_c = eta_c + eff[codes]
+            else:
+                eta_z = eta_z + eff[codes]
+    for part, terms in spec.varying.items():
+        pdes = design.counts if part == "counts" else design.zeros
+        contrib = _slopes(part, pdes, terms, g, priors.group_sd[part], codes)
+        if part == "counts":
+            eta_c = eta_c + contrib
+        else:
+            eta_z = eta_z + contrib
+    return eta_c, eta_z
 
 
 def build_model(design: Design, priors: PriorSet) -> pm.Model:
@@ -78,6 +137,10 @@ def build_model(design: Design, priors: PriorSet) -> pm.Model:
         coords[g.name] = g.levels
     for part, terms in spec.varying.items():
         coords[f"{part}_slope_term"] = list(terms)
+    # Everything below works on patterns of identical records (see bayeszi/patterns.py):
+    # one row per distinct record when records repeat, else one per record, zeros first.
+    patterns = find_patterns(design)
+    design = patterns.design
 
     with pm.Model(coords=coords) as model:
         Xc = pt.as_tensor_variable(design.counts.X_std)
@@ -88,51 +151,8 @@ def build_model(design: Design, priors: PriorSet) -> pm.Model:
             Xz = pt.as_tensor_variable(design.zeros.X_std)
             bz = _coefficients("zeros", design.zeros, priors.zeros)
             eta_z = pt.dot(Xz, bz)
-        parts = ["counts"] + (["zeros"] if design.zeros is not None else [])
         for g in design.groups:
-            codes = pt.as_tensor_variable(g.codes)
-            if spec.correlated and design.zeros is not None:
-                if all(priors.group_sd[p].dist == "halfnormal" for p in parts):
-                    sd_dist = pm.HalfNormal.dist(sigma=np.array(
-                        [priors.group_sd["counts"].a, priors.group_sd["zeros"].a]), shape=2)
-                else:  # mixed kinds of sd prior: the counts one serves both
-                    sd_dist = _sd_dist(priors.group_sd["counts"])
-                chol, corr, sds = pm.LKJCholeskyCov(
-                    f"{g.name}_chol", n=2, eta=priors.lkj_eta, sd_dist=sd_dist,
-                    compute_corr=True)
-                pm.Deterministic(f"counts_sd_{g.name}", sds[0])
-                pm.Deterministic(f"zeros_sd_{g.name}", sds[1])
-                pm.Deterministic(f"corr_{g.name}", corr[0, 1])
-                z = pm.Normal(f"z_{g.name}", 0.0, 1.0, shape=(len(g.levels), 2))
-                eff = pt.dot(z, chol.T)
-                ec = pm.Deterministic(f"counts_effect_{g.name}", eff[:, 0], dims=g.name)
-                ez = pm.Deterministic(f"zeros_effect_{g.name}", eff[:, 1], dims=g.name)
-                eta_c = eta_c + ec[codes]
-                eta_z = eta_z + ez[codes]
-            else:
-                for part in parts:
-                    sd = _dist(f"{part}_sd_{g.name}", priors.group_sd[part])
-                    z = pm.Normal(f"{part}_z_{g.name}", 0.0, 1.0, dims=g.name)
-                    eff = pm.Deterministic(f"{part}_effect_{g.name}", sd * z, dims=g.name)
-                    if part == "counts":
-                        eta_c = eta_c + eff[codes]
-                    else:
-                        eta_z = eta_z + eff[codes]
-            for part, terms in spec.varying.items():
-                pdes = design.counts if part == "counts" else design.zeros
-                idx = [pdes.terms.index(t) for t in terms]
-                Xs = pt.as_tensor_variable(pdes.X_std[:, idx])
-                base = priors.group_sd[part]
-                sd = _dist(f"{part}_slope_sd_{g.name}", base, dims=f"{part}_slope_term")
-                z = pm.Normal(f"{part}_slope_z_{g.name}", 0.0, 1.0,
-                              dims=(g.name, f"{part}_slope_term"))
-                slope = pm.Deterministic(f"{part}_slope_{g.name}", z * sd,
-                                         dims=(g.name, f"{part}_slope_term"))
-                contrib = pt.sum(slope[codes] * Xs, axis=1)
-                if part == "counts":
-                    eta_c = eta_c + contrib
-                else:
-                    eta_z = eta_z + contrib
+            eta_c, eta_z = _group_terms(design, priors, g, eta_c, eta_z)
         if fam.has_dispersion:
             sqrt_alpha = _dist("dispersion_sqrt", priors.dispersion)
             log_alpha = 2.0 * pt.log(sqrt_alpha)
@@ -140,9 +160,13 @@ def build_model(design: Design, priors: PriorSet) -> pm.Model:
         else:
             log_alpha = pt.as_tensor_variable(np.zeros(1))
 
-        def _random(ec, ez, la, rng=None, size=None):
-            return fam.random(rng, ec, ez, la, size=size)
-
-        pm.CustomDist("y", eta_c, eta_z, log_alpha, logp=fam.logp, random=_random,
-                      observed=design.y, dims="obs", dtype="int64")
+        # ---- likelihood: per pattern, one value per original record (bayeszi/patterns.py)
+        # The density sums each pattern once, weighted by its records; the pointwise
+        # log-likelihood per record is computed after sampling (bayeszi.sample.run_nuts).
+        pm.CustomDist("y", eta_c, eta_z, log_alpha,
+                      logp=pattern_logp(fam.name, patterns),
+                      random=pattern_random(fam.name, patterns),
+                      observed=design.y[patterns.inverse], dims="obs", dtype="int64")
+    model.bayeszi_likelihood = Likelihood(  # type: ignore[attr-defined]
+        fam.name, patterns, eta_c, eta_z, log_alpha)
     return model

@@ -134,16 +134,276 @@ class FittedModel:
         return format_fit(self)
 
     # ------------------------------------------------------------------ groups (groups issue)
-    # (group-level methods go here)
+    def group_effects(self, interval: float = 0.9, part: str | None = None,
+                      group: str | None = None) -> pd.DataFrame:
+        """Each group level's effect, per part, with intervals, exp scale and pooling factor.
+
+        See :func:`bayeszi.groups.group_effects` for the columns.
+
+        Example
+        -------
+        >>> m.group_effects(part="counts").loc["reach"]   # doctest: +SKIP
+        """
+        from bayeszi.groups import group_effects
+
+        return group_effects(self, interval=interval, part=part, group=group)
+
+    def pooling_summary(self, interval: float = 0.9) -> pd.DataFrame:
+        """How spread out each batch of group effects is and how strongly it is pooled.
+
+        See :func:`bayeszi.groups.pooling_summary`.
+
+        Example
+        -------
+        >>> m.pooling_summary()[["sd", "pooling"]]   # doctest: +SKIP
+        """
+        from bayeszi.groups import pooling_summary
+
+        return pooling_summary(self, interval=interval)
 
     # ------------------------------------------------------------------ checks (checks.py)
-    # (posterior predictive check methods go here)
+    # (posterior predictive check methods go here; the work is done in bayeszi/checks.py
+    # and the figures in bayeszi/checkplots.py)
+    def zero_check(self, by: str | list | pd.Series | None = None, interval: float = 0.9,
+                   draws: int | None = None, seed: int | None = 0) -> pd.DataFrame:
+        """Observed share of zeros against replicated data, overall and per group.
+
+        ``by=None`` checks the fit's grouping columns; name a column the model uses, pass
+        labels as a Series of the fitted data frame (``by=df["site"]``), or ``by=[]`` for
+        the overall row only. See :func:`bayeszi.checks.zero_check`.
+
+        Example
+        -------
+        >>> m.zero_check(by="reach")                              # doctest: +SKIP
+        """
+        from bayeszi.checks import zero_check
+
+        return zero_check(self, by=by, interval=interval, draws=draws, seed=seed)
+
+    def zero_check_plot(self, by: str | list | pd.Series | None = None, interval: float = 0.9,
+                        draws: int | None = None, seed: int | None = 0):
+        """Figure of :meth:`zero_check`: replicated zero share and the levels of one group.
+
+        Example
+        -------
+        >>> m.zero_check_plot(by="reach").savefig("zeros.png")    # doctest: +SKIP
+        """
+        from bayeszi.checkplots import zero_check_figure
+
+        return zero_check_figure(self.zero_check(by=by, interval=interval, draws=draws,
+                                                 seed=seed))
+
+    def count_frequencies(self, kmax: int | None = None, interval: float = 0.9,
+                          draws: int | None = None) -> pd.DataFrame:
+        """Observed against expected number of records with each count 0..K and K+1 or more.
+
+        See :func:`bayeszi.checks.count_frequencies`.
+
+        Example
+        -------
+        >>> m.count_frequencies().loc["0", ["observed", "expected"]]   # doctest: +SKIP
+        """
+        from bayeszi.checks import count_frequencies
+
+        return count_frequencies(self, kmax=kmax, interval=interval, draws=draws)
+
+    def rootogram(self, kmax: int | None = None, interval: float = 0.9,
+                  draws: int | None = None, ax: Any = None):
+        """Hanging rootogram (Tukey 1977) of :meth:`count_frequencies`, as a Figure.
+
+        Example
+        -------
+        >>> m.rootogram().savefig("rootogram.png")                # doctest: +SKIP
+        """
+        from bayeszi.checkplots import rootogram_figure
+
+        return rootogram_figure(self.count_frequencies(kmax=kmax, interval=interval,
+                                                       draws=draws), ax=ax)
+
+    def dispersion_check(self, interval: float = 0.9, draws: int | None = None,
+                         seed: int | None = 0) -> pd.DataFrame:
+        """Mean, variance and variance/mean of the data against replicated data sets.
+
+        Example
+        -------
+        >>> m.dispersion_check().loc["variance / mean"]           # doctest: +SKIP
+        """
+        from bayeszi.checks import dispersion_check
+
+        return dispersion_check(self, interval=interval, draws=draws, seed=seed)
+
+    def max_count_check(self, interval: float = 0.9, draws: int | None = None,
+                        seed: int | None = 0) -> pd.DataFrame:
+        """Largest observed count against the largest counts of replicated data sets.
+
+        Example
+        -------
+        >>> m.max_count_check()                                   # doctest: +SKIP
+        """
+        from bayeszi.checks import max_count_check
+
+        return max_count_check(self, interval=interval, draws=draws, seed=seed)
+
+    def replicated_statistics_plot(self, draws: int | None = None, seed: int | None = 0):
+        """Figure: zero share, variance/mean and largest count of replicated data sets.
+
+        Example
+        -------
+        >>> m.replicated_statistics_plot().savefig("replicated.png")   # doctest: +SKIP
+        """
+        from bayeszi.checkplots import statistics_figure
+        from bayeszi.checks import replicated_statistics
+
+        return statistics_figure(replicated_statistics(self, draws=draws, seed=seed))
+
+    def residuals(self, method: str = "posterior", seed: int | None = 0,
+                  draws: int | None = None) -> pd.DataFrame:
+        """Randomized quantile residuals (Dunn & Smyth 1996), one per fitted record.
+
+        ``method="posterior"`` or ``"loo"`` (leave-one-out, PSIS). See
+        :func:`bayeszi.checks.residuals`.
+
+        Example
+        -------
+        >>> m.residuals()["residual"].describe()                  # doctest: +SKIP
+        """
+        from bayeszi.checks import residuals
+
+        return residuals(self, method=method, seed=seed, draws=draws)
+
+    def residual_plots(self, method: str = "posterior", seed: int | None = 0,
+                       draws: int | None = None):
+        """Figure: QQ plot and residual-versus-expected plot of :meth:`residuals`.
+
+        Example
+        -------
+        >>> m.residual_plots().savefig("residuals.png")           # doctest: +SKIP
+        """
+        from bayeszi.checkplots import residual_figure
+
+        return residual_figure(self.residuals(method=method, seed=seed, draws=draws))
+
+    def zero_sources(self, by: str | list | pd.Series | None = None, interval: float = 0.9,
+                     draws: int | None = None) -> pd.DataFrame:
+        """For each observed zero (or per level of ``by``): P(it came from the zeros part).
+
+        Zero-inflated: the posterior probability of an extra zero; hurdle: 1 (all zeros come
+        from the zeros part); Poisson/negbin: 0. See :func:`bayeszi.checks.zero_sources`.
+
+        Example
+        -------
+        >>> m.zero_sources(by="reach")                            # doctest: +SKIP
+        """
+        from bayeszi.checks import zero_sources
+
+        return zero_sources(self, by=by, interval=interval, draws=draws)
 
     # ------------------------------------------------------------------ LOO (compare.py)
-    # (LOO methods go here)
+    def loo(self, exact_refits: bool = False, k_threshold: float = 0.7, max_refits: int = 20,
+            refit_settings: dict[str, Any] | None = None) -> Any:
+        """Expected log predictive density by PSIS-LOO, with each row's Pareto k.
+
+        Rows with k above ``k_threshold`` (0.7, Vehtari et al. 2024) are named in a warning;
+        ``exact_refits=True`` refits the model without each of them (at most ``max_refits``)
+        and uses the exact leave-one-out value. Returns a
+        :class:`bayeszi.compare.LooEstimate` (``.elpd``, ``.se``, ``.p_loo``,
+        ``.pointwise``, ``.k_counts()``). See :func:`bayeszi.compare.loo`.
+
+        Example
+        -------
+        >>> est = fitted.loo()                                   # doctest: +SKIP
+        >>> round(est.elpd), est.k_counts()                      # doctest: +SKIP
+        """
+        from bayeszi.compare import loo
+
+        return loo(self, exact_refits=exact_refits, k_threshold=k_threshold,
+                   max_refits=max_refits, refit_settings=refit_settings)
 
     # ------------------------------------------------------------------ predictions (predict.py)
-    # (prediction and contrast methods go here)
+    def predict(self, data: pd.DataFrame | None = None, what: str | list[str] = "mean",
+                groups: str = "known", interval: float = 0.9, *, k: int | None = None,
+                exposure: float | None = None, n_average: int = 30,
+                draws: int | None = None, seed: int | None = None) -> pd.DataFrame:
+        """Posterior mean, sd and interval of a quantity per row (see docs/predict.md).
+
+        ``what``: mean, rate, p_zero, p_zeros_part, p_nonzero, count_part_mean, at_least
+        (with ``k``), new_count, or a list. ``groups``: known, new, average or typical.
+
+        Example
+        -------
+        >>> m.predict(new_df, what="rate", groups="new", exposure=1, seed=1)  # doctest: +SKIP
+        """
+        from bayeszi.predict import predict
+
+        return predict(self, data, what, groups, interval, k=k, exposure=exposure,
+                       n_average=n_average, draws=draws, seed=seed)
+
+    def prediction_draws(self, data: pd.DataFrame | None = None, what: str = "mean",
+                         groups: str = "known", *, k: int | None = None,
+                         exposure: float | None = None, n_average: int = 30,
+                         draws: int | None = None, seed: int | None = None) -> Any:
+        """The draws behind :meth:`predict` as an xarray.DataArray (draw x row).
+
+        Example
+        -------
+        >>> m.prediction_draws(new_df, what="new_count", groups="new", seed=1)  # doctest: +SKIP
+        """
+        from bayeszi.predict import prediction_draws
+
+        return prediction_draws(self, data, what, groups, k=k, exposure=exposure,
+                                n_average=n_average, draws=draws, seed=seed)
+
+    def count_distribution(self, data: pd.DataFrame | None = None, kmax: int = 10,
+                           groups: str = "known", *, exposure: float | None = None,
+                           n_average: int = 30, draws: int | None = None,
+                           seed: int | None = None) -> pd.DataFrame:
+        """Posterior predictive P(Y = 0..kmax) and P(Y > kmax) per row.
+
+        Example
+        -------
+        >>> m.count_distribution(new_df, kmax=5)                         # doctest: +SKIP
+        """
+        from bayeszi.predict import count_distribution
+
+        return count_distribution(self, data, kmax, groups, exposure=exposure,
+                                  n_average=n_average, draws=draws, seed=seed)
+
+    def contrast(self, base: pd.DataFrame | None = None, scenario: pd.DataFrame | None = None,
+                 *, shift: dict[str, Any] | None = None, set_to: dict[str, Any] | None = None,
+                 what: str = "mean", groups: str = "known", interval: float = 0.9,
+                 combine: str | None = None, k: int | None = None,
+                 exposure: float | None = None, n_average: int = 30,
+                 draws: int | None = None, seed: int | None = None) -> pd.DataFrame:
+        """Ratio and difference of a quantity, scenario vs base, with P(ratio > 1).
+
+        Example
+        -------
+        >>> m.contrast(shift={"depth": 0.5}, what="rate", combine="mean")  # doctest: +SKIP
+        """
+        from bayeszi.contrast import contrast
+
+        return contrast(self, base, scenario, shift=shift, set_to=set_to, what=what,
+                        groups=groups, interval=interval, combine=combine, k=k,
+                        exposure=exposure, n_average=n_average, draws=draws, seed=seed)
+
+    def average_comparison(self, input: str, data: pd.DataFrame | None = None, *,
+                           what: str = "mean", groups: str = "known", interval: float = 0.9,
+                           levels: tuple[str, str] | None = None, pairs: int = 10_000,
+                           k: int | None = None, exposure: float | None = None,
+                           n_average: int = 30, draws: int | None = None,
+                           seed: int | None = None) -> pd.DataFrame:
+        """Average predictive comparison of one input (Gelman & Pardoe 2007).
+
+        Example
+        -------
+        >>> m.average_comparison("depth", what="rate")                   # doctest: +SKIP
+        """
+        from bayeszi.contrast import average_comparison
+
+        return average_comparison(self, input, data, what=what, groups=groups,
+                                  interval=interval, levels=levels, pairs=pairs, k=k,
+                                  exposure=exposure, n_average=n_average, draws=draws,
+                                  seed=seed)
 
     # ------------------------------------------------------------------ persistence
     def save(self, path: str) -> str:
