@@ -32,6 +32,8 @@ _LAZY = {
     "SamplerSettings": "bayeszi.spec",
     "BayesziWarning": "bayeszi.validate",
     "FittedModel": "bayeszi.fitted",
+    "compare": "bayeszi.comparison",
+    "fit_candidates": "bayeszi.candidates",
 }
 
 __all__ = ["BayesziError", "__version__", *sorted(_LAZY)]

@@ -118,12 +118,14 @@ class Design:
         elif self.spec.offset is not None and self.spec.offset in data.columns:
             log_offset = V.check_offset(data, self.spec.offset)
         codes: dict[str, np.ndarray] = {}
+        labels_by: dict[str, np.ndarray] = {}
         for g in self.groups:
             if g.name in data.columns:
                 labels = _group_labels(data, g.name, self.spec.nested)
                 lookup = {lv: i for i, lv in enumerate(g.levels)}
                 codes[g.name] = np.array([lookup.get(lv, -1) for lv in labels], dtype=np.int64)
-        return EncodedRows(Xc, Xz, log_offset, codes, len(data))
+                labels_by[g.name] = np.asarray(labels, dtype=object)
+        return EncodedRows(Xc, Xz, log_offset, codes, len(data), labels_by)
 
 
 @dataclass
@@ -135,6 +137,7 @@ class EncodedRows:
     log_offset: np.ndarray
     group_codes: dict[str, np.ndarray]
     n: int
+    group_labels: dict[str, np.ndarray] = field(default_factory=dict)
 
 
 def _materialize(part: PartDesign, data: pd.DataFrame) -> np.ndarray:

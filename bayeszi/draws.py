@@ -67,6 +67,21 @@ def _new_effects(fitted: FittedModel, g: str, n_new: int, rng: np.random.Generat
     return sd_c * zc, sd_z * zz
 
 
+def _new_group_ids(rows: EncodedRows, name: str) -> np.ndarray:
+    """One id per distinct group of ``name``: by code when every row has a code (callers may
+    pass their own ids as codes), else by label (unseen labels all have code -1), else each
+    row its own group (no column)."""
+    codes = rows.group_codes.get(name)
+    labels = rows.group_labels.get(name)
+    if codes is not None and (labels is None or np.all(codes >= 0)):
+        _, inv = np.unique(codes, return_inverse=True)
+    elif labels is not None:
+        _, inv = np.unique(np.asarray(labels, dtype=str), return_inverse=True)
+    else:
+        return np.arange(rows.n)
+    return inv.reshape(-1)
+
+
 def linear_predictors(fitted: FittedModel, rows: EncodedRows, groups: str = "known",
                       rng: np.random.Generator | None = None,
                       draw_index: np.ndarray | None = None) -> LinearPredictors:
@@ -111,13 +126,13 @@ def linear_predictors(fitted: FittedModel, rows: EncodedRows, groups: str = "kno
                     f"row {int(np.flatnonzero(codes < 0)[0])}; known levels: {g.levels[:20]}. "
                     "Use groups='new' to predict for new groups"
                 )
-            eff_c = take(f"counts_effect_{g.name}")[:, codes]
-            eff_z = (take(f"zeros_effect_{g.name}")[:, codes]
+            eff_c = np.take(take(f"counts_effect_{g.name}"), codes, axis=1)
+            eff_z = (np.take(take(f"zeros_effect_{g.name}"), codes, axis=1)
                      if eta_z is not None and f"zeros_effect_{g.name}" in fitted.idata.posterior
                      else None)
         else:
-            ids = codes if codes is not None else np.arange(rows.n)
-            uniq, inv = np.unique(ids, return_inverse=True)
+            inv = _new_group_ids(rows, g.name)
+            uniq = np.arange(inv.max() + 1 if inv.size else 0)
             nc, nz = _new_effects(fitted, g.name, len(uniq), rng)
             if draw_index is not None:
                 nc = nc[sel]
@@ -142,8 +157,8 @@ def linear_predictors(fitted: FittedModel, rows: EncodedRows, groups: str = "kno
                 pdes = d.counts if part == "counts" else d.zeros
                 idx = [pdes.terms.index(t) for t in terms]
                 sd = take(f"{part}_slope_sd_{g.name}")  # draws, terms
-                ids = codes if codes is not None else np.arange(rows.n)
-                uniq, inv = np.unique(ids, return_inverse=True)
+                inv = _new_group_ids(rows, g.name)
+                uniq = np.arange(inv.max() + 1 if inv.size else 0)
                 z = rng.standard_normal((sd.shape[0], len(uniq), len(idx)))
                 slope = (z * sd[:, None, :])[:, inv, :]
                 contrib = np.einsum("srt,rt->sr", slope, X_std[part][:, idx])
@@ -161,4 +176,5 @@ def fitted_rows(fitted: FittedModel) -> EncodedRows:
     """The fitted data encoded as :class:`EncodedRows` (known groups)."""
     d = fitted.design
     return EncodedRows(d.counts.X, None if d.zeros is None else d.zeros.X, d.log_offset,
-                       {g.name: g.codes for g in d.groups}, d.n)
+                       {g.name: g.codes for g in d.groups}, d.n,
+                       {g.name: np.asarray(g.levels, dtype=object)[g.codes] for g in d.groups})

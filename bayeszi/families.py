@@ -608,9 +608,10 @@ class Family:
         shape = self._shape(eta_c, eta_z, la)
         if self.zeros_kind is None:
             return _full(np.exp(eta_c), shape)
+        if self.zeros_kind == "inflation":  # product form: half the cost, same accuracy
+            return _full(np.exp(eta_c) * sc.expit(-eta_z), shape)
         log_mean = eta_c + sc.log_expit(-eta_z)
-        if self.zeros_kind == "hurdle":
-            log_mean = log_mean - _np_count_log1m_f0(eta_c, la, self.has_dispersion)[1]
+        log_mean = log_mean - _np_count_log1m_f0(eta_c, la, self.has_dispersion)[1]
         return _full(np.exp(log_mean), shape)
 
     @_array_method

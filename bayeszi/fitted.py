@@ -306,15 +306,15 @@ class FittedModel:
         Rows with k above ``k_threshold`` (0.7, Vehtari et al. 2024) are named in a warning;
         ``exact_refits=True`` refits the model without each of them (at most ``max_refits``)
         and uses the exact leave-one-out value. Returns a
-        :class:`bayeszi.compare.LooEstimate` (``.elpd``, ``.se``, ``.p_loo``,
-        ``.pointwise``, ``.k_counts()``). See :func:`bayeszi.compare.loo`.
+        :class:`bayeszi.comparison.LooEstimate` (``.elpd``, ``.se``, ``.p_loo``,
+        ``.pointwise``, ``.k_counts()``). See :func:`bayeszi.comparison.loo`.
 
         Example
         -------
         >>> est = fitted.loo()                                   # doctest: +SKIP
         >>> round(est.elpd), est.k_counts()                      # doctest: +SKIP
         """
-        from bayeszi.compare import loo
+        from bayeszi.comparison import loo
 
         return loo(self, exact_refits=exact_refits, k_threshold=k_threshold,
                    max_refits=max_refits, refit_settings=refit_settings)

@@ -42,8 +42,8 @@ from statsmodels.discrete.truncated_model import (
 
 import bayeszi as bz
 from bayeszi.candidates import _Progress, candidate_specs, fit_candidates
-from bayeszi.compare import RefitWrapper, check_same_data, compare, loo
 from bayeszi.compareplots import plot_comparison
+from bayeszi.comparison import RefitWrapper, check_same_data, compare, loo
 from bayeszi.draws import linear_predictors
 
 SMALL = {"draws": 400, "tune": 400, "chains": 2}

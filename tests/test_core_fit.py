@@ -159,3 +159,11 @@ def test_cli_exit_codes(capsys):
     assert main(["--version"]) == 0
     assert main(["no-such-command"]) == 2
     assert os.environ.get("PYTEST_CURRENT_TEST")
+
+
+def test_public_names_are_functions_after_submodule_imports():
+    import importlib
+
+    for mod in ("bayeszi.comparison", "bayeszi.candidates", "bayeszi.api"):
+        importlib.import_module(mod)
+    assert callable(bz.compare) and callable(bz.fit_candidates) and callable(bz.fit)

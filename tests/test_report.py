@@ -140,7 +140,7 @@ def test_coefficients_equal_the_api(report):
 
 
 def test_loo_table_equals_the_api(report):
-    from bayeszi.compare import compare
+    from bayeszi.comparison import compare
 
     fits = {n: _fit(report, n) for n in ("zinb-reach", "poisson")}
     api = compare(fits)

@@ -317,10 +317,10 @@ def _short_flags(d: Mapping[str, Any]) -> str:
 
 
 def section_comparison(inp: ReportInput, state: _State) -> Section | None:
-    """LOO comparison of the candidates (needs :mod:`bayeszi.compare`)."""
-    mod = optional("bayeszi.compare", "compare", "loo")
+    """LOO comparison of the candidates (needs :mod:`bayeszi.comparison`)."""
+    mod = optional("bayeszi.comparison", "compare", "loo")
     if mod is None:
-        state.left_out.append("LOO comparison (bayeszi.compare is not installed)")
+        state.left_out.append("LOO comparison (bayeszi.comparison is not installed)")
         return None
     if len(inp.fits) >= 2:
         table = _plain(_caught(state, "LOO comparison", mod.compare, dict(inp.fits)))
