@@ -22,6 +22,7 @@ from dataclasses import dataclass
 import arviz as az
 import numpy as np
 import pymc as pm
+import xarray as xr
 
 from bayeszi.spec import SamplerSettings
 from bayeszi.validate import BayesziWarning
@@ -41,35 +42,162 @@ def _cores(settings: SamplerSettings) -> int:
     return max(1, min(settings.chains, os.cpu_count() or 1))
 
 
-def run_nuts(model: pm.Model, settings: SamplerSettings) -> az.InferenceData:
-    """Sample ``model`` with NUTS; the sampler used is recorded in ``sample_stats`` attrs."""
-    progress = settings.progressbar
-    if progress is None:
-        progress = sys.stderr.isatty()
-    with model, warnings.catch_warnings():
-        # PyMC's own advice is replaced by ours (see warn_about); keep the console calm.
-        warnings.filterwarnings("ignore", message=".*recommend running at least 4 chains.*")
-        warnings.filterwarnings("ignore", category=RuntimeWarning)
-        import logging
+#: ``sampler="auto"`` uses nutpie (when installed) once a fit's work, patterns x (tune +
+#: draws) x chains, reaches this; below it PyMC's NUTS finishes first, because numba's
+#: compile takes longer than PyTensor's C compile (figures in docs/performance.md: nutpie
+#: won at 2,000 rows x 2,000 iterations x 2 chains = 8e6, lost at 400 x 300 x 2 = 2.4e5).
+NUTPIE_MIN_WORK = 2e6
 
+
+def nutpie_version() -> str | None:
+    """The installed nutpie's version, or None when it cannot be imported."""
+    try:
+        import nutpie
+    except Exception:  # not installed, or broken by a version clash: treated as absent
+        return None
+    return str(getattr(nutpie, "__version__", "unknown"))
+
+
+def choose_sampler(requested: str, work: float | None = None) -> str:
+    """``"pymc"`` or ``"nutpie"`` for a requested ``"auto"``, ``"pymc"`` or ``"nutpie"``.
+
+    ``"auto"`` takes nutpie when it is installed and ``work`` (patterns x iterations x
+    chains; None counts as large) reaches :data:`NUTPIE_MIN_WORK`, else PyMC's NUTS.
+    nutpie is optional: asked for by name but missing, it falls back to PyMC's NUTS with a
+    :class:`BayesziWarning` that says how to install it.
+
+    Example
+    -------
+    >>> choose_sampler("pymc")
+    'pymc'
+    >>> choose_sampler("auto", work=1e4)   # a small fit: PyMC starts faster
+    'pymc'
+    """
+    if requested == "pymc":
+        return "pymc"
+    if requested == "auto":
+        big = work is None or work >= NUTPIE_MIN_WORK
+        return "nutpie" if big and nutpie_version() is not None else "pymc"
+    if nutpie_version() is None:
+        warnings.warn(
+            "sampler='nutpie' was asked for but nutpie is not installed (or failed to "
+            "import); using PyMC's NUTS instead. Install it with 'pip install nutpie' or "
+            "pass sampler='pymc' to silence this warning",
+            BayesziWarning,
+            stacklevel=3,
+        )
+        return "pymc"
+    return "nutpie"
+
+
+def fit_work(model: pm.Model, settings: SamplerSettings) -> float:
+    """Patterns (or records) x (tune + draws) x chains: what :func:`choose_sampler` weighs."""
+    lik = getattr(model, "bayeszi_likelihood", None)
+    rows = lik.patterns.n_patterns if lik is not None else max(
+        [int(np.prod(np.shape(model.rvs_to_values[rv].data))) for rv in model.observed_RVs]
+        or [0])
+    return float(rows) * (settings.tune + settings.draws) * settings.chains
+
+
+def _quiet_pymc():
+    """Context that hides PyMC's own sampling chatter (our warnings replace its advice)."""
+    import contextlib
+    import logging
+
+    @contextlib.contextmanager
+    def quiet():
         log = logging.getLogger("pymc")
         level = log.level
         log.setLevel(logging.ERROR)
-        try:
-            idata = pm.sample(
-                draws=settings.draws,
-                tune=settings.tune,
-                chains=settings.chains,
-                cores=_cores(settings),
-                target_accept=settings.target_accept,
-                random_seed=settings.seed,
-                progressbar=progress,
-                idata_kwargs={"log_likelihood": True},
-                compute_convergence_checks=False,
-            )
-        finally:
-            log.setLevel(level)
-    idata.sample_stats.attrs["bayeszi_sampler"] = "pymc-nuts"
+        with warnings.catch_warnings():
+            warnings.filterwarnings("ignore", message=".*recommend running at least 4 chains.*")
+            warnings.filterwarnings("ignore", category=RuntimeWarning)
+            try:
+                yield
+            finally:
+                log.setLevel(level)
+
+    return quiet()
+
+
+def _sample_pymc(model: pm.Model, settings: SamplerSettings, progress: bool
+                 ) -> az.InferenceData:
+    with model, _quiet_pymc():
+        return pm.sample(
+            draws=settings.draws,
+            tune=settings.tune,
+            chains=settings.chains,
+            cores=_cores(settings),
+            target_accept=settings.target_accept,
+            random_seed=settings.seed,
+            progressbar=progress,
+            idata_kwargs={"log_likelihood": False},
+            compute_convergence_checks=False,
+        )
+
+
+def _sample_nutpie(model: pm.Model, settings: SamplerSettings, progress: bool
+                   ) -> az.InferenceData:
+    import nutpie
+
+    with _quiet_pymc(), warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # numba's cache notes
+        compiled = nutpie.compile_pymc_model(model)
+        idata = nutpie.sample(
+            compiled, draws=settings.draws, tune=settings.tune, chains=settings.chains,
+            cores=_cores(settings), seed=settings.seed, progress_bar=progress,
+            save_warmup=False, target_accept=settings.target_accept,
+        )
+    stats = idata.sample_stats
+    if "maxdepth_reached" in stats and "reached_max_treedepth" not in stats:
+        stats["reached_max_treedepth"] = stats["maxdepth_reached"]
+    # the observed counts, as PyMC stores them
+    obs = {}
+    for rv in model.observed_RVs:
+        dims = tuple(model.named_vars_to_dims.get(rv.name) or ())
+        obs[rv.name] = xr.DataArray(np.asarray(model.rvs_to_values[rv].data), dims=dims or None,
+                                    coords={d: list(model.coords[d]) for d in dims})
+    idata.add_groups(observed_data=xr.Dataset(obs))
+    return idata
+
+
+def _add_log_likelihood(model: pm.Model, idata: az.InferenceData) -> None:
+    """Store the pointwise log-likelihood, one value per original record, for LOO."""
+    if hasattr(model, "bayeszi_likelihood"):
+        from bayeszi.patterns import row_log_likelihood
+
+        post = idata.posterior
+        ll = row_log_likelihood(model, post)
+        obs = model.coords["obs"]
+        ds = xr.Dataset({"y": (("chain", "draw", "obs"), ll)},
+                        coords={"chain": post["chain"].values, "draw": post["draw"].values,
+                                "obs": list(obs)})
+        idata.add_groups(log_likelihood=ds)
+    else:  # a model not built by bayeszi: PyMC's own pointwise densities
+        with model, _quiet_pymc():
+            pm.compute_log_likelihood(idata, progressbar=False)
+
+
+def run_nuts(model: pm.Model, settings: SamplerSettings) -> az.InferenceData:
+    """Sample ``model`` with NUTS; the sampler used is recorded in ``sample_stats`` attrs.
+
+    ``settings.sampler`` picks PyMC's NUTS (``"pymc"``), nutpie (``"nutpie"``, optional:
+    falls back to PyMC with a warning when missing) or the measured default (``"auto"``,
+    see :func:`choose_sampler`).
+    The attribute ``bayeszi_sampler`` reads ``"pymc-nuts"`` or ``"nutpie-<version>"``.
+    """
+    progress = settings.progressbar
+    if progress is None:
+        progress = sys.stderr.isatty()
+    name = choose_sampler(settings.sampler, fit_work(model, settings))
+    if name == "nutpie":
+        idata = _sample_nutpie(model, settings, bool(progress))
+        label = f"nutpie-{nutpie_version()}"
+    else:
+        idata = _sample_pymc(model, settings, bool(progress))
+        label = "pymc-nuts"
+    _add_log_likelihood(model, idata)
+    idata.sample_stats.attrs["bayeszi_sampler"] = label
     return idata
 
 
