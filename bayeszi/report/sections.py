@@ -362,8 +362,10 @@ def section_coefficients(inp: ReportInput, state: _State) -> Section:
         zl = _zeros_label(f.spec.family)
         blocks.append(Figure(f"ratios_{name}", F.ratio_intervals(
             table, f"Model {name}: effects on the exp scale", zl),
-            f"Model {name}: rate ratios (counts part) and odds ratios of {zl} (zeros part) "
-            f"with {inp.interval:.0%} intervals; 1 means no effect."))
+            (f"Model {name}: rate ratios (counts part) and odds ratios of {zl} (zeros part) "
+             if f.design.zeros is not None else
+             f"Model {name}: rate ratios (counts part; this family has no zeros part) ")
+            + f"with {inp.interval:.0%} intervals; 1 means no effect."))
     return Section("coefficients", "Coefficients: rate ratios and odds ratios", blocks)
 
 
