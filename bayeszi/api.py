@@ -12,6 +12,9 @@ Example
 
 from __future__ import annotations
 
+import contextlib
+import signal
+import threading
 import time
 import warnings
 from collections.abc import Mapping, Sequence
@@ -47,14 +50,11 @@ def make_spec(counts: str, zeros: str | None = "~ 1", family: str = "zinb",
         text = ", ".join(f"{b!r}" + (f" (did you mean {h[0]!r}?)" if h else "")
                          for b, h in hints.items())
         raise BayesziError(f"unknown setting(s) {text}; known: {sorted(known)}")
-    if isinstance(groups, str):
-        groups = (groups,)
+    # ModelSpec checks and normalises every argument (types included), naming the bad one
     return ModelSpec(
         counts=counts, zeros="~ 1" if zeros is None else zeros, family=family,
-        exposure=exposure, offset=offset, groups=tuple(groups or ()),
-        varying={k: tuple([v] if isinstance(v, str) else v) for k, v in (varying or {}).items()},
-        nested=dict(nested or {}), correlated=correlated, priors=dict(priors or {}),
-        sampler=SamplerSettings(**sampler),
+        exposure=exposure, offset=offset, groups=groups, varying=varying, nested=nested,
+        correlated=correlated, priors=priors, sampler=SamplerSettings(**sampler),
     )
 
 
@@ -113,7 +113,10 @@ def fit(data: pd.DataFrame, counts: str, zeros: str | None = "~ 1", family: str 
 
 def fit_spec(data: pd.DataFrame, spec: ModelSpec, prior_draws: int = 0) -> FittedModel:
     """Fit a ready :class:`ModelSpec` to ``data`` (see :func:`fit`)."""
-    if not isinstance(prior_draws, int) or prior_draws < 0:
+    if not isinstance(spec, ModelSpec):
+        raise BayesziError(f"fit_spec() needs a ModelSpec (see bayeszi.make_spec), got "
+                           f"{type(spec).__name__}")
+    if isinstance(prior_draws, bool) or not isinstance(prior_draws, int) or prior_draws < 0:
         raise BayesziError(f"prior_draws must be a non-negative whole number, got "
                            f"{prior_draws!r}")
     t0 = time.perf_counter()
@@ -121,12 +124,7 @@ def fit_spec(data: pd.DataFrame, spec: ModelSpec, prior_draws: int = 0) -> Fitte
     priors = resolve(design, spec.priors)
     model = build_model(design, priors)
     t1 = time.perf_counter()
-    try:
-        idata = run_nuts(model, spec.sampler)
-    except KeyboardInterrupt:
-        raise KeyboardInterrupt(
-            "sampling interrupted: nothing was kept or written; rerun fit() to start again"
-        ) from None
+    idata = _sample_or_interrupt(model, spec.sampler)
     t2 = time.perf_counter()
     add_user_scale(idata, design)
     if prior_draws:
@@ -141,6 +139,64 @@ def fit_spec(data: pd.DataFrame, spec: ModelSpec, prior_draws: int = 0) -> Fitte
     fitted._diag = diag
     warn_about(diag)
     return fitted
+
+
+INTERRUPTED = "sampling interrupted: nothing was kept or written; rerun fit() to start again"
+
+
+@contextlib.contextmanager
+def _watch_interrupts():
+    """Record Ctrl-C (SIGINT) while the block runs, then behave as before.
+
+    PyMC catches the KeyboardInterrupt of a Ctrl-C during sampling and returns the draws made
+    so far; the flag lets :func:`fit_spec` refuse such a truncated result instead of handing
+    it on as a fit. Outside the main thread signals cannot be watched: the flag stays unset.
+    """
+    hits: list[int] = []
+    if threading.current_thread() is not threading.main_thread():
+        yield hits
+        return
+    previous = signal.getsignal(signal.SIGINT)
+    if previous is signal.SIG_IGN:  # Ctrl-C is switched off: leave it so
+        yield hits
+        return
+
+    def handler(signum: int, frame: Any) -> None:
+        hits.append(signum)
+        if callable(previous):
+            previous(signum, frame)
+        raise KeyboardInterrupt
+
+    signal.signal(signal.SIGINT, handler)
+    try:
+        yield hits
+    finally:
+        signal.signal(signal.SIGINT, previous)
+
+
+def _sample_or_interrupt(model: pm.Model, settings: SamplerSettings) -> az.InferenceData:
+    """Run NUTS; a Ctrl-C anywhere in it raises KeyboardInterrupt with a clear message, and
+    a result with fewer draws than asked for is never returned."""
+    with _watch_interrupts() as hits:
+        try:
+            idata = run_nuts(model, settings)
+        except KeyboardInterrupt:
+            raise KeyboardInterrupt(INTERRUPTED) from None
+        except Exception:
+            if hits:  # the sampler failed on the draws an interrupt cut short
+                raise KeyboardInterrupt(INTERRUPTED) from None
+            raise
+    if hits:
+        raise KeyboardInterrupt(INTERRUPTED)
+    post = idata.posterior
+    got = (int(post.sizes.get("chain", 0)), int(post.sizes.get("draw", 0)))
+    if got != (settings.chains, settings.draws):
+        raise BayesziError(
+            f"the sampler returned {got[0]} chain(s) of {got[1]} draws instead of "
+            f"{settings.chains} of {settings.draws} (was it interrupted?); nothing was kept. "
+            "Rerun fit()"
+        )
+    return idata
 
 
 def prior_predictive(data: pd.DataFrame, counts: str, zeros: str | None = "~ 1",

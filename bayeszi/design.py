@@ -90,6 +90,8 @@ class Design:
     levels: dict[str, list[str]]
     used_columns: list[str]
     index: pd.Index
+    #: formula variables that were numeric when fitting, with their (min, max) there
+    ranges: dict[str, tuple[float, float]] = field(default_factory=dict)
 
     def encode(self, data: pd.DataFrame, *, need_exposure: bool = True) -> EncodedRows:
         """Encode new rows like the fitted data; unknown groups get code -1."""
@@ -99,7 +101,12 @@ class Design:
         if not need_exposure:
             needed = [c for c in needed if c not in (self.spec.exposure, self.spec.offset)]
         V.check_columns(data, needed, role="needed by the fitted model")
+        V.check_kinds(data, [c for c in needed if c in self.ranges or c in
+                             (self.spec.exposure, self.spec.offset)],
+                      role="needed by the fitted model")
         V.check_finite(data, needed, role="needed by the fitted model")
+        _check_still_numeric(data, self.ranges)
+        data = _tidy_categories(data, list(self.levels))
         for col, known in self.levels.items():
             if col not in data.columns:
                 continue
@@ -112,6 +119,7 @@ class Design:
                 )
         Xc = _materialize(self.counts, data)
         Xz = _materialize(self.zeros, data) if self.zeros is not None else None
+        _warn_far_outside(data, self.ranges)
         log_offset = np.zeros(len(data))
         if self.spec.exposure is not None and self.spec.exposure in data.columns:
             log_offset = np.log(V.check_exposure(data, self.spec.exposure))
@@ -146,7 +154,75 @@ def _materialize(part: PartDesign, data: pd.DataFrame) -> np.ndarray:
     except FormulaicError as err:
         raise BayesziError(f"{part.part} formula '~ {part.rhs}' could not be applied to the new "
                            f"data: {_first_line(err)}") from None
-    return np.asarray(mm, dtype=float)
+    except Exception as err:  # a transform raised inside formulaic (e.g. on a wrong type)
+        raise BayesziError(f"{part.part} formula '~ {part.rhs}' failed on the new data: "
+                           f"{_first_line(err).rstrip('.')}{_TRANSFORM_HINT}") from None
+    X = np.asarray(mm, dtype=float)
+    if X.shape[1] != len(part.terms):
+        raise BayesziError(
+            f"{part.part} formula '~ {part.rhs}' gives columns {[str(c) for c in mm.columns]} "
+            f"on the new data but {part.terms} when fitting; give each column the same type "
+            "(number or category) as in the fitted data"
+        )
+    return X
+
+
+_TRANSFORM_HINT = (". A transform in the formula (log, sqrt, ...) may have met values outside "
+                   "its domain (zero or negative), or a column has the wrong type; transform or "
+                   "clean the data first")
+
+
+def _check_still_numeric(data: pd.DataFrame, ranges: dict[str, tuple[float, float]]) -> None:
+    """A predictor that was numeric when fitting must be numeric in new data."""
+    for col in ranges:
+        if col not in data.columns:
+            continue
+        s = data[col]
+        if pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s):
+            continue
+        fix = (f"convert it with pandas.to_numeric(data[{col!r}])" if V.looks_numeric_text(s)
+               else "give it numbers like the fitted data had")
+        raise BayesziError(
+            f"column {col!r} was numeric when fitting but is {s.dtype} (text or categories) in "
+            f"the new data; {fix}"
+        )
+
+
+def _warn_far_outside(data: pd.DataFrame, ranges: dict[str, tuple[float, float]]) -> None:
+    """Warn when new values lie far outside the fitted range (more than one range width
+    beyond it): predictions there are extrapolations, and absurd values can overflow."""
+    far = []
+    for col, (lo, hi) in ranges.items():
+        if col not in data.columns:
+            continue
+        v = data[col].to_numpy(dtype=float, na_value=np.nan)
+        width = hi - lo if hi > lo else max(abs(lo), 1.0)
+        out = (v < lo - width) | (v > hi + width)
+        if out.any():
+            far.append(f"{col!r} (fitted range {lo:.4g} to {hi:.4g}; e.g. {v[out][0]:.4g} at "
+                       f"row(s) {V._rows(data.index, out)})")
+    if far:
+        warnings.warn(
+            "new values far outside the range of the fitted data in " + "; ".join(far)
+            + ". Predictions there are extrapolations that the data do not support, and extreme "
+            "values can overflow to inf or NaN; check the values",
+            V.BayesziWarning,
+            stacklevel=4,
+        )
+
+
+def _tidy_categories(data: pd.DataFrame, columns: list[str]) -> pd.DataFrame:
+    """Drop unused categories of pandas Categorical columns (they would give all-zero
+    indicator columns that no record supports)."""
+    fix = [c for c in columns if c in data.columns
+           and isinstance(data[c].dtype, pd.CategoricalDtype)
+           and len(data[c].cat.categories) > data[c].nunique(dropna=True)]
+    if not fix:
+        return data
+    data = data.copy()
+    for c in fix:
+        data[c] = data[c].cat.remove_unused_categories()
+    return data
 
 
 def _first_line(err: Exception) -> str:
@@ -155,10 +231,12 @@ def _first_line(err: Exception) -> str:
 
 def _required(rhs: str, part: str) -> list[str]:
     try:
-        return sorted(Formula(rhs).required_variables)
-    except FormulaicError as err:
+        formula = Formula(rhs)
+        variables = sorted(formula.required_variables)
+    except Exception as err:  # FormulaicError, or a parser error of another kind
         raise BayesziError(f"{part} formula '~ {rhs}' cannot be read: {_first_line(err)}. "
                            "Check for a stray operator or unbalanced brackets") from None
+    return variables
 
 
 def _categorical_vars(rhs: str, data: pd.DataFrame, variables: list[str]) -> list[str]:
@@ -187,8 +265,11 @@ def _part(part: str, rhs: str, data: pd.DataFrame) -> PartDesign:
     except FormulaicError as err:
         raise BayesziError(f"{part} formula '~ {rhs}' cannot be used: {_first_line(err)}") from None
     except Exception as err:  # a transform raised (e.g. log of a negative) inside formulaic
-        raise BayesziError(f"{part} formula '~ {rhs}' failed on the data: {_first_line(err)}") \
-            from None
+        raise BayesziError(f"{part} formula '~ {rhs}' failed on the data: "
+                           f"{_first_line(err).rstrip('.')}{_TRANSFORM_HINT}") from None
+    if not hasattr(mm, "columns"):  # several formula parts: refused in ModelSpec already
+        raise BayesziError(f"{part} formula '~ {rhs}' has several parts; write one formula per "
+                           "part and give group effects with groups=")
     X = np.asarray(mm, dtype=float)
     terms = [str(c) for c in mm.columns]
     if X.shape[1] == 0:
@@ -325,6 +406,7 @@ def build_design(data: pd.DataFrame, spec: ModelSpec) -> Design:
     _check_group_labels(data, list(dict.fromkeys([*spec.groups, *nest_outer])))
     used = list(dict.fromkeys([spec.response, *c_vars, *z_vars, *extra,
                                *spec.groups, *nest_outer]))
+    V.check_kinds(data, [spec.response, *c_vars, *z_vars, *extra], role="used by the model")
     V.check_finite(data, used, role="used by the model")
     y = V.check_response(data, spec.response, fam.zeros_kind)
     _check_text_as_number(spec.counts_rhs, data, c_vars, "counts")
@@ -334,6 +416,7 @@ def build_design(data: pd.DataFrame, spec: ModelSpec) -> Design:
         log_offset = np.log(V.check_exposure(data, spec.exposure))
     elif spec.offset is not None:
         log_offset = V.check_offset(data, spec.offset)
+    data = _tidy_categories(data, list(dict.fromkeys([*c_vars, *z_vars])))
     counts = _part("counts", spec.counts_rhs, data)
     zeros = _part("zeros", spec.zeros_rhs, data) if fam.zeros_kind else None
     levels: dict[str, list[str]] = {}
@@ -356,8 +439,14 @@ def build_design(data: pd.DataFrame, spec: ModelSpec) -> Design:
             )
     for part, terms in spec.varying.items():
         _check_slopes_vary(counts if part == "counts" else zeros, terms, groups)
+    _check_separation(y, counts, zeros, fam.zeros_kind)
+    ranges = {}
+    for v in dict.fromkeys([*c_vars, *z_vars]):
+        if v not in levels:
+            col = data[v].to_numpy(dtype=float)
+            ranges[v] = (float(col.min()), float(col.max()))
     return Design(spec, len(data), y, log_offset, counts, zeros, groups, levels, used,
-                  data.index)
+                  data.index, ranges)
 
 
 def _group(data: pd.DataFrame, name: str, nested: dict[str, str]) -> GroupDesign:
@@ -433,3 +522,56 @@ def _check_slopes_vary(pdes: PartDesign | None, terms: tuple[str, ...],
                     V.BayesziWarning,
                     stacklevel=3,
                 )
+
+
+def _check_separation(y: np.ndarray, counts: PartDesign, zeros: PartDesign | None,
+                      zeros_kind: str | None) -> None:
+    """Warn when single terms separate the records so that a coefficient is not identified.
+
+    Zeros part: a 0/1 term whose records (at 1, or at 0) are all zero or all non-zero, or a
+    numeric term above (or below) some value of which every record is zero and on the other
+    side every record non-zero: the zeros-part probability is then pushed to 0 or 1 there and
+    the coefficient shows mostly its prior. Counts part: a 0/1 term whose records are all zero
+    pushes its rate ratio toward 0. Only single terms are checked (combinations are not).
+    """
+    zero = y == 0
+    notes = []
+    if zeros is not None and 0 < zero.sum() < len(y):
+        what = "P(Y = 0)" if zeros_kind == "hurdle" else "P(extra zero)"
+        for j, term in enumerate(zeros.terms):
+            if j == zeros.intercept:
+                continue
+            x = zeros.X[:, j]
+            if np.all((x == 0) | (x == 1)):
+                for v in (1.0, 0.0):
+                    z = zero[x == v]
+                    if z.size and (z.all() or not z.any()):
+                        kind = "zero" if z.all() else "non-zero"
+                        notes.append(f"zeros-part term {term!r}: every record with {term} = "
+                                     f"{v:g} is {kind}, so {what} there is pushed to "
+                                     f"{1 if z.all() else 0}")
+                        break
+            else:
+                lo0, hi0 = x[zero].min(), x[zero].max()
+                lo1, hi1 = x[~zero].min(), x[~zero].max()
+                if hi0 < lo1 or hi1 < lo0:
+                    side = "below" if hi0 < lo1 else "above"
+                    notes.append(f"zeros-part term {term!r}: every zero lies {side} every "
+                                 f"non-zero count along {term}, so {what} jumps from 0 to 1")
+    for j, term in enumerate(counts.terms):
+        if j == counts.intercept:
+            continue
+        x = counts.X[:, j]
+        if np.all((x == 0) | (x == 1)) and (x == 1).any() and zero[x == 1].all():
+            notes.append(f"counts-part term {term!r}: every record with {term} = 1 is zero, so "
+                         "its rate ratio is pushed toward 0")
+    if notes:
+        warnings.warn(
+            "perfect separation: " + "; ".join(notes[:5])
+            + (f" (and {len(notes) - 5} more)" if len(notes) > 5 else "")
+            + ". The data cannot bound these coefficients, so their estimates and intervals "
+            "rest on the priors (see docs/priors.md). Consider merging sparse levels, dropping "
+            "the term, or a prior that states what is plausible",
+            V.BayesziWarning,
+            stacklevel=3,
+        )

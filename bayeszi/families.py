@@ -572,7 +572,7 @@ class Family:
             counts = self._random_positive(rng, eta_c, la, nb)
         else:
             mu = rng.gamma(np.exp(-la), np.exp(eta_c + la)) if nb else np.exp(eta_c)
-            counts = rng.poisson(mu).astype(np.int64, copy=False)
+            counts = _poisson(rng, mu)
         if self.zeros_kind is not None:
             p = sc.expit(np.broadcast_to(eta_z, shape).reshape(n))
             counts[rng.random(n) < p] = 0
@@ -592,7 +592,7 @@ class Family:
             t = np.clip(np.expm1(-np.exp(la) * w) / s, 0.0, 1.0)
             lam = rng.gamma(np.exp(-la) + 1.0, s / (1.0 + s * t))
             rest = lam * (1.0 - t)
-        return 1 + rng.poisson(rest).astype(np.int64, copy=False)
+        return 1 + _poisson(rng, rest)
 
     # ------------------------------------------------------------------ moments
     @_array_method
@@ -812,6 +812,26 @@ _FAMILIES: dict[str, Family] = {
     "hurdle-negbin": Family("hurdle-negbin", "hurdle", True, "P(Y = 0)"),
 }
 assert tuple(_FAMILIES) == FAMILY_NAMES
+
+
+#: the largest Poisson mean drawn (NumPy refuses means near 2**63; counts this large are far
+#: beyond any data the model was fitted to)
+_MAX_DRAW_MEAN = 1e18
+
+
+def _poisson(rng: np.random.Generator, lam: np.ndarray) -> np.ndarray:
+    """Poisson draws as int64, refusing means that are not finite or too large to draw."""
+    lam = np.asarray(lam, dtype=np.float64)
+    bad = ~(lam <= _MAX_DRAW_MEAN)  # also catches NaN
+    if bad.any():
+        worst = lam[bad][0]
+        raise BayesziError(
+            f"cannot draw counts whose expected value is {worst:.3g} (at {int(bad.sum())} "
+            "draw-row pair(s)): the linear predictor is far beyond anything in the fitted "
+            "data, usually because of extreme predictor or exposure values in the rows asked "
+            "about. Check those values"
+        )
+    return rng.poisson(lam).astype(np.int64, copy=False)
 
 
 def get_family(name: str) -> Family:

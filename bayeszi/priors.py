@@ -45,9 +45,14 @@ class Prior:
 
     def __post_init__(self) -> None:
         known = {**COEF_DISTS, **SCALE_DISTS}
-        if self.dist not in known:
+        if not isinstance(self.dist, str) or self.dist not in known:
             raise BayesziError(f"unknown prior {self.dist!r}; use one of {sorted(known)}")
         args = [v for v in (self.a, self.b, self.c) if v is not None]
+        for v in args:
+            if isinstance(v, (bool, np.bool_)) or not isinstance(v, (int, float, np.integer,
+                                                                       np.floating)):
+                raise BayesziError(f"prior {self.dist!r} takes numbers, got {v!r} among "
+                                   f"{args}; e.g. Prior('normal', 0, 1)")
         if len(args) != known[self.dist]:
             raise BayesziError(
                 f"prior {self.dist!r} takes {known[self.dist]} number(s), got {len(args)}: {args}"
@@ -86,7 +91,13 @@ def as_prior(value: Any, where: str) -> Prior:
     if isinstance(value, Prior):
         return value
     if isinstance(value, (list, tuple)) and value and isinstance(value[0], str):
-        return Prior(value[0], *[float(v) for v in value[1:]])
+        if len(value) > 4:
+            raise BayesziError(f"prior for {where} has too many numbers: {list(value)}; e.g. "
+                               "['normal', 0, 1] or ['student_t', 0, 1, 3]")
+        try:
+            return Prior(*value)
+        except BayesziError as err:
+            raise BayesziError(f"prior for {where}: {err}") from None
     raise BayesziError(
         f"prior for {where} must be a Prior or a list like ['normal', 0, 1], got {value!r}"
     )
@@ -176,6 +187,9 @@ def _fmt(p: Prior) -> str:
 
 def resolve(design: Any, overrides: Mapping[str, Any] | None) -> PriorSet:
     """Resolve defaults and ``overrides`` for a :class:`~bayeszi.design.Design`."""
+    if overrides is not None and not isinstance(overrides, Mapping):
+        raise BayesziError(f"priors must be a dict such as {{'counts': {{'depth': ['normal', 0, "
+                           f"0.5]}}}}, got {overrides!r}")
     overrides = dict(overrides or {})
     unknown = sorted(set(overrides) - {"counts", "zeros", "dispersion", "group_sd", "lkj_eta"})
     if unknown:
@@ -234,7 +248,11 @@ def resolve(design: Any, overrides: Mapping[str, Any] | None) -> PriorSet:
         if p.is_coef:
             raise BayesziError(f"the {part} group sd prior must be one of {sorted(SCALE_DISTS)}")
         gsd[part] = p
-    eta = float(overrides.get("lkj_eta", LKJ_ETA))
-    if not eta > 0:
-        raise BayesziError("priors['lkj_eta'] must be positive")
+    eta = overrides.get("lkj_eta", LKJ_ETA)
+    if isinstance(eta, (bool, np.bool_)) or not isinstance(eta, (int, float, np.integer,
+                                                                  np.floating)) \
+            or not np.isfinite(eta) or not eta > 0:
+        raise BayesziError(f"priors['lkj_eta'] must be a positive number (e.g. 2, the default), "
+                           f"got {eta!r}")
+    eta = float(eta)
     return PriorSet(parts.get("counts", {}), parts.get("zeros", {}), disp, gsd, eta, user)

@@ -148,6 +148,9 @@ def _sample_nutpie(model: pm.Model, settings: SamplerSettings, progress: bool
             cores=_cores(settings), seed=settings.seed, progress_bar=progress,
             save_warmup=False, target_accept=settings.target_accept,
         )
+    if idata.posterior.sizes.get("draw", 0) < settings.draws:
+        # nutpie returns what it has when interrupted; a fit keeps all draws or none
+        raise KeyboardInterrupt("nutpie stopped before all draws were taken")
     stats = idata.sample_stats
     if "maxdepth_reached" in stats and "reached_max_treedepth" not in stats:
         stats["reached_max_treedepth"] = stats["maxdepth_reached"]

@@ -60,6 +60,43 @@ def check_columns(data: pd.DataFrame, columns: Iterable[str], role: str) -> None
         )
 
 
+def check_kinds(data: pd.DataFrame, columns: Sequence[str], role: str) -> None:
+    """Refuse column types a formula, response or exposure cannot use as numbers: complex
+    numbers, dates and times, periods, intervals, and cells holding lists or dicts.
+
+    Example
+    -------
+    >>> when = pd.DataFrame({"day": pd.to_datetime(["2024-05-01", "2024-05-02"])})
+    >>> check_kinds(when, ["day"], role="counts formula")  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    bayeszi.errors.BayesziError: column 'day' (counts formula) holds dates, times or ...
+    """
+    for c in dict.fromkeys(columns):
+        s = data[c]
+        dt = s.dtype
+        if pd.api.types.is_complex_dtype(dt):
+            raise BayesziError(
+                f"column {c!r} ({role}) holds complex numbers; give real numbers (e.g. "
+                f"data[{c!r}].to_numpy().real if the imaginary parts are all 0)"
+            )
+        if pd.api.types.is_datetime64_any_dtype(dt) or pd.api.types.is_timedelta64_dtype(dt) \
+                or isinstance(dt, (pd.PeriodDtype, pd.IntervalDtype)):
+            raise BayesziError(
+                f"column {c!r} ({role}) holds dates, times or intervals ({dt}); turn it into a "
+                f"number first, e.g. data[{c!r}].dt.dayofyear or the days since a start date, "
+                f"or into text labels for a category (data[{c!r}].astype(str))"
+            )
+        if pd.api.types.is_object_dtype(dt):
+            odd = s.map(lambda v: isinstance(v, (list, dict, set, tuple, bytes))).to_numpy()
+            if odd.any():
+                raise BayesziError(
+                    f"column {c!r} ({role}) holds lists, tuples, dicts or bytes in its cells, "
+                    f"first at row(s) {_rows(data.index, odd)}; each cell must be one number or "
+                    "one text label"
+                )
+
+
 def check_finite(data: pd.DataFrame, columns: Sequence[str], role: str) -> None:
     """Fail on missing values (any column) or infinities (numeric columns)."""
     for c in columns:
@@ -70,7 +107,7 @@ def check_finite(data: pd.DataFrame, columns: Sequence[str], role: str) -> None:
         if bad.any():
             raise BayesziError(
                 f"column {c!r} ({role}) has {int(bad.sum())} missing or infinite value(s), "
-                f"first at row(s) {_rows(data.index, bad)}; drop or fill those rows before fitting"
+                f"first at row(s) {_rows(data.index, bad)}; drop or fill those rows first"
             )
 
 
@@ -108,7 +145,11 @@ def check_response(data: pd.DataFrame, column: str, zeros_kind: str | None) -> n
             "give the raw counts and put the effort in exposure=)"
         )
     if y.max() > 2**53:
-        raise BayesziError(f"response column {column!r} has counts above 2^53; rescale them")
+        raise BayesziError(
+            f"response column {column!r} has counts above 2^53 (about 9e15), which cannot be "
+            "held exactly; check the column for a unit or reading error (a count that large "
+            "is rarely a count)"
+        )
     if np.all(y == y[0]):
         raise BayesziError(
             f"response column {column!r} is constant (every value is {y[0]:g}); there is "
@@ -153,7 +194,8 @@ def check_offset(data: pd.DataFrame, column: str) -> np.ndarray:
     """Return a finite log-offset column, or fail naming the rows."""
     s = data[column]
     if not pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s):
-        raise BayesziError(f"offset column {column!r} is not numeric ({s.dtype})")
+        raise BayesziError(f"offset column {column!r} is not numeric ({s.dtype}); an offset holds "
+                           "the log of each record's effort as a number")
     o = s.to_numpy(dtype=float, na_value=np.nan)
     bad = ~np.isfinite(o)
     if bad.any():

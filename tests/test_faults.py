@@ -1,0 +1,410 @@
+"""Faults lose nothing: Ctrl-C, damaged or foreign saved fits, unwritable destinations.
+
+* Ctrl-C during sampling ends with a KeyboardInterrupt that says nothing was kept, through
+  the API and the command line (exit 130), and leaves no partial file or folder. It is
+  simulated both by a KeyboardInterrupt raised where PyMC samples and by a real SIGINT sent
+  during real PyMC sampling (PyMC itself swallows that interrupt and returns the draws made so
+  far; bayeszi must not hand those on as a fit).
+* A truncated, bit-flipped, tampered or foreign file is a BayesziError, or (a flip in unused
+  bytes) loads exactly the saved numbers: never wrong numbers in silence.
+* A fit saved by another bayeszi version loads (with a warning naming both versions) when the
+  file format is the same, and says why when it cannot.
+* An unwritable destination is reported before sampling starts.
+
+These tests check our own behaviour; no reference values are involved (common practice, no
+source). The tiny fit is shared with tests/test_hardening.py through the session cache.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import signal
+import warnings
+from pathlib import Path
+from typing import Any
+
+import arviz as az
+import numpy as np
+import pandas as pd
+import pymc as pm
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from test_hardening import make_tiny_fit, tiny_data
+
+import bayeszi
+import bayeszi as bz
+from bayeszi import store
+from bayeszi.cli import main
+from bayeszi.errors import BayesziError
+
+PROC = "/proc/bayeszi-fault-test"  # nobody, not even root, can create files in /proc
+HAVE_PROC = os.path.isdir("/proc/self")
+
+
+@pytest.fixture(scope="module")
+def tiny(cached_fit):
+    return cached_fit("hardening-tiny-zinb", make_tiny_fit)
+
+
+@pytest.fixture(scope="module")
+def saved(tiny, tmp_path_factory) -> Path:
+    path = tmp_path_factory.mktemp("saved") / "fit.nc"
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        tiny.save(str(path))
+    return path
+
+
+def _copy(saved: Path, tmp_path: Path, name: str = "copy.nc") -> Path:
+    dest = tmp_path / name
+    shutil.copy(saved, dest)
+    return dest
+
+
+def _posterior_equal(a: Any, b: Any) -> None:
+    for grp in ("posterior", "log_likelihood", "sample_stats", "observed_data"):
+        for v in a.idata[grp].data_vars:
+            np.testing.assert_array_equal(a.idata[grp][v].values, b.idata[grp][v].values)
+
+
+def _quiet_load(path: Path) -> Any:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return bz.load(str(path))
+
+
+# ============================================================================ Ctrl-C
+def _interrupting_sample(*args: Any, **kwargs: Any) -> None:
+    raise KeyboardInterrupt
+
+
+def small_frame() -> pd.DataFrame:
+    rng = np.random.default_rng(4)
+    return pd.DataFrame({"y": rng.poisson(1.5, 40), "x": rng.normal(size=40)})
+
+
+def test_ctrl_c_raised_in_the_sampler_says_nothing_was_kept(monkeypatch):
+    monkeypatch.setattr(pm, "sample", _interrupting_sample)
+    with pytest.raises(KeyboardInterrupt, match="sampling interrupted: nothing was kept"):
+        bz.fit(small_frame(), counts="y ~ x", family="poisson", draws=20, tune=20,
+               progressbar=False)
+
+
+def test_real_sigint_during_real_sampling_is_not_swallowed(monkeypatch):
+    """PyMC catches the KeyboardInterrupt of a Ctrl-C and returns the draws made so far
+    (pymc/sampling/mcmc.py, ``except KeyboardInterrupt: pass``); bayeszi must still stop."""
+    real_sample = pm.sample
+    seen = {}
+
+    def sample_then_press_ctrl_c(*args: Any, **kwargs: Any) -> Any:
+        def callback(trace: Any, draw: Any) -> None:
+            if draw.draw_idx == 15 and not seen:
+                seen["sent"] = True
+                signal.raise_signal(signal.SIGINT)
+
+        kwargs["callback"] = callback
+        kwargs["cores"] = 1  # the callback runs in this process
+        out = real_sample(*args, **kwargs)
+        seen["pymc returned"] = True  # PyMC swallowed the interrupt
+        return out
+
+    monkeypatch.setattr(pm, "sample", sample_then_press_ctrl_c)
+    before = signal.getsignal(signal.SIGINT)
+    with pytest.raises(KeyboardInterrupt, match="sampling interrupted: nothing was kept"):
+        bz.fit(small_frame(), counts="y ~ x", family="poisson", draws=30, tune=30, chains=1,
+               cores=1, seed=1, progressbar=False)
+    assert seen.get("sent")
+    assert signal.getsignal(signal.SIGINT) is before  # our handler was removed again
+
+
+def test_a_short_result_from_the_sampler_is_refused(tiny, monkeypatch):
+    """Whatever the reason, fewer draws than asked for never become a fit."""
+    import bayeszi.api as api
+
+    monkeypatch.setattr(api, "run_nuts", lambda model, s: tiny.idata.isel(draw=slice(0, 5)))
+    with pytest.raises(BayesziError, match=r"returned 2 chain\(s\) of 5 draws instead of 2 of "
+                                           r"20"):
+        bz.fit(tiny_data(), counts="y ~ x + C(f)", zeros="~ w", family="zinb", exposure="e",
+               groups="g", draws=20, tune=20, progressbar=False)
+
+
+def test_ctrl_c_in_cli_fit_exits_130_and_writes_nothing(tmp_path, monkeypatch, capsys):
+    small_frame().to_csv(tmp_path / "d.csv", index=False)
+    monkeypatch.setattr(pm, "sample", _interrupting_sample)
+    rc = main(["fit", "--data", str(tmp_path / "d.csv"), "--counts", "y ~ x", "--family",
+               "poisson", "--out", str(tmp_path / "fit.nc"), "--quiet"])
+    assert rc == 130
+    assert "interrupted" in capsys.readouterr().err
+    assert sorted(os.listdir(tmp_path)) == ["d.csv"]
+
+
+def test_ctrl_c_in_cli_run_leaves_no_partial_report(tmp_path, monkeypatch, capsys):
+    small_frame().to_csv(tmp_path / "d.csv", index=False)
+    (tmp_path / "s.toml").write_text('[study]\ndata = "d.csv"\nresponse = "y"\n[[model]]\n'
+                                     'name = "p"\nfamily = "poisson"\ncounts = "x"\n')
+    old = tmp_path / "old-report"  # an earlier report at the destination stays as it was
+    old.mkdir()
+    (old / ".bayeszi-report").write_text("marker")
+    (old / "report.html").write_text("earlier report")
+    monkeypatch.setattr(pm, "sample", _interrupting_sample)
+    rc = main(["run", str(tmp_path / "s.toml"), "--out", str(old), "--quiet"])
+    assert rc == 130
+    assert "interrupted" in capsys.readouterr().err
+    assert sorted(os.listdir(tmp_path)) == ["d.csv", "old-report", "s.toml"]
+    assert (old / "report.html").read_text() == "earlier report"
+
+
+def _partial_writer(exc: BaseException):
+    def to_netcdf(self: Any, filename: str, *args: Any, **kwargs: Any) -> None:
+        with open(filename, "wb") as fh:
+            fh.write(b"\x89HDF\r\n\x1a\n half a file")
+        raise exc
+
+    return to_netcdf
+
+
+@pytest.mark.parametrize("exc, expect", [(KeyboardInterrupt(), KeyboardInterrupt),
+                                         (OSError(28, "No space left on device"), BayesziError)])
+def test_interrupted_or_failed_save_keeps_the_earlier_file(tiny, tmp_path, monkeypatch, exc,
+                                                           expect):
+    target = tmp_path / "fit.nc"
+    target.write_bytes(b"the earlier save")
+    monkeypatch.setattr(az.InferenceData, "to_netcdf", _partial_writer(exc))
+    with pytest.raises(expect):
+        tiny.save(str(target))
+    assert sorted(os.listdir(tmp_path)) == ["fit.nc"]
+    assert target.read_bytes() == b"the earlier save"
+
+
+# ============================================================================ damaged files
+@pytest.mark.parametrize("fraction", [0.0, 0.002, 0.1, 0.5, 0.9, 0.999])
+def test_truncated_file_is_a_bayeszi_error(saved, tmp_path, fraction):
+    raw = saved.read_bytes()
+    bad = tmp_path / "cut.nc"
+    bad.write_bytes(raw[: int(len(raw) * fraction)])
+    with pytest.raises(BayesziError, match="not a readable bayeszi fit"):
+        _quiet_load(bad)
+
+
+@settings(max_examples=12, deadline=None, derandomize=True, database=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+@given(where=st.floats(0.0, 1.0, exclude_max=True), flip=st.integers(1, 255))
+def test_a_flipped_byte_is_refused_or_changes_nothing(tiny, saved, tmp_path, where, flip):
+    raw = bytearray(saved.read_bytes())
+    pos = int(where * len(raw))
+    raw[pos] ^= flip
+    bad = tmp_path / "flipped.nc"
+    bad.write_bytes(bytes(raw))
+    try:
+        back = _quiet_load(bad)
+    except BayesziError as err:
+        assert "saved fit" in str(err) or "bayeszi" in str(err)
+        return
+    _posterior_equal(tiny, back)  # loaded: then exactly the saved numbers
+    pd.testing.assert_frame_equal(back._data, tiny._data)
+
+
+def _edit(path: Path, change: Any) -> None:
+    import h5py
+
+    with h5py.File(path, "r+") as f:
+        change(f)
+
+
+def _read_groups(path: Path) -> dict[str, Any]:
+    import h5py
+    import xarray as xr
+
+    with h5py.File(path, "r") as f:
+        names = list(f.keys())
+    out = {}
+    for g in names:
+        with xr.open_dataset(path, group=g, engine="h5netcdf") as ds:
+            out[g] = ds.load()
+    return out
+
+
+def _edit_meta(path: Path, change: Any, resign: bool = False) -> None:
+    """Change the bayeszi metadata in place. ``resign=True`` also rewrites the checksum, as
+    another bayeszi version writing that metadata would; without it the edit is tampering."""
+    groups = _read_groups(path) if resign else None
+    import h5py
+
+    with h5py.File(path, "r+") as f:
+        meta = json.loads(f["posterior"].attrs["bayeszi"])
+        change(meta)
+        if resign and "checksum" in meta:
+            meta["checksum"] = store._checksum(groups, meta)
+        f["posterior"].attrs["bayeszi"] = json.dumps(meta)
+
+
+def test_changed_draws_fail_the_checksum(saved, tmp_path):
+    path = _copy(saved, tmp_path)
+
+    def nudge(f: Any) -> None:
+        f["posterior/counts_std_coef"][0, 0, 0] += 1e-9
+
+    _edit(path, nudge)
+    with pytest.raises(BayesziError, match="checksum"):
+        _quiet_load(path)
+
+
+def test_missing_fitted_data_is_named(saved, tmp_path):
+    path = _copy(saved, tmp_path)
+
+    def drop(f: Any) -> None:
+        del f["constant_data"]
+
+    _edit(path, drop)
+    with pytest.raises(BayesziError, match="constant_data"):
+        _quiet_load(path)
+
+
+@pytest.mark.parametrize("change, pattern", [
+    (lambda m: m.update(format=99), r"file format 99, newer than this bayeszi.*upgrade"),
+    (lambda m: m.update(format=0), r"file format 0, older than this bayeszi.*refit"),
+    (lambda m: m.update(format="1"), r"format number is '1'"),
+    (lambda m: m.pop("column_kinds"), r"lacks 'column_kinds'"),
+    (lambda m: m.update(checksum="0" * 64), r"checksum"),
+    (lambda m: m["spec"].update(family="zip"), r"checksum"),  # tampering, not a writer
+])
+def test_tampered_metadata_says_why(saved, tmp_path, change, pattern):
+    path = _copy(saved, tmp_path)
+    _edit_meta(path, change)
+    with pytest.raises(BayesziError, match=pattern):
+        _quiet_load(path)
+
+
+@pytest.mark.parametrize("change, pattern", [
+    (lambda m: m.update(bayeszi_version="9.0.0") or m["spec"].update(shrinkage=0.5),
+     r"written by bayeszi 9\.0\.0, whose model settings this bayeszi .* cannot read: unknown "
+     r"model setting\(s\) \['shrinkage'\].*Load it with bayeszi 9\.0\.0, or refit"),
+    (lambda m: m["spec"].update(counts="y ~ x"),
+     r"does not fit together.*counts terms .* stored"),
+    (lambda m: m["spec"].update(family="zinbb"), r"unknown family 'zinbb'"),
+])
+def test_metadata_another_version_wrote_says_why_it_cannot_load(saved, tmp_path, change,
+                                                                pattern):
+    path = _copy(saved, tmp_path)
+    _edit_meta(path, change, resign=True)
+    with pytest.raises(BayesziError, match=pattern):
+        _quiet_load(path)
+
+
+def test_broken_metadata_json_and_foreign_files(tiny, saved, tmp_path):
+    path = _copy(saved, tmp_path)
+
+    def garble(f: Any) -> None:
+        f["posterior"].attrs["bayeszi"] = '{"format": 1, "spec": '
+
+    _edit(path, garble)
+    with pytest.raises(BayesziError, match="not valid JSON"):
+        _quiet_load(path)
+    foreign = tmp_path / "arviz.nc"
+    tiny.idata.to_netcdf(str(foreign))  # a plain ArviZ file, not written by bayeszi's save
+    with pytest.raises(BayesziError, match="no bayeszi metadata.*fitted.save"):
+        _quiet_load(foreign)
+    text = tmp_path / "notes.nc"
+    text.write_text("crayfish,trap_nights\n1,2\n")
+    with pytest.raises(BayesziError, match="not a readable bayeszi fit"):
+        _quiet_load(text)
+    with pytest.raises(BayesziError, match="no saved fit"):
+        _quiet_load(tmp_path)  # a folder
+
+
+def test_other_version_same_format_loads_and_says_so(tiny, saved, tmp_path):
+    path = _copy(saved, tmp_path)
+    _edit_meta(path, lambda m: m.update(bayeszi_version="0.0.7"), resign=True)
+    with pytest.warns(bz.BayesziWarning, match=r"saved by bayeszi 0\.0\.7 and is loaded by "
+                                               rf"bayeszi {bayeszi.__version__}"):
+        back = bz.load(str(path))
+    _posterior_equal(tiny, back)
+    pd.testing.assert_frame_equal(back.coefficients(), tiny.coefficients())
+
+
+def test_file_without_checksum_from_an_older_writer_loads(tiny, saved, tmp_path):
+    path = _copy(saved, tmp_path)
+    _edit_meta(path, lambda m: m.pop("checksum"))
+    _posterior_equal(tiny, _quiet_load(path))
+
+
+# ============================================================================ destinations
+def test_save_refuses_unwritable_destinations(tiny, tmp_path):
+    blocker = tmp_path / "a-file"
+    blocker.write_text("x")
+    with pytest.raises(BayesziError, match="does not exist"):
+        tiny.save(str(blocker / "fit.nc"))
+    with pytest.raises(BayesziError, match="is a folder"):
+        tiny.save(str(tmp_path))
+    if HAVE_PROC:
+        with pytest.raises(BayesziError, match="not writable"):
+            tiny.save(PROC + ".nc")
+    assert sorted(os.listdir(tmp_path)) == ["a-file"]
+
+
+def test_check_writable_probes_and_cleans_up(tmp_path):
+    assert store.check_writable(str(tmp_path / "f.nc")) == str(tmp_path / "f.nc")
+    assert os.listdir(tmp_path) == []
+    if HAVE_PROC:
+        with pytest.raises(BayesziError, match="not writable"):
+            store.check_writable(PROC + ".nc")
+
+
+def _record_sampling(monkeypatch) -> list:
+    calls: list = []
+
+    def fake_fit_spec(*args: Any, **kwargs: Any) -> None:
+        calls.append(args)
+        raise KeyboardInterrupt  # stop there: the test only asks whether we got this far
+
+    monkeypatch.setattr(bayeszi, "fit_spec", fake_fit_spec, raising=False)
+    return calls
+
+
+def test_cli_fit_missing_folder_is_refused_before_sampling(tmp_path, monkeypatch, capsys):
+    small_frame().to_csv(tmp_path / "d.csv", index=False)
+    calls = _record_sampling(monkeypatch)
+    rc = main(["fit", "--data", str(tmp_path / "d.csv"), "--counts", "y ~ x", "--out",
+               str(tmp_path / "no-such-folder" / "fit.nc")])
+    assert rc == 2 and not calls
+    assert "does not exist" in capsys.readouterr().err
+
+
+def test_cli_run_unwritable_folder_is_refused_before_sampling(tmp_path, monkeypatch, capsys):
+    if not HAVE_PROC:
+        pytest.skip("needs /proc")
+    small_frame().to_csv(tmp_path / "d.csv", index=False)
+    (tmp_path / "s.toml").write_text('[study]\ndata = "d.csv"\nresponse = "y"\n[[model]]\n'
+                                     'name = "p"\nfamily = "poisson"\ncounts = "x"\n')
+    calls = _record_sampling(monkeypatch)
+    rc = main(["run", str(tmp_path / "s.toml"), "--out", PROC])
+    assert rc == 2 and not calls
+    assert "cannot write the report" in capsys.readouterr().err
+
+
+@pytest.mark.skipif(not HAVE_PROC, reason="needs /proc")
+@pytest.mark.xfail(strict=True, reason="bayeszi/cli.py _check_file_destination trusts "
+                   "os.access, which says yes to root on /proc: 'bayeszi fit --out "
+                   "/proc/x.nc' samples first and only then fails to save (reported to the "
+                   "lead; bayeszi.store.check_writable probes for real)")
+def test_cli_fit_unwritable_folder_is_refused_before_sampling(tmp_path, monkeypatch, capsys):
+    small_frame().to_csv(tmp_path / "d.csv", index=False)
+    calls = _record_sampling(monkeypatch)
+    rc = main(["fit", "--data", str(tmp_path / "d.csv"), "--counts", "y ~ x", "--out",
+               PROC + ".nc"])
+    assert rc == 2 and not calls
+
+
+@pytest.mark.skipif(not HAVE_PROC, reason="needs /proc")
+@pytest.mark.xfail(strict=True, reason="bayeszi/cli.py _predict: '--out /proc/x.csv' passes "
+                   "_check_file_destination (os.access, root), then tempfile.mkstemp raises "
+                   "FileNotFoundError after the predictions: exit 1 'internal error' (reported "
+                   "to the lead)")
+def test_cli_predict_unwritable_output_is_a_user_error(saved, tmp_path, capsys):
+    tiny_data().head(5).to_csv(tmp_path / "new.csv", index=False)
+    rc = main(["predict", str(saved), str(tmp_path / "new.csv"), "--out", PROC + ".csv"])
+    assert rc == 2
+    assert "internal error" not in capsys.readouterr().err

@@ -1,0 +1,148 @@
+"""The validation machinery (validation/), checked quickly: the prior of the simulation is the
+prior of the fit, the helper formulas agree with independent ones, and a handful of SBC and
+coverage replicates run end to end. The full runs are in tests/test_validation_slow.py and
+docs/validation.md.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+
+import bayeszi as bz
+from bayeszi.design import build_design
+from bayeszi.priors import resolve
+
+sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+
+from validation import common as C  # noqa: E402
+from validation import coverage, sbc  # noqa: E402
+
+
+def _data(family: str, n: int = 90, n_groups: int = 6, seed: int = 4):
+    rng = np.random.default_rng(seed)
+    df = C.covariates(rng, n, n_groups)
+    truth = C.draw_truth(rng, family, C.SimPrior(), n_groups)
+    df["y"] = C.simulate_counts(rng, family, df, truth)
+    return df, truth
+
+
+@pytest.mark.parametrize("family", ["poisson", "zinb", "hurdle-negbin"])
+def test_fit_prior_is_the_simulation_prior(family):
+    """SBC is exact only if bayeszi fits under the prior the truth was drawn from. bayeszi's
+    convention (bayeszi/priors.py): a slope prior is per unit of the input and is carried to
+    the internal scale by the input's scale; an intercept prior applies to the centred
+    intercept, the predictor's centre being the input's mean in the fitted data."""
+    df, truth = _data(family)
+    prior = C.SimPrior()
+    spec = bz.make_spec(C.COUNTS, C.ZEROS, family, exposure="exposure", groups=C.GROUP,
+                        priors=prior.bayeszi_priors(family, True))
+    design = build_design(df, spec)
+    ps = resolve(design, spec.priors)
+    d = design.counts
+    np.testing.assert_allclose(d.center[1:], df[["x", "b"]].mean().to_numpy(), rtol=1e-12)
+    assert ps.counts["Intercept"] == bz.Prior("normal", *prior.counts_intercept)
+    for j, term in enumerate(d.terms[1:], start=1):
+        p = ps.counts[term]
+        assert p.dist == "normal" and p.a == 0.0
+        assert p.b == pytest.approx(prior.counts_slope_sd * d.scale[j], rel=1e-12)
+    assert ps.group_sd["counts"] == bz.Prior("halfnormal", prior.group_sd[0])
+    # the user-scale truth the validation ranks is bayeszi's own map of the internal truth
+    a, bx, bb = truth["counts_centred"]
+    user = d.to_user_scale(np.array([a, bx * d.scale[1], bb * d.scale[2]]))
+    q = C.true_quantities(family, df, truth, groups=True)
+    np.testing.assert_allclose([q["counts: Intercept"], q["counts: x"], q["counts: b"]], user,
+                               rtol=1e-12)
+    if design.zeros is not None:
+        assert ps.zeros["Intercept"] == bz.Prior("normal", *prior.zeros_intercept)
+        np.testing.assert_allclose(design.zeros.center[1], df["w"].mean(), rtol=1e-12)
+    if bz.get_family(family).has_dispersion:
+        assert ps.dispersion == bz.Prior("exponential", prior.dispersion_rate)
+
+
+@pytest.mark.parametrize("family", list(bz.FAMILY_NAMES))
+def test_expected_count_agrees_with_bayeszi_closed_form(family):
+    """validation's E[Y] is written out independently (Lambert 1992, Technometrics, for the
+    ZI mean; NB2 f(0) = (1 + alpha mu)^(-1/alpha)); it must match bayeszi.families."""
+    rng = np.random.default_rng(1)
+    ec, ez, la = rng.normal(0.5, 1.0, 50), rng.normal(0.0, 1.5, 50), np.log(0.7)
+    fam = bz.get_family(family)
+    ours = C.expected_count(family, ec, ez if fam.zeros_kind else None,
+                            la if fam.has_dispersion else None)
+    theirs = fam.mean(ec, ez if fam.zeros_kind else None, la if fam.has_dispersion else None)
+    np.testing.assert_allclose(ours, theirs, rtol=1e-10)
+
+
+def test_rank_uniformity_is_the_textbook_chi_square():
+    """Pearson's statistic sum (O - E)^2 / E on equal bins, df = bins - 1 (common practice,
+    no source), recomputed by hand against the helper."""
+    ranks = np.array([0, 5, 24, 25, 49, 50, 51, 74, 75, 99, 99, 98, 10, 60, 80, 30, 31, 2,
+                      3, 4])
+    res = C.rank_uniformity(ranks, n_ranks=100, bins=4)
+    observed = np.array([7, 4, 4, 5])  # counted by hand: ranks 0-24, 25-49, 50-74, 75-99
+    assert res["observed"] == observed.tolist()
+    stat = float(((observed - 5.0) ** 2 / 5.0).sum())
+    assert res["chi2"] == pytest.approx(stat)
+    assert res["p"] == pytest.approx(stats.chi2.sf(stat, 3))
+    assert C.rank_bins(100, 20) == 4 and C.rank_bins(100, 50) == 10
+    with pytest.raises(ValueError, match="0 .. 99"):
+        C.rank_uniformity([0, 100], n_ranks=100)
+
+
+def test_ranks_thinning_and_binomial_band():
+    assert C.rank_of(0.5, np.array([0.1, 0.4, 0.6, 0.9])) == 2
+    idx = C.thin_index(600, 99)
+    assert idx[0] == 0 and idx[-1] == 599 and len(np.unique(idx)) == 99
+    lo, hi = C.binomial_band(50, 0.9, 0.99)
+    assert stats.binom.cdf(lo - 1, 50, 0.9) < 0.005 <= stats.binom.cdf(lo, 50, 0.9)
+    assert hi <= 50 and C.bonferroni([0.2, 0.004, np.nan]) == pytest.approx(0.008)
+
+
+def test_sbc_runs_end_to_end(tmp_path):
+    """Three SBC replicates of the Poisson family: ranks in range, the uniformity test and
+    the coverage table computed, figures written. The truth also sits within 5 posterior sds
+    of the posterior mean (P(|z| > 5) is below 1e-6 for a near-normal posterior, so a sign
+    or scale error in the pipeline fails here)."""
+    cfg = sbc.Config(rows=60, draws=100, tune=150, seed=3)
+    res = sbc.run(["poisson"], (False,), reps=3, cfg=cfg, out=str(tmp_path), quiet=True)
+    ranks = res["ranks"]
+    assert (ranks["status"] == "ok").all() and len(ranks) == 3 * 4
+    assert ranks["rank"].between(0, cfg.keep).all()
+    assert set(ranks["quantity"]) == {"counts: Intercept", "counts: x", "counts: b",
+                                      "mean count, row 1"}
+    z = (ranks["truth"] - ranks["post_mean"]) / ranks["post_sd"]
+    assert z.abs().max() < 5, ranks[["quantity", "truth", "post_mean", "post_sd"]]
+    unif = res["uniformity"]
+    assert len(unif) == 4 and unif["p"].between(0, 1).all()
+    fam = res["families"].iloc[0]
+    assert fam["family"] == "poisson" and fam["replicates (no groups)"] == 3
+    assert 0 <= fam["Bonferroni p"] <= 1
+    for name in ("sbc_ranks.csv", "sbc_uniformity.csv", "sbc_families.csv",
+                 "sbc_coverage.csv", "sbc_run.json", "sbc_poisson.png"):
+        assert (tmp_path / name).exists(), name
+    again = sbc.summarise(out=str(tmp_path), figures=False)  # rebuilt from the CSV alone
+    pd.testing.assert_frame_equal(again["uniformity"], unif)
+
+
+def test_one_coverage_replicate():
+    """One coverage replicate of ZIP with sites: every reported interval is ordered and
+    the truth lies within a few interval widths of it."""
+    cfg = coverage.Config(rows=120, n_groups=6, draws=150, tune=200, seed=5)
+    rows = pd.DataFrame(coverage.replicate("zip", 0, cfg))
+    assert (rows["status"] == "ok").all()
+    assert set(rows["quantity"]) == {
+        "counts: Intercept", "counts: x", "counts: b", "zeros: Intercept", "zeros: w",
+        "counts sd(site)", "zeros sd(site)",
+        *[f"mean count, row {i}" for i in (1, 2, 3)],
+        *[f"mean count, new site, row {i}" for i in (1, 2, 3)]}
+    assert (rows["lo90"] < rows["hi90"]).all()
+    width = rows["hi90"] - rows["lo90"]
+    mid = (rows["hi90"] + rows["lo90"]) / 2
+    assert ((rows["truth"] - mid).abs() < 3 * width).all(), rows
+    summ = coverage.summary(rows)
+    assert summ["n"].eq(1).all() and summ["rate"].isin([0.0, 1.0]).all()
