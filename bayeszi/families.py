@@ -685,7 +685,8 @@ class Family:
         log_f0 = _np_count_logf0(eta_c, la, self.has_dispersion)
         if self.zeros_kind is None:
             return log_f0
-        return np.logaddexp(sc.log_expit(eta_z), sc.log_expit(-eta_z) + log_f0)
+        # log(p + (1 - p) f0) <= 0 exactly; rounding can give +1e-17 when f0 is near 1
+        return np.minimum(np.logaddexp(sc.log_expit(eta_z), sc.log_expit(-eta_z) + log_f0), 0.0)
 
     @_array_method
     def prob_extra_zero_given_zero(self, eta_c: Any, eta_z: Any, log_alpha: Any) -> np.ndarray:
@@ -743,11 +744,15 @@ class Family:
             tail = sc.betainc(kpos, np.exp(-la), sc.expit(eta_c + la))
         else:
             tail = sc.gammainc(kpos, np.exp(eta_c))
-        if self.zeros_kind is not None:
-            log_scale = sc.log_expit(-eta_z)
-            if self.zeros_kind == "hurdle":
-                log_scale = log_scale - _np_count_log1m_f0(eta_c, la, nb)[1]
-            tail = np.minimum(tail * np.exp(log_scale), 1.0)
+        if self.zeros_kind == "hurdle":
+            # P(X >= k | X >= 1) of the count process: exactly 1 at k = 1; 0 where the tail
+            # underflows (also when mu itself underflows and 1 - f(0) is 0: 0/0, limit 0)
+            with np.errstate(over="ignore", invalid="ignore"):
+                ratio = tail * np.exp(-_np_count_log1m_f0(eta_c, la, nb)[1])
+            ratio = np.where(kpos <= 1, 1.0, np.where(tail == 0, 0.0, ratio))
+            tail = np.minimum(ratio * sc.expit(-eta_z), 1.0)
+        elif self.zeros_kind is not None:
+            tail = np.minimum(tail * np.exp(sc.log_expit(-eta_z)), 1.0)
         return np.where(k <= 0, 1.0, tail)
 
     def pmf_table(self, kmax: int, eta_c: Any, eta_z: Any, log_alpha: Any) -> np.ndarray:

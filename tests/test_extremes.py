@@ -279,3 +279,24 @@ def test_one_hundred_thousand_rows() -> None:
     within(coef(m, "zeros", "Intercept"), -1.0)
     within(coef(m, "zeros", "w"), 1.2)
     assert_honest(m, warned)
+
+
+# ============================================================================ closed forms
+def test_closed_forms_stay_valid_at_extreme_linear_predictors() -> None:
+    """Probabilities in [0, 1] and no NaN for any finite linear predictor a fit can produce
+    (log means from -800 to 700, logits of +-40, NB dispersions from e^-20 to e^5). Common
+    practice, no source: probabilities of a pmf lie in [0, 1]."""
+    eta_c, eta_z, la = np.meshgrid([-800.0, -50.0, -1e-9, 0.0, 3.0, 50.0, 700.0],
+                                   [-40.0, -1.0, 0.0, 1.0, 40.0], [-20.0, 0.0, 5.0],
+                                   indexing="ij")
+    for name in bz.FAMILY_NAMES:
+        fam = bz.get_family(name)
+        with np.errstate(all="ignore"):
+            p0 = fam.prob_zero(eta_c, eta_z, la)
+            log_p0 = fam.log_prob_zero(eta_c, eta_z, la)
+            mean = fam.mean(eta_c, eta_z, la)
+            tail = fam.sf(1, eta_c, eta_z, la)
+        assert not np.isnan(p0).any() and not np.isnan(mean).any(), name
+        assert ((p0 >= 0) & (p0 <= 1)).all(), name
+        assert (log_p0 <= 0).all() and (-np.expm1(log_p0) >= 0).all(), name
+        assert ((tail >= 0) & (tail <= 1)).all() and not np.isnan(tail).any(), name

@@ -96,8 +96,8 @@ class Piece:
 
     def profile(self, j: int, value: float) -> float:
         """Profile log-likelihood at parameter ``j`` = ``value`` (all others maximised, by
-        a trust-region Newton method from the MLE with statsmodels' score and Hessian), minus
-        the maximum."""
+        BFGS from the MLE with statsmodels' score, then a trust-region Newton method with its
+        Hessian where BFGS stops short), minus the maximum."""
         from scipy import optimize
 
         free = np.array([i for i in range(self.params.size) if i != j])
@@ -111,12 +111,25 @@ class Piece:
         def hess(t: np.ndarray) -> np.ndarray:
             return -self.model.hessian(full(t))[np.ix_(free, free)]
 
+        def f(t: np.ndarray) -> float:
+            return -self.model.loglike(full(t))
+
+        def jac(t: np.ndarray) -> np.ndarray:
+            return -self.model.score(full(t))[free]
+
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            res = optimize.minimize(lambda t: -self.model.loglike(full(t)), self.params[free],
-                                    jac=lambda t: -self.model.score(full(t))[free], hess=hess,
-                                    method="trust-exact", options={"gtol": 1e-6,
-                                                                   "maxiter": 500})
+            res = optimize.minimize(f, self.params[free], jac=jac, method="BFGS",
+                                    options={"gtol": 1e-5, "maxiter": 3000})
+            if not res.success:  # e.g. precision loss on badly scaled inputs: Newton steps
+                res = optimize.minimize(f, res.x, jac=jac, hess=hess, method="trust-exact",
+                                        options={"gtol": 1e-5, "maxiter": 200})
+                # converged when a Newton step would gain less than 1e-4 in log-likelihood
+                g = jac(res.x)
+                gain = 0.5 * float(g @ np.linalg.solve(hess(res.x), g))
+                if not (res.success or 0 <= gain < 1e-4):
+                    raise RuntimeError(f"profile of {self.names[j]} at {value:g} did not "
+                                       f"converge ({res.message}; Newton gain {gain:.2g})")
         return float(-res.fun - self.llf)
 
 
