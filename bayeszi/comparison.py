@@ -299,6 +299,18 @@ def _check_threshold(k_threshold: float) -> float:
     return k
 
 
+def _check_refit_args(max_refits: Any, refit_settings: Any) -> None:
+    """Refuse a non-numeric refit budget or non-mapping refit settings before any work."""
+    if isinstance(max_refits, bool) or not isinstance(max_refits, (int, np.integer)) \
+            or max_refits < 0:
+        raise BayesziError(f"max_refits must be a whole number >= 0, got {max_refits!r}")
+    if refit_settings is not None and not isinstance(refit_settings, Mapping):
+        raise BayesziError(
+            f"refit_settings must map sampler settings to values, e.g. {{'draws': 500}}, got "
+            f"{refit_settings!r}"
+        )
+
+
 def _check_refit_budget(est: LooEstimate, max_refits: int, label: str) -> None:
     n = len(est.flagged_rows)
     if n > max_refits:
@@ -395,6 +407,7 @@ def loo(fitted: FittedModel, exact_refits: bool = False, k_threshold: float = K_
     >>> est.pointwise.sort_values("pareto_k").tail(3)   # doctest: +SKIP
     """
     label = label or fitted.spec.family
+    _check_refit_args(max_refits, refit_settings)
     est = _psis(fitted, _check_threshold(k_threshold), label)
     if exact_refits and est.flagged_rows:
         _check_refit_budget(est, max_refits, label)

@@ -92,8 +92,8 @@ def make_setup(fitted: FittedModel, groups: str, k: int | None, draws: int | Non
                            "the group distribution, 'typical' for group effects of 0")
     if not _is_int(n_average) or n_average < 1:
         raise BayesziError(f"n_average must be a whole number >= 1, got {n_average!r}; e.g. 30")
-    if seed is not None and not _is_int(seed):
-        raise BayesziError(f"seed must be a whole number or None, got {seed!r}")
+    if seed is not None and (not _is_int(seed) or seed < 0):
+        raise BayesziError(f"seed must be a non-negative whole number or None, got {seed!r}")
     total = n_draws(fitted)
     draw_ids = np.arange(total)
     if draws is not None:
@@ -104,6 +104,14 @@ def make_setup(fitted: FittedModel, groups: str, k: int | None, draws: int | Non
                                f"draws=None to use them all or a number up to {total}")
         draw_ids = np.unique(np.round(np.linspace(0, total - 1, draws)).astype(np.int64))
         fitted = thinned(fitted, draw_ids)
+        if draws == 1:
+            import warnings
+
+            from bayeszi.validate import BayesziWarning
+
+            warnings.warn("draws=1: a single posterior draw has no spread, so the sd column is "
+                          "empty (NaN) and both interval bounds equal the mean; use draws=2 or "
+                          "more for uncertainty", BayesziWarning, stacklevel=3)
     return Setup(fitted, get_family(fitted.spec.family), groups, k, draw_ids, len(draw_ids),
                  int(n_average), np.random.default_rng(seed))
 

@@ -397,10 +397,6 @@ def test_cli_run_unwritable_folder_is_refused_before_sampling(tmp_path, monkeypa
 
 
 @pytest.mark.skipif(not HAVE_PROC, reason="needs /proc")
-@pytest.mark.xfail(AS_ROOT, strict=True, reason="bayeszi/cli.py _check_file_destination trusts "
-                   "os.access, which says yes to root on /proc: 'bayeszi fit --out "
-                   "/proc/x.nc' samples first and only then fails to save (reported to the "
-                   "lead; bayeszi.store.check_writable probes for real)")
 def test_cli_fit_unwritable_folder_is_refused_before_sampling(tmp_path, monkeypatch, capsys):
     small_frame().to_csv(tmp_path / "d.csv", index=False)
     calls = _record_sampling(monkeypatch)
@@ -410,11 +406,6 @@ def test_cli_fit_unwritable_folder_is_refused_before_sampling(tmp_path, monkeypa
 
 
 @pytest.mark.skipif(not HAVE_PROC, reason="needs /proc")
-@pytest.mark.xfail(AS_ROOT, strict=True, reason="bayeszi/cli.py _predict: '--out /proc/x.csv' "
-                   "passes "
-                   "_check_file_destination (os.access, root), then tempfile.mkstemp raises "
-                   "FileNotFoundError after the predictions: exit 1 'internal error' (reported "
-                   "to the lead)")
 def test_cli_predict_unwritable_output_is_a_user_error(saved, tmp_path, capsys):
     tiny_data().head(5).to_csv(tmp_path / "new.csv", index=False)
     rc = main(["predict", str(saved), str(tmp_path / "new.csv"), "--out", PROC + ".csv"])

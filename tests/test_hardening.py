@@ -533,16 +533,11 @@ def test_predict_answers_or_names_the_problem(tiny, case: Case) -> None:
     assert np.isfinite(values).all(), "a NaN or inf reached a prediction table"
 
 
-@pytest.mark.xfail(strict=True, reason="bayeszi/predict.py make_setup: seed=-1 passes the "
-                   "whole-number check and reaches np.random.default_rng, which raises a plain "
-                   "ValueError (reported to the lead)")
 def test_negative_seed_in_predict_is_a_bayeszi_error(tiny) -> None:
     with pytest.raises(BayesziError, match="seed"):
         tiny.predict(tiny_data().head(3), groups="new", seed=-1)
 
 
-@pytest.mark.xfail(strict=True, reason="bayeszi/predict.py summarise: with draws=1 the sd "
-                   "column is NaN and no warning says why (reported to the lead)")
 def test_one_draw_prediction_has_no_silent_nan(tiny) -> None:
     with warnings.catch_warnings(record=True) as seen:
         warnings.simplefilter("always")
@@ -644,17 +639,11 @@ def test_compare_ranks_or_names_the_problem(tiny, case: Case) -> None:
     assert np.isfinite(table[["elpd_loo", "se", "p_loo", "weight"]].to_numpy()).all()
 
 
-@pytest.mark.xfail(strict=True, reason="bayeszi/comparison.py _check_refit_budget compares "
-                   "the number of flagged rows with max_refits unchecked: max_refits='a' raises "
-                   "TypeError (reported to the lead)")
 def test_loo_refit_budget_must_be_a_number(tiny) -> None:
     with pytest.raises(BayesziError, match="max_refits"):
         tiny.loo(exact_refits=True, k_threshold=-np.inf, max_refits="a")
 
 
-@pytest.mark.xfail(strict=True, reason="bayeszi/comparison.py RefitWrapper.__init__ calls "
-                   "dict(settings): refit_settings='x' raises a plain ValueError before any "
-                   "refit (reported to the lead)")
 def test_loo_refit_settings_must_be_a_mapping(tiny) -> None:
     with pytest.raises(BayesziError, match="refit_settings"):
         tiny.loo(exact_refits=True, k_threshold=-np.inf, max_refits=10**6, refit_settings="x")
