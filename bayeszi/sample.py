@@ -44,14 +44,17 @@ def _cores(settings: SamplerSettings) -> int:
 
 #: ``sampler="auto"`` uses nutpie (when installed) once a fit's work, patterns x (tune +
 #: draws) x chains, reaches this; below it PyMC's NUTS finishes first, because numba's
-#: compile takes longer than PyTensor's C compile (figures in docs/performance.md: nutpie
-#: won at 2,000 rows x 2,000 iterations x 2 chains = 8e6, lost at 400 x 300 x 2 = 2.4e5).
-NUTPIE_MIN_WORK = 2e6
+#: compile takes longer than PyTensor's C compile. Measured (docs/performance.md): nutpie
+#: lost at 2.4e5 (400 records x 300 iterations x 2 chains, 1.8x slower), was level to 1.5x
+#: faster at 6e6-8e6 (2,000 records) and 2.9x faster at 2.6e7 (20,000 discrete records).
+NUTPIE_MIN_WORK = 4e6
 
 
 def nutpie_version() -> str | None:
-    """The installed nutpie's version, or None when it cannot be imported."""
+    """The installed nutpie's version, or None when it (or numba, which it compiles PyMC
+    models with) cannot be imported."""
     try:
+        import numba  # noqa: F401
         import nutpie
     except Exception:  # not installed, or broken by a version clash: treated as absent
         return None
@@ -81,7 +84,7 @@ def choose_sampler(requested: str, work: float | None = None) -> str:
     if nutpie_version() is None:
         warnings.warn(
             "sampler='nutpie' was asked for but nutpie is not installed (or failed to "
-            "import); using PyMC's NUTS instead. Install it with 'pip install nutpie' or "
+            "import); using PyMC's NUTS instead. Install it with 'pip install nutpie[pymc]' or "
             "pass sampler='pymc' to silence this warning",
             BayesziWarning,
             stacklevel=3,
