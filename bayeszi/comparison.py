@@ -34,6 +34,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from bayeszi import loglik
 from bayeszi.errors import BayesziError
 from bayeszi.families import get_family
 from bayeszi.validate import BayesziWarning
@@ -260,10 +261,10 @@ def _training_frame(fitted: FittedModel) -> pd.DataFrame:
 
 def _check_loglik(fitted: FittedModel, label: str) -> None:
     idata = fitted.idata
-    if "log_likelihood" not in idata.groups() or "y" not in idata.log_likelihood:
+    if loglik.stored_per(idata) is None:
         raise BayesziError(f"model {label!r} has no stored pointwise log-likelihood 'y'; "
                            "refit it with bayeszi.fit (it stores one) before computing LOO")
-    n_obs = idata.log_likelihood["y"].sizes.get("obs")
+    n_obs = loglik.n_records(idata)
     if n_obs != fitted.design.n:
         raise BayesziError(f"model {label!r}: the stored log-likelihood has {n_obs} rows but "
                            f"the design {fitted.design.n}; the fit is inconsistent, refit it")
@@ -276,7 +277,7 @@ def _psis(fitted: FittedModel, k_threshold: float, label: str) -> LooEstimate:
         # ArviZ's generic Pareto-k advice is replaced by ours, which names the rows.
         warnings.simplefilter("ignore", UserWarning)
         warnings.simplefilter("ignore", RuntimeWarning)
-        elpd = az.loo(fitted.idata, pointwise=True, var_name="y", scale="log")
+        elpd = loglik.loo(fitted.idata)
     data = _training_frame(fitted)
     pointwise = pd.DataFrame({
         "y": fitted.design.y,

@@ -19,8 +19,9 @@ for the counts part and one for the zeros part. The values agree with
 
 The model's density is the weighted sum over patterns, so a gradient costs O(patterns).
 The pointwise log-likelihood that LOO needs is computed after sampling by
-:func:`row_log_likelihood`: once per pattern and draw, then looked up for every original
-record, so ``idata.log_likelihood["y"]`` keeps one column per record.
+:func:`pattern_log_likelihood`, once per pattern and draw; :mod:`bayeszi.loglik` stores it
+per record (or, for very large fits, per pattern with each record's pattern) and gives LOO
+one value per original record either way.
 
 Example
 -------
@@ -254,18 +255,19 @@ class Likelihood:
     log_alpha: Any
 
 
-def row_log_likelihood(model: Any, posterior: Any, chunk: int = 200) -> np.ndarray:
-    """Pointwise log-likelihood of every original record at every posterior draw.
+def pattern_log_likelihood(model: Any, posterior: Any, chunk: int = 200) -> np.ndarray:
+    """Log-likelihood of every *pattern* (one record of it) at every posterior draw.
 
     ``model`` is a model from :func:`bayeszi.build.build_model` (it carries a
     :class:`Likelihood` as ``model.bayeszi_likelihood``), ``posterior`` an xarray Dataset
     holding its free variables with dims (chain, draw, ...). Returns an array of shape
-    (chain, draw, n): each record gets its pattern's value, computed once per pattern.
+    (chain, draw, n_patterns); ``model.bayeszi_likelihood.patterns.inverse`` maps records to
+    patterns (see :func:`row_log_likelihood` and :mod:`bayeszi.loglik`).
 
     Example
     -------
-    >>> ll = row_log_likelihood(model, idata.posterior)           # doctest: +SKIP
-    >>> ll.shape == (2, 1000, fitted.design.n)                    # doctest: +SKIP
+    >>> ll = pattern_log_likelihood(model, idata.posterior)       # doctest: +SKIP
+    >>> ll.shape[-1] == model.bayeszi_likelihood.patterns.n_patterns  # doctest: +SKIP
     True
     """
     import pytensor
@@ -280,13 +282,26 @@ def row_log_likelihood(model: Any, posterior: Any, chunk: int = 200) -> np.ndarr
     fn = pytensor.function(inputs, lp, on_unused_input="ignore")
     arrays = [np.asarray(posterior[rv.name].values) for rv in model.free_RVs]
     chains, draws = arrays[0].shape[:2] if arrays else (0, 0)
-    out = np.empty((chains, draws, lik.patterns.n_rows))
-    inverse = lik.patterns.inverse
+    out = np.empty((chains, draws, lik.patterns.n_patterns))
     for c in range(chains):
         for d0 in range(0, draws, chunk):
             d1 = min(draws, d0 + chunk)
-            block = np.stack([fn(*(a[c, d].astype(i.dtype) for a, i in
-                                   zip(arrays, inputs, strict=True)))
-                              for d in range(d0, d1)])
-            out[c, d0:d1] = block[:, inverse]
+            out[c, d0:d1] = np.stack([fn(*(a[c, d].astype(i.dtype) for a, i in
+                                          zip(arrays, inputs, strict=True)))
+                                      for d in range(d0, d1)])
     return out
+
+
+def row_log_likelihood(model: Any, posterior: Any, chunk: int = 200) -> np.ndarray:
+    """Pointwise log-likelihood of every original record at every posterior draw: shape
+    (chain, draw, n), each record getting its pattern's value from
+    :func:`pattern_log_likelihood` (computed once per pattern).
+
+    Example
+    -------
+    >>> ll = row_log_likelihood(model, idata.posterior)           # doctest: +SKIP
+    >>> ll.shape == (2, 1000, fitted.design.n)                    # doctest: +SKIP
+    True
+    """
+    lik: Likelihood = model.bayeszi_likelihood
+    return pattern_log_likelihood(model, posterior, chunk)[..., lik.patterns.inverse]

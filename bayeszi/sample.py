@@ -168,17 +168,15 @@ def _sample_nutpie(model: pm.Model, settings: SamplerSettings, progress: bool
 
 
 def _add_log_likelihood(model: pm.Model, idata: az.InferenceData) -> None:
-    """Store the pointwise log-likelihood, one value per original record, for LOO."""
+    """Store the pointwise log-likelihood for LOO: per record, or per pattern for a very
+    large fit (see :mod:`bayeszi.loglik`)."""
     if hasattr(model, "bayeszi_likelihood"):
-        from bayeszi.patterns import row_log_likelihood
+        from bayeszi import loglik
+        from bayeszi.patterns import pattern_log_likelihood
 
-        post = idata.posterior
-        ll = row_log_likelihood(model, post)
-        obs = model.coords["obs"]
-        ds = xr.Dataset({"y": (("chain", "draw", "obs"), ll)},
-                        coords={"chain": post["chain"].values, "draw": post["draw"].values,
-                                "obs": list(obs)})
-        idata.add_groups(log_likelihood=ds)
+        ll = pattern_log_likelihood(model, idata.posterior)
+        loglik.store(idata, ll, obs=list(model.coords["obs"]),
+                     inverse=model.bayeszi_likelihood.patterns.inverse)
     else:  # a model not built by bayeszi: PyMC's own pointwise densities
         with model, _quiet_pymc():
             pm.compute_log_likelihood(idata, progressbar=False)

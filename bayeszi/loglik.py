@@ -1,0 +1,129 @@
+"""The pointwise log-likelihood that LOO needs: how a fit stores it and how it is read back.
+
+LOO needs log p(y_i | draw s) for every record ``i`` and draw ``s``. Records that share a
+pattern (:mod:`bayeszi.patterns`) have the same values, so a fit may store them once per
+pattern. :func:`store` keeps one column per record while chains x draws x records float64
+values fit in :data:`RECORD_LIMIT_BYTES`; above that, for a fit whose records pool into
+fewer patterns, it keeps one column per pattern (dim ``obs_pattern``) and, in the variable
+``obs_pattern_of`` (dim ``obs``), the pattern of every record. 200,000 records of 2 x 1,000
+draws take 3.2 GB per record but 0.2 GB for 12,600 patterns.
+
+:func:`loo` returns ArviZ's PSIS-LOO with one entry per *record* either way. Per pattern it
+runs ``arviz.loo`` on the pattern columns (the Pareto smoothing of a column depends only on
+that column, so each record gets exactly the value and Pareto k its own column would give)
+and spreads them back over the records; the total, its standard error
+``sqrt(n var(elpd_i))`` and ``p_loo = lppd - elpd`` are then computed over the records as
+``arviz.loo`` computes them. :func:`record_values` gives the per-record array for other uses.
+
+Example
+-------
+>>> import arviz as az, numpy as np, xarray as xr
+>>> rng = np.random.default_rng(1)
+>>> idata = az.from_dict(posterior={"a": rng.normal(size=(2, 50))})
+>>> pat = rng.normal(-1.0, 0.1, size=(2, 50, 3))              # 3 patterns
+>>> store(idata, pat, obs=["r1", "r2", "r3", "r4"], inverse=np.array([0, 1, 1, 2]),
+...       limit_bytes=0)
+'pattern'
+>>> record_values(idata).shape
+(2, 50, 4)
+>>> int(loo(idata).n_data_points)
+4
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+import arviz as az
+import numpy as np
+import xarray as xr
+from scipy.special import logsumexp
+
+#: Store per record while chains x draws x records float64 values take at most this many
+#: bytes (512 MiB: 2 chains x 1,000 draws x 33,500 records); per pattern above it.
+RECORD_LIMIT_BYTES = 2**29
+PATTERN_DIM = "obs_pattern"
+INDEX_VAR = "obs_pattern_of"
+
+
+def store(idata: az.InferenceData, values: np.ndarray, obs: Sequence[Any],
+          inverse: np.ndarray | None = None, limit_bytes: int | None = None) -> str:
+    """Add the log-likelihood group ``y`` to ``idata``; returns ``"record"`` or ``"pattern"``.
+
+    ``values`` has dims (chain, draw, k): per record (``inverse`` None, k = len(obs)) or per
+    pattern (``inverse[i]`` the pattern of record ``i``). Per-pattern values are spread to
+    records unless that would take more than ``limit_bytes`` (default
+    :data:`RECORD_LIMIT_BYTES`, read at call time).
+    """
+    limit = RECORD_LIMIT_BYTES if limit_bytes is None else limit_bytes
+    chain, draw = idata.posterior["chain"].values, idata.posterior["draw"].values
+    n = len(obs)
+    if inverse is not None and values.shape[-1] < n \
+            and values.shape[0] * values.shape[1] * n * 8 > limit:
+        ds = xr.Dataset(
+            {"y": (("chain", "draw", PATTERN_DIM), values),
+             INDEX_VAR: (("obs",), np.asarray(inverse, dtype=np.int64))},
+            coords={"chain": chain, "draw": draw, "obs": list(obs),
+                    PATTERN_DIM: np.arange(values.shape[-1])})
+        ds["y"].attrs["bayeszi_stored_per"] = "pattern"
+        idata.add_groups(log_likelihood=ds)
+        return "pattern"
+    if inverse is not None:  # patterns are not in record order even when none are pooled
+        values = values[..., inverse]
+    ds = xr.Dataset({"y": (("chain", "draw", "obs"), values)},
+                    coords={"chain": chain, "draw": draw, "obs": list(obs)})
+    idata.add_groups(log_likelihood=ds)
+    return "record"
+
+
+def stored_per(idata: az.InferenceData) -> str | None:
+    """``"record"``, ``"pattern"`` or None (no log-likelihood ``y`` stored)."""
+    if "log_likelihood" not in idata.groups() or "y" not in idata.log_likelihood:
+        return None
+    return "pattern" if PATTERN_DIM in idata.log_likelihood["y"].dims else "record"
+
+
+def n_records(idata: az.InferenceData) -> int | None:
+    """Number of records the stored log-likelihood covers (None when none is stored)."""
+    per = stored_per(idata)
+    if per is None:
+        return None
+    if per == "pattern":
+        return int(idata.log_likelihood[INDEX_VAR].sizes["obs"])
+    return int(idata.log_likelihood["y"].sizes.get("obs", 0))
+
+
+def record_values(idata: az.InferenceData) -> np.ndarray:
+    """The log-likelihood per record, dims (chain, draw, record), however it is stored.
+    Per pattern this builds the full array (chains x draws x records float64 values)."""
+    ll = idata.log_likelihood["y"]
+    if PATTERN_DIM not in ll.dims:
+        return np.asarray(ll.values)
+    return np.asarray(ll.values)[..., idata.log_likelihood[INDEX_VAR].values]
+
+
+def loo(idata: az.InferenceData) -> Any:
+    """PSIS-LOO (``arviz.ELPDData``, pointwise, log scale) with one entry per record."""
+    ll = idata.log_likelihood["y"]
+    if PATTERN_DIM not in ll.dims:
+        return az.loo(idata, pointwise=True, var_name="y", scale="log")
+    inverse = idata.log_likelihood[INDEX_VAR].values
+    obs = idata.log_likelihood["obs"].values
+    sub = az.InferenceData(posterior=idata.posterior,
+                           log_likelihood=xr.Dataset({"y": ll.rename({PATTERN_DIM: "obs"})}))
+    per_pattern = az.loo(sub, pointwise=True, var_name="y", scale="log")
+    values = np.asarray(ll.values)
+    samples = values.shape[0] * values.shape[1]
+    lppd_pattern = logsumexp(values.reshape(samples, -1), axis=0) - np.log(samples)
+    loo_i = np.asarray(per_pattern.loo_i.values)[inverse]
+    k = np.asarray(per_pattern.pareto_k.values)[inverse]
+    n = loo_i.size
+    out = per_pattern.copy()
+    out["elpd_loo"] = float(loo_i.sum())
+    out["se"] = float(np.sqrt(n * np.var(loo_i)))
+    out["p_loo"] = float(lppd_pattern[inverse].sum() - loo_i.sum())
+    out["n_data_points"] = n
+    out["loo_i"] = xr.DataArray(loo_i, dims=["obs"], coords={"obs": obs})
+    out["pareto_k"] = xr.DataArray(k, dims=["obs"], coords={"obs": obs})
+    return out
