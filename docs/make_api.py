@@ -51,6 +51,7 @@ PUBLIC_MODULES: dict[str, str] = {
     "bayeszi.candidates": "compare.md",
     "bayeszi.comparison": "compare.md",
     "bayeszi.compareplots": "compare.md",
+    "bayeszi.loglik": "compare.md",
     "bayeszi.checks": "checks.md",
     "bayeszi.checkplots": "checks.md",
     "bayeszi.groups": "groups.md",

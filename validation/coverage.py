@@ -195,7 +195,7 @@ def plot(summ: pd.DataFrame, path: str) -> str:
     ax.set_xlabel("share of replicates whose reported 90% interval holds the truth "
                   "(bar: 99% binomial band)", fontsize=7)
     ax.tick_params(axis="x", labelsize=7)
-    ax.legend(fontsize=6, loc="lower left")
+    ax.legend(fontsize=6, loc="upper center", bbox_to_anchor=(0.5, -0.09), ncol=1)
     fig.tight_layout()
     C.save_figure(fig, path)
     plt.close(fig)
@@ -222,6 +222,7 @@ def run(families: Sequence[str] = DEFAULT_FAMILIES, reps: int = 50, cfg: Config 
         rows = pd.read_csv(path).to_dict("records")
         done = {(r["family"], int(r["rep"])) for r in rows}
     info = C.run_info(settings)
+    C.write_json(info, info_path)  # now, so that a run cut short can be resumed
     t0 = time.perf_counter()
     for rep in range(reps):
         for family in families:

@@ -240,6 +240,7 @@ def run(families: Sequence[str] = bz.FAMILY_NAMES, groups: Sequence[bool] = (Fal
         rows = prev.to_dict("records")
         done = {(r["family"], bool(r["groups"]), int(r["rep"])) for r in rows}
     info = C.run_info(settings)
+    C.write_json(info, info_path)  # now, so that a run cut short can be resumed
     t0 = time.perf_counter()
     for rep in range(reps):
         for family in families:
