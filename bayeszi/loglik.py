@@ -55,6 +55,11 @@ def store(idata: az.InferenceData, values: np.ndarray, obs: Sequence[Any],
     pattern (``inverse[i]`` the pattern of record ``i``). Per-pattern values are spread to
     records unless that would take more than ``limit_bytes`` (default
     :data:`RECORD_LIMIT_BYTES`, read at call time).
+
+    Example
+    -------
+    >>> store(fitted.idata, ll, obs, inverse=patterns.inverse)   # doctest: +SKIP
+    'record'
     """
     limit = RECORD_LIMIT_BYTES if limit_bytes is None else limit_bytes
     chain, draw = idata.posterior["chain"].values, idata.posterior["draw"].values
@@ -78,14 +83,26 @@ def store(idata: az.InferenceData, values: np.ndarray, obs: Sequence[Any],
 
 
 def stored_per(idata: az.InferenceData) -> str | None:
-    """``"record"``, ``"pattern"`` or None (no log-likelihood ``y`` stored)."""
+    """``"record"``, ``"pattern"`` or None (no log-likelihood ``y`` stored).
+
+    Example
+    -------
+    >>> stored_per(fitted.idata)                                 # doctest: +SKIP
+    'record'
+    """
     if "log_likelihood" not in idata.groups() or "y" not in idata.log_likelihood:
         return None
     return "pattern" if PATTERN_DIM in idata.log_likelihood["y"].dims else "record"
 
 
 def n_records(idata: az.InferenceData) -> int | None:
-    """Number of records the stored log-likelihood covers (None when none is stored)."""
+    """Number of records the stored log-likelihood covers (None when none is stored).
+
+    Example
+    -------
+    >>> n_records(fitted.idata) == fitted.design.n                # doctest: +SKIP
+    True
+    """
     per = stored_per(idata)
     if per is None:
         return None
@@ -96,7 +113,13 @@ def n_records(idata: az.InferenceData) -> int | None:
 
 def record_values(idata: az.InferenceData) -> np.ndarray:
     """The log-likelihood per record, dims (chain, draw, record), however it is stored.
-    Per pattern this builds the full array (chains x draws x records float64 values)."""
+    Per pattern this builds the full array (chains x draws x records float64 values).
+
+    Example
+    -------
+    >>> record_values(fitted.idata).shape                        # doctest: +SKIP
+    (2, 1000, 200000)
+    """
     ll = idata.log_likelihood["y"]
     if PATTERN_DIM not in ll.dims:
         return np.asarray(ll.values)
@@ -104,7 +127,14 @@ def record_values(idata: az.InferenceData) -> np.ndarray:
 
 
 def loo(idata: az.InferenceData) -> Any:
-    """PSIS-LOO (``arviz.ELPDData``, pointwise, log scale) with one entry per record."""
+    """PSIS-LOO (``arviz.ELPDData``, pointwise, log scale) with one entry per record.
+
+    Example
+    -------
+    >>> elpd = loo(fitted.idata)                                  # doctest: +SKIP
+    >>> elpd.loo_i.size == fitted.design.n                        # doctest: +SKIP
+    True
+    """
     ll = idata.log_likelihood["y"]
     if PATTERN_DIM not in ll.dims:
         return az.loo(idata, pointwise=True, var_name="y", scale="log")
