@@ -2,7 +2,9 @@
 
 Coordinates: ``counts_term`` and ``zeros_term`` (formula columns), ``obs`` (rows), one per
 grouping column (its levels). Coefficients are sampled on the internal (centred, scaled)
-scale as ``counts_std_coef`` / ``zeros_std_coef``; group effects are non-centred.
+scale as ``counts_std_coef`` / ``zeros_std_coef``. Group effects are non-centred
+(``effect = sd z``), except the counts intercepts of data-rich levels (see
+:func:`centred_levels`), which are sampled centred on the counts intercept.
 
 Example
 -------
@@ -28,6 +30,11 @@ from bayeszi.design import Design, GroupDesign, PartDesign
 from bayeszi.families import get_family
 from bayeszi.patterns import Likelihood, find_patterns, pattern_logp, pattern_random
 from bayeszi.priors import Prior, PriorSet
+
+#: A level's counts intercept is sampled centred when its records' counts sum to at least
+#: this much (and the model has one grouping column, no correlated intercepts): see
+#: :func:`centred_levels` and docs/performance.md.
+CENTRE_MIN_COUNT = 30
 
 
 def _dist(name: str, p: Prior, dims: str | tuple[str, ...] | None = None,
@@ -93,11 +100,65 @@ def _slopes(part: str, pdes: PartDesign, terms: tuple[str, ...], g: GroupDesign,
     return pt.sum(slope[codes] * Xs, axis=1)
 
 
-def _group_terms(design: Design, priors: PriorSet, g: GroupDesign, eta_c, eta_z):
+def centred_levels(design: Design) -> dict[str, np.ndarray]:
+    """Per grouping column, which levels get a centred counts intercept (a boolean mask).
+
+    Non-centred effects (``effect = sd z``) sample well when a level holds little data: the
+    prior dominates. When the data pin a level's counts intercept far more tightly than the
+    group sd spreads it, the non-centred z's and the sd (and the intercept) become strongly
+    correlated and NUTS needs many short steps; sampling the level itself,
+    ``level ~ Normal(intercept, sd)``, removes that (the centred form; Papaspiliopoulos,
+    Roberts & Skold 2007, Stat. Sci., from memory). A level's counts carry about ``sum(y)``
+    units of information on its log mean (Poisson; less under overdispersion), so a level is
+    centred when its counts sum to :data:`CENTRE_MIN_COUNT` or more: its data sd on the log
+    scale, about ``1/sqrt(30) = 0.18``, is then below the group sds seen in practice. Only
+    with one grouping column, no correlated intercepts and an intercept in the counts
+    formula; the zeros part stays non-centred (one binary outcome per record carries much
+    less information; measured in docs/performance.md). The model is the same either way,
+    only its parametrisation differs.
+
+    Example
+    -------
+    >>> import pandas as pd
+    >>> from bayeszi.spec import ModelSpec
+    >>> from bayeszi.design import build_design
+    >>> df = pd.DataFrame({"y": [9, 8, 7, 9, 0, 1], "s": list("aaaabb")})
+    >>> d = build_design(df, ModelSpec(counts="y ~ 1", family="poisson", groups=("s",)))
+    >>> centred_levels(d)["s"].tolist()
+    [True, False]
+    """
+    spec = design.spec
+    if len(design.groups) != 1 or spec.correlated or design.counts.intercept is None:
+        return {}
+    g = design.groups[0]
+    total = np.bincount(g.codes, weights=design.y.astype(float), minlength=len(g.levels))
+    mask = total >= CENTRE_MIN_COUNT
+    return {g.name: mask} if mask.any() else {}
+
+
+def _counts_intercepts(g: GroupDesign, sd, intercept, centred: np.ndarray | None):
+    """Counts intercept effects of group ``g``: non-centred, or centred for the levels in
+    ``centred`` (``counts_level_{g}`` ~ Normal(intercept, sd), effect = level - intercept)."""
+    if centred is None:
+        z = pm.Normal(f"counts_z_{g.name}", 0.0, 1.0, dims=g.name)
+        return pm.Deterministic(f"counts_effect_{g.name}", sd * z, dims=g.name)
+    rich, poor = np.flatnonzero(centred), np.flatnonzero(~centred)
+    level = pm.Normal(f"counts_level_{g.name}", intercept, sd, dims=f"{g.name}_centred")
+    eff = pt.zeros(len(g.levels))
+    eff = pt.set_subtensor(eff[rich], level - intercept)
+    if poor.size:
+        z = pm.Normal(f"counts_z_{g.name}", 0.0, 1.0, dims=f"{g.name}_noncentred")
+        eff = pt.set_subtensor(eff[poor], sd * z)
+    return pm.Deterministic(f"counts_effect_{g.name}", eff, dims=g.name)
+
+
+def _group_terms(design: Design, priors: PriorSet, g: GroupDesign, eta_c, eta_z,
+                 intercept=None, centred: np.ndarray | None = None):
     """Add group ``g``'s intercepts (both parts) and varying slopes to the linear predictors.
 
-    Non-centred throughout: effect = sd * z with z ~ Normal(0, 1), which samples well when a
-    group holds few records (the usual case); ``{part}_effect_{g}`` are the effects.
+    Non-centred: effect = sd * z with z ~ Normal(0, 1), which samples well when a group
+    holds few records (the usual case), except the counts intercepts of the levels in
+    ``centred`` (:func:`centred_levels`); ``{part}_effect_{g}`` are the effects.
     """
     spec = design.spec
     codes = pt.as_tensor_variable(g.codes)
@@ -109,11 +170,12 @@ def _group_terms(design: Design, priors: PriorSet, g: GroupDesign, eta_c, eta_z)
     else:
         for part in parts:
             sd = _dist(f"{part}_sd_{g.name}", priors.group_sd[part])
-            z = pm.Normal(f"{part}_z_{g.name}", 0.0, 1.0, dims=g.name)
-            eff = pm.Deterministic(f"{part}_effect_{g.name}", sd * z, dims=g.name)
             if part == "counts":
+                eff = _counts_intercepts(g, sd, intercept, centred)
                 eta_c = eta_c + eff[codes]
             else:
+                z = pm.Normal(f"{part}_z_{g.name}", 0.0, 1.0, dims=g.name)
+                eff = pm.Deterministic(f"{part}_effect_{g.name}", sd * z, dims=g.name)
                 eta_z = eta_z + eff[codes]
     for part, terms in spec.varying.items():
         pdes = design.counts if part == "counts" else design.zeros
@@ -137,6 +199,13 @@ def build_model(design: Design, priors: PriorSet) -> pm.Model:
         coords[g.name] = g.levels
     for part, terms in spec.varying.items():
         coords[f"{part}_slope_term"] = list(terms)
+    centred = centred_levels(design)
+    for name, mask in centred.items():
+        levels = coords[name]
+        coords[f"{name}_centred"] = [lv for lv, c in zip(levels, mask, strict=True) if c]
+        if not mask.all():
+            coords[f"{name}_noncentred"] = [lv for lv, c in zip(levels, mask, strict=True)
+                                            if not c]
     # Everything below works on patterns of identical records (see bayeszi/patterns.py):
     # one row per distinct record when records repeat, else one per record, zeros first.
     patterns = find_patterns(design)
@@ -152,7 +221,9 @@ def build_model(design: Design, priors: PriorSet) -> pm.Model:
             bz = _coefficients("zeros", design.zeros, priors.zeros)
             eta_z = pt.dot(Xz, bz)
         for g in design.groups:
-            eta_c, eta_z = _group_terms(design, priors, g, eta_c, eta_z)
+            icpt = bc[design.counts.intercept] if g.name in centred else None
+            eta_c, eta_z = _group_terms(design, priors, g, eta_c, eta_z, icpt,
+                                        centred.get(g.name))
         if fam.has_dispersion:
             sqrt_alpha = _dist("dispersion_sqrt", priors.dispersion)
             log_alpha = 2.0 * pt.log(sqrt_alpha)

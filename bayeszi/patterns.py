@@ -271,14 +271,14 @@ def pattern_log_likelihood(model: Any, posterior: Any, chunk: int = 200) -> np.n
     True
     """
     import pytensor
-    from pytensor.graph.replace import graph_replace
+    from pytensor.graph.replace import clone_replace
 
     lik: Likelihood = model.bayeszi_likelihood
     lp = pattern_logp(lik.family, lik.patterns, weighted=False)(
         None, lik.eta_c, lik.eta_z, lik.log_alpha)
     # the free variables become plain inputs, fed from the posterior draws
     inputs = [rv.type(name=rv.name) for rv in model.free_RVs]
-    lp = graph_replace(lp, dict(zip(model.free_RVs, inputs, strict=True)), strict=False)
+    lp = clone_replace(lp, replace=dict(zip(model.free_RVs, inputs, strict=True)))
     fn = pytensor.function(inputs, lp, on_unused_input="ignore")
     arrays = [np.asarray(posterior[rv.name].values) for rv in model.free_RVs]
     chains, draws = arrays[0].shape[:2] if arrays else (0, 0)

@@ -206,11 +206,12 @@ def run_nuts(model: pm.Model, settings: SamplerSettings) -> az.InferenceData:
 
 
 def parameter_names(idata: az.InferenceData) -> list[str]:
-    """The posterior variables worth diagnosing (skips raw non-centred z's)."""
+    """The posterior variables worth diagnosing (skips raw non-centred z's and centred
+    levels, whose effects are diagnosed instead)."""
     names = []
     for v in idata.posterior.data_vars:
-        if "_z_" in v or v.startswith("z_") or "_chol" in v or v.endswith("_std_coef") \
-                or "_std_coef_" in v:
+        if "_z_" in v or v.startswith("z_") or "_level_" in v or "_chol" in v \
+                or v.endswith("_std_coef") or "_std_coef_" in v:
             continue
         names.append(str(v))
     return names
