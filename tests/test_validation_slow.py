@@ -11,8 +11,10 @@ Criteria (stated in validation/sbc.py, coverage.py and randhie.py, with their re
   chi-square p-value of rank uniformity over its quantities is at least 0.01;
 - coverage: per family, the Bonferroni-adjusted smallest exact binomial p-value of the
   covered count against Binomial(R, 0.9) is at least 0.01;
-- randhie (statsmodels MLE as the reference): posterior means within 0.5 posterior sd of the
-  MLE; LOO and AIC order every pair of models the same way unless LOO calls it a tie.
+- randhie (statsmodels as the reference): posterior means within 0.5 posterior sd of the
+  MLE, or, where the likelihood is not near-normal in a parameter, of the mean of its
+  profile likelihood x prior; LOO and AIC order every pair of models the same way unless
+  LOO calls it a tie.
 """
 
 from __future__ import annotations

@@ -420,6 +420,8 @@ def run(families: Sequence[str] = FAMILIES, rows: int | None = None, draws: int 
     for family in families:
         mles[family] = mle_fit(family, df)
         fits[family], records[family] = cached_fit(family, df, draws, tune, seed, cache)
+        records[family]["sampler"] = fits[family].idata.sample_stats.attrs.get(
+            "bayeszi_sampler")
         C.say(f"randhie {family}: {records[family]['seconds']:.0f} s, "
               f"{records[family]['divergences']} divergences, MLE converged: "
               f"{mles[family].converged}", quiet)
