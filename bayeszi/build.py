@@ -3,8 +3,8 @@
 Coordinates: ``counts_term`` and ``zeros_term`` (formula columns), ``obs`` (rows), one per
 grouping column (its levels). Coefficients are sampled on the internal (centred, scaled)
 scale as ``counts_std_coef`` / ``zeros_std_coef``. Group effects are non-centred
-(``effect = sd z``), except the counts intercepts of data-rich levels (see
-:func:`centred_levels`), which are sampled centred on the counts intercept.
+(``effect = sd z``), except the intercepts of data-rich levels (see
+:func:`centred_levels`), which are sampled centred on their part's intercept.
 
 Example
 -------
@@ -31,10 +31,17 @@ from bayeszi.families import get_family
 from bayeszi.patterns import Likelihood, find_patterns, pattern_logp, pattern_random
 from bayeszi.priors import Prior, PriorSet
 
-#: A level's counts intercept is sampled centred when its records' counts sum to at least
-#: this much (and the model has one grouping column, no correlated intercepts): see
-#: :func:`centred_levels` and docs/performance.md.
-CENTRE_MIN_COUNT = 30
+#: Sample data-rich levels' intercepts centred (see :func:`centred_levels`); False: never.
+CENTRING = True
+#: A level is centred when its data variance on the intercept is below the between-level
+#: variance divided by this (its data sd below half the spread of the levels).
+CENTRE_MARGIN = 4.0
+#: Levels with fewer records are never centred (measured: with 20 records per level the
+#: centred form diverged in fits where the non-centred one did not; docs/performance.md).
+CENTRE_MIN_RECORDS = 50
+#: Information on the zeros-part logit is taken as the binomial information of the zero
+#: share divided by this: extra zeros and count zeros cannot be told apart record by record.
+ZEROS_DILUTION = 4.0
 
 
 def _dist(name: str, p: Prior, dims: str | tuple[str, ...] | None = None,
@@ -100,65 +107,123 @@ def _slopes(part: str, pdes: PartDesign, terms: tuple[str, ...], g: GroupDesign,
     return pt.sum(slope[codes] * Xs, axis=1)
 
 
-def centred_levels(design: Design) -> dict[str, np.ndarray]:
-    """Per grouping column, which levels get a centred counts intercept (a boolean mask).
+def centred_levels(design: Design, part: str = "counts") -> dict[str, np.ndarray]:
+    """Per grouping column, which levels get a centred ``part`` intercept (a boolean mask).
 
     Non-centred effects (``effect = sd z``) sample well when a level holds little data: the
-    prior dominates. When the data pin a level's counts intercept far more tightly than the
-    group sd spreads it, the non-centred z's and the sd (and the intercept) become strongly
+    prior dominates. When the data pin a level's intercept far more tightly than the group
+    sd spreads it, the non-centred z's and the sd (and the intercept) become strongly
     correlated and NUTS needs many short steps; sampling the level itself,
     ``level ~ Normal(intercept, sd)``, removes that (the centred form; Papaspiliopoulos,
-    Roberts & Skold 2007, Stat. Sci., from memory). A level's counts carry about ``sum(y)``
-    units of information on its log mean (Poisson; less under overdispersion), so a level is
-    centred when its counts sum to :data:`CENTRE_MIN_COUNT` or more: its data sd on the log
-    scale, about ``1/sqrt(30) = 0.18``, is then below the group sds seen in practice. Only
-    with one grouping column, no correlated intercepts and an intercept in the counts
-    formula; the zeros part stays non-centred (one binary outcome per record carries much
-    less information; measured in docs/performance.md). The model is the same either way,
-    only its parametrisation differs.
+    Roberts & Skold 2007, Stat. Sci., from memory): better when a level's data are more
+    informative than the group-level prior, worse (a funnel, divergences) when they are not.
+    The sd is not known before sampling, so the rule estimates both sides from the data by
+    moments, ignoring covariates:
+
+    - per level a crude intercept and its sampling variance: counts part, ``log`` of the
+      level's summed count per unit of exposure ``m = sum(y) / sum(e)``, with the sandwich
+      variance ``sum((y - m e)^2) / sum(y)^2`` (which grows with overdispersion and extra
+      zeros); zeros part, the logit of the level's share of zero counts, variance
+      :data:`ZEROS_DILUTION` ``/ (n p (1 - p))`` (binomial, inflated because a zero may be
+      an ordinary count);
+    - the between-level variance, ``var(estimates) - mean(sampling variances)`` (the
+      method-of-moments estimate used in random-effects meta-analysis);
+    - a level is centred when its sampling variance is below the between-level variance
+      divided by :data:`CENTRE_MARGIN`, i.e. its data sd is below half the levels' spread,
+      and it holds at least :data:`CENTRE_MIN_RECORDS` records. Nothing is centred when
+      the spread is not clearly positive.
+
+    Only with one grouping column of at least three levels, no correlated intercepts and an
+    intercept in the part's formula. The model is the same either way; only its
+    parametrisation differs (measured in docs/performance.md).
 
     Example
     -------
     >>> import pandas as pd
     >>> from bayeszi.spec import ModelSpec
     >>> from bayeszi.design import build_design
-    >>> df = pd.DataFrame({"y": [9, 8, 7, 9, 0, 1], "s": list("aaaabb")})
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(1)
+    >>> sizes, means = [60, 10, 60, 60], [20.0, 2.0, 5.0, 12.0]
+    >>> df = pd.DataFrame({"y": np.concatenate([rng.poisson(m, k) for k, m in
+    ...                                         zip(sizes, means)]),
+    ...                    "s": np.repeat(list("abcd"), sizes)})
     >>> d = build_design(df, ModelSpec(counts="y ~ 1", family="poisson", groups=("s",)))
-    >>> centred_levels(d)["s"].tolist()
-    [True, False]
+    >>> centred_levels(d)["s"].tolist()   # b: only 10 records
+    [True, False, True, True]
     """
     spec = design.spec
-    if len(design.groups) != 1 or spec.correlated or design.counts.intercept is None:
+    pdes = design.counts if part == "counts" else design.zeros
+    if not CENTRING or len(design.groups) != 1 or spec.correlated or pdes is None \
+            or pdes.intercept is None or len(design.groups[0].levels) < 3:
         return {}
     g = design.groups[0]
-    total = np.bincount(g.codes, weights=design.y.astype(float), minlength=len(g.levels))
-    mask = total >= CENTRE_MIN_COUNT
+    J = len(g.levels)
+    y = design.y.astype(float)
+    n = np.bincount(g.codes, minlength=J).astype(float)
+    if part == "counts":
+        e = np.exp(design.log_offset)
+        total = np.bincount(g.codes, weights=y, minlength=J) + 0.5
+        m = total / np.bincount(g.codes, weights=e, minlength=J)
+        est = np.log(m)
+        var = (np.bincount(g.codes, weights=(y - m[g.codes] * e) ** 2, minlength=J)
+               + 0.5) / total**2
+    else:
+        p = (np.bincount(g.codes, weights=(y == 0).astype(float), minlength=J) + 0.5) / (n + 1)
+        est = np.log(p / (1 - p))
+        var = ZEROS_DILUTION / ((n + 1) * p * (1 - p))
+    between = float(np.var(est, ddof=1) - np.mean(var))
+    if not between > 0:
+        return {}
+    mask = (var < between / CENTRE_MARGIN) & (n >= CENTRE_MIN_RECORDS)
     return {g.name: mask} if mask.any() else {}
 
 
-def _counts_intercepts(g: GroupDesign, sd, intercept, centred: np.ndarray | None):
-    """Counts intercept effects of group ``g``: non-centred, or centred for the levels in
-    ``centred`` (``counts_level_{g}`` ~ Normal(intercept, sd), effect = level - intercept)."""
+def group_level_columns(pdes: PartDesign, g: GroupDesign) -> tuple[np.ndarray, np.ndarray]:
+    """Columns of ``pdes`` (intercept excluded) constant within every level of ``g`` (group-
+    level predictors such as a reach's barrier), and their value per level.
+
+    Example
+    -------
+    >>> d = fitted.design                                      # doctest: +SKIP
+    >>> cols, values = group_level_columns(d.zeros, d.groups[0])  # doctest: +SKIP
+    """
+    X = pdes.X_std
+    first = np.full(len(g.levels), -1)
+    first[g.codes[::-1]] = np.arange(g.codes.size)[::-1]
+    cols = [j for j in range(X.shape[1]) if j != pdes.intercept
+            and np.allclose(X[:, j], X[first, j][g.codes], rtol=0, atol=1e-12)]
+    cols_arr = np.asarray(cols, dtype=int)
+    return cols_arr, X[np.ix_(first, cols_arr)]
+
+
+def _intercepts(part: str, g: GroupDesign, sd, centre, centred: np.ndarray | None):
+    """Intercept effects of group ``g`` in ``part``: non-centred, or centred for the levels
+    in ``centred``: ``{part}_level_{g}`` ~ Normal(centre, sd) and effect = level - centre,
+    with ``centre`` (one value per level) the part's intercept plus its group-level
+    predictors (:func:`group_level_columns`)."""
     if centred is None:
-        z = pm.Normal(f"counts_z_{g.name}", 0.0, 1.0, dims=g.name)
-        return pm.Deterministic(f"counts_effect_{g.name}", sd * z, dims=g.name)
+        z = pm.Normal(f"{part}_z_{g.name}", 0.0, 1.0, dims=g.name)
+        return pm.Deterministic(f"{part}_effect_{g.name}", sd * z, dims=g.name)
     rich, poor = np.flatnonzero(centred), np.flatnonzero(~centred)
-    level = pm.Normal(f"counts_level_{g.name}", intercept, sd, dims=f"{g.name}_centred")
+    level = pm.Normal(f"{part}_level_{g.name}", centre[rich], sd,
+                      dims=f"{part}_{g.name}_centred")
     eff = pt.zeros(len(g.levels))
-    eff = pt.set_subtensor(eff[rich], level - intercept)
+    eff = pt.set_subtensor(eff[rich], level - centre[rich])
     if poor.size:
-        z = pm.Normal(f"counts_z_{g.name}", 0.0, 1.0, dims=f"{g.name}_noncentred")
+        z = pm.Normal(f"{part}_z_{g.name}", 0.0, 1.0, dims=f"{part}_{g.name}_noncentred")
         eff = pt.set_subtensor(eff[poor], sd * z)
-    return pm.Deterministic(f"counts_effect_{g.name}", eff, dims=g.name)
+    return pm.Deterministic(f"{part}_effect_{g.name}", eff, dims=g.name)
 
 
 def _group_terms(design: Design, priors: PriorSet, g: GroupDesign, eta_c, eta_z,
-                 intercept=None, centred: np.ndarray | None = None):
+                 centres: dict | None = None, centred: dict | None = None):
     """Add group ``g``'s intercepts (both parts) and varying slopes to the linear predictors.
 
     Non-centred: effect = sd * z with z ~ Normal(0, 1), which samples well when a group
-    holds few records (the usual case), except the counts intercepts of the levels in
-    ``centred`` (:func:`centred_levels`); ``{part}_effect_{g}`` are the effects.
+    holds few records (the usual case), except the intercepts of the levels in
+    ``centred[part]`` (:func:`centred_levels`), centred on ``centres[part]``;
+    ``{part}_effect_{g}`` are the effects.
     """
     spec = design.spec
     codes = pt.as_tensor_variable(g.codes)
@@ -170,12 +235,11 @@ def _group_terms(design: Design, priors: PriorSet, g: GroupDesign, eta_c, eta_z,
     else:
         for part in parts:
             sd = _dist(f"{part}_sd_{g.name}", priors.group_sd[part])
+            mask = (centred or {}).get(part)
+            eff = _intercepts(part, g, sd, (centres or {}).get(part), mask)
             if part == "counts":
-                eff = _counts_intercepts(g, sd, intercept, centred)
                 eta_c = eta_c + eff[codes]
             else:
-                z = pm.Normal(f"{part}_z_{g.name}", 0.0, 1.0, dims=g.name)
-                eff = pm.Deterministic(f"{part}_effect_{g.name}", sd * z, dims=g.name)
                 eta_z = eta_z + eff[codes]
     for part, terms in spec.varying.items():
         pdes = design.counts if part == "counts" else design.zeros
@@ -199,13 +263,23 @@ def build_model(design: Design, priors: PriorSet) -> pm.Model:
         coords[g.name] = g.levels
     for part, terms in spec.varying.items():
         coords[f"{part}_slope_term"] = list(terms)
-    centred = centred_levels(design)
-    for name, mask in centred.items():
-        levels = coords[name]
-        coords[f"{name}_centred"] = [lv for lv, c in zip(levels, mask, strict=True) if c]
-        if not mask.all():
-            coords[f"{name}_noncentred"] = [lv for lv, c in zip(levels, mask, strict=True)
-                                            if not c]
+    centred = {part: centred_levels(design, part) for part in ("counts", "zeros")}
+    for part, masks in centred.items():
+        for name, mask in masks.items():
+            levels = coords[name]
+            coords[f"{part}_{name}_centred"] = [lv for lv, c in zip(levels, mask, strict=True)
+                                                if c]
+            if not mask.all():
+                coords[f"{part}_{name}_noncentred"] = [
+                    lv for lv, c in zip(levels, mask, strict=True) if not c]
+    # centred levels are centred on the intercept plus the group-level predictors
+    level_cols = {}
+    for part, masks in centred.items():
+        pdes = design.counts if part == "counts" else design.zeros
+        for name in masks:
+            g = next(gr for gr in design.groups if gr.name == name)
+            cols, values = group_level_columns(pdes, g)
+            level_cols[part] = (cols, values, pdes.intercept)
     # Everything below works on patterns of identical records (see bayeszi/patterns.py):
     # one row per distinct record when records repeat, else one per record, zeros first.
     patterns = find_patterns(design)
@@ -216,14 +290,19 @@ def build_model(design: Design, priors: PriorSet) -> pm.Model:
         bc = _coefficients("counts", design.counts, priors.counts)
         eta_c = pt.dot(Xc, bc) + pt.as_tensor_variable(design.log_offset)
         eta_z = pt.as_tensor_variable(np.zeros(1))
+        bz = None
         if design.zeros is not None:
             Xz = pt.as_tensor_variable(design.zeros.X_std)
             bz = _coefficients("zeros", design.zeros, priors.zeros)
             eta_z = pt.dot(Xz, bz)
         for g in design.groups:
-            icpt = bc[design.counts.intercept] if g.name in centred else None
-            eta_c, eta_z = _group_terms(design, priors, g, eta_c, eta_z, icpt,
-                                        centred.get(g.name))
+            masks = {part: m[g.name] for part, m in centred.items() if g.name in m}
+            icpts = {}
+            for part, coef in (("counts", bc), ("zeros", bz)):
+                if part in masks:
+                    icpts[part] = coef[level_cols[part][2]] + pt.dot(
+                        pt.as_tensor_variable(level_cols[part][1]), coef[level_cols[part][0]])
+            eta_c, eta_z = _group_terms(design, priors, g, eta_c, eta_z, icpts, masks)
         if fam.has_dispersion:
             sqrt_alpha = _dist("dispersion_sqrt", priors.dispersion)
             log_alpha = 2.0 * pt.log(sqrt_alpha)

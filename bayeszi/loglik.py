@@ -8,12 +8,13 @@ fewer patterns, it keeps one column per pattern (dim ``obs_pattern``) and, in th
 ``obs_pattern_of`` (dim ``obs``), the pattern of every record. 200,000 records of 2 x 1,000
 draws take 3.2 GB per record but 0.2 GB for 12,600 patterns.
 
-:func:`loo` returns ArviZ's PSIS-LOO with one entry per *record* either way. Per pattern it
-runs ``arviz.loo`` on the pattern columns (the Pareto smoothing of a column depends only on
-that column, so each record gets exactly the value and Pareto k its own column would give)
-and spreads them back over the records; the total, its standard error
-``sqrt(n var(elpd_i))`` and ``p_loo = lppd - elpd`` are then computed over the records as
-``arviz.loo`` computes them. :func:`record_values` gives the per-record array for other uses.
+:func:`loo` returns ArviZ's PSIS-LOO with one entry per *record* either way, computed as
+``arviz.loo`` computes it but a chunk of columns at a time (``arviz.psislw`` per chunk), so
+its memory does not grow with the number of records. Per pattern each pattern's column is
+smoothed once (the Pareto smoothing of a column depends only on that column, so each record
+gets exactly the value and Pareto k its own column would give) and spread back over the
+records; the total, its standard error ``sqrt(n var(elpd_i))`` and ``p_loo = lppd - elpd``
+are computed over the records. :func:`record_values` gives the per-record array for other uses.
 
 Example
 -------
@@ -32,6 +33,7 @@ Example
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Sequence
 from typing import Any
 
@@ -43,6 +45,8 @@ from scipy.special import logsumexp
 #: Store per record while chains x draws x records float64 values take at most this many
 #: bytes (512 MiB: 2 chains x 1,000 draws x 33,500 records); per pattern above it.
 RECORD_LIMIT_BYTES = 2**29
+#: Columns of the log-likelihood smoothed at a time by :func:`loo`.
+LOO_CHUNK = 2000
 PATTERN_DIM = "obs_pattern"
 INDEX_VAR = "obs_pattern_of"
 
@@ -126,8 +130,23 @@ def record_values(idata: az.InferenceData) -> np.ndarray:
     return np.asarray(ll.values)[..., idata.log_likelihood[INDEX_VAR].values]
 
 
-def loo(idata: az.InferenceData) -> Any:
+def _reff(idata: az.InferenceData, n_samples: int) -> float:
+    """Relative efficiency as ``arviz.loo`` computes it: mean ESS over the posterior / S."""
+    posterior = idata.posterior
+    if len(posterior.chain) == 1:
+        return 1.0
+    ess_p = az.ess(posterior, method="mean")
+    return float(np.hstack([ess_p[v].values.flatten() for v in ess_p.data_vars]).mean()
+                 / n_samples)
+
+
+def loo(idata: az.InferenceData, chunk: int = LOO_CHUNK) -> Any:
     """PSIS-LOO (``arviz.ELPDData``, pointwise, log scale) with one entry per record.
+
+    The same numbers as ``arviz.loo(idata, pointwise=True, var_name="y")`` on the
+    per-record array, computed ``chunk`` columns at a time (Pareto smoothing,
+    ``arviz.psislw``, works column by column), so memory stays near one chunk's worth
+    however many records there are; per pattern, each pattern is smoothed once.
 
     Example
     -------
@@ -135,25 +154,38 @@ def loo(idata: az.InferenceData) -> Any:
     >>> elpd.loo_i.size == fitted.design.n                        # doctest: +SKIP
     True
     """
+    from arviz.stats.stats_utils import ELPDData
+
     ll = idata.log_likelihood["y"]
-    if PATTERN_DIM not in ll.dims:
-        return az.loo(idata, pointwise=True, var_name="y", scale="log")
-    inverse = idata.log_likelihood[INDEX_VAR].values
-    obs = idata.log_likelihood["obs"].values
-    sub = az.InferenceData(posterior=idata.posterior,
-                           log_likelihood=xr.Dataset({"y": ll.rename({PATTERN_DIM: "obs"})}))
-    per_pattern = az.loo(sub, pointwise=True, var_name="y", scale="log")
+    per_pattern = PATTERN_DIM in ll.dims
     values = np.asarray(ll.values)
-    samples = values.shape[0] * values.shape[1]
-    lppd_pattern = logsumexp(values.reshape(samples, -1), axis=0) - np.log(samples)
-    loo_i = np.asarray(per_pattern.loo_i.values)[inverse]
-    k = np.asarray(per_pattern.pareto_k.values)[inverse]
+    chains, draws, m = values.shape
+    samples = chains * draws
+    reff = _reff(idata, samples)
+    loo_cols, k_cols, lppd_cols = np.empty(m), np.empty(m), np.empty(m)
+    for c0 in range(0, m, chunk):
+        block = values[..., c0:c0 + chunk].reshape(samples, -1).T  # (columns, samples)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            lw, k = az.psislw(-block, reff)
+        loo_cols[c0:c0 + chunk] = logsumexp(lw + block, axis=1)
+        k_cols[c0:c0 + chunk] = k
+        lppd_cols[c0:c0 + chunk] = logsumexp(block, axis=1) - np.log(samples)
+        del block, lw
+    if per_pattern:
+        inverse = idata.log_likelihood[INDEX_VAR].values
+        loo_i, k, lppd_i = loo_cols[inverse], k_cols[inverse], lppd_cols[inverse]
+    else:
+        loo_i, k, lppd_i = loo_cols, k_cols, lppd_cols
+    obs = idata.log_likelihood["obs"].values
     n = loo_i.size
-    out = per_pattern.copy()
-    out["elpd_loo"] = float(loo_i.sum())
-    out["se"] = float(np.sqrt(n * np.var(loo_i)))
-    out["p_loo"] = float(lppd_pattern[inverse].sum() - loo_i.sum())
-    out["n_data_points"] = n
-    out["loo_i"] = xr.DataArray(loo_i, dims=["obs"], coords={"obs": obs})
-    out["pareto_k"] = xr.DataArray(k, dims=["obs"], coords={"obs": obs})
-    return out
+    good_k = min(1 - 1 / np.log10(samples), 0.7)
+    elpd = float(loo_i.sum())
+    return ELPDData(
+        data=[elpd, float(np.sqrt(n * np.var(loo_i))), float(lppd_i.sum() - elpd), samples,
+              n, bool(np.any(k > good_k)),
+              xr.DataArray(loo_i, dims=["obs"], coords={"obs": obs}, name="loo_i"),
+              xr.DataArray(k, dims=["obs"], coords={"obs": obs}, name="pareto_shape"),
+              "log", good_k],
+        index=["elpd_loo", "se", "p_loo", "n_samples", "n_data_points", "warning", "loo_i",
+               "pareto_k", "scale", "good_k"])

@@ -1,4 +1,4 @@
-"""Centred counts intercepts for data-rich levels (bayeszi.build.centred_levels): the same
+"""Centred intercepts for data-rich levels (bayeszi.build.centred_levels): the same
 model as the non-centred form, only sampled differently. Checked here: which levels are
 centred, that the stored log-likelihood equals the family's density rebuilt from the draws,
 and that the posterior agrees with the non-centred fit of the same data within Monte Carlo
@@ -23,14 +23,15 @@ from bayeszi.spec import ModelSpec
 
 
 def _sites(seed: int = 21) -> pd.DataFrame:
-    """Six sites: four with many visits and high counts, two with a few low counts."""
+    """Six sites: four with many visits and high counts, one with many visits and low
+    counts, one with four visits."""
     rng = np.random.default_rng(seed)
-    visits = np.r_[[40] * 4, [4] * 2]
+    visits = np.r_[[80] * 4, 60, 4]
     site = np.repeat([f"s{i}" for i in range(6)], visits)
     effect = dict(zip([f"s{i}" for i in range(6)], rng.normal(0, 0.5, 6), strict=True))
     x = rng.normal(size=site.size)
     mu = np.exp(1.2 + 0.4 * x + np.array([effect[s] for s in site]))
-    mu[np.isin(site, ["s4", "s5"])] *= 0.3
+    mu[site == "s4"] *= 0.3
     y = rng.negative_binomial(4, 4 / (4 + mu))
     return pd.DataFrame({"y": y, "x": x, "site": site})
 
@@ -43,18 +44,30 @@ def _fit(df: pd.DataFrame, seed: int = 3):
 
 
 def test_which_levels_are_centred():
+    """The documented moment rule (bayeszi.build.centred_levels), recomputed here: per site
+    m = (sum(y) + 0.5) / visits and v = (sum((y - m)^2) + 0.5) / (sum(y) + 0.5)^2; a site is
+    centred when v < (var(log m) - mean(v)) / 4 and it has at least 50 records."""
     df = _sites()
-    totals = df.groupby("site")["y"].sum()
+    by = df.groupby("site", sort=True)
+    total = by["y"].sum().to_numpy() + 0.5
+    size = by.size().to_numpy()
+    m = total / size
+    v = np.array([((grp["y"] - mj) ** 2).sum() + 0.5 for (_, grp), mj in zip(by, m,
+                                                                          strict=True)])
+    v = v / total**2
+    between = np.var(np.log(m), ddof=1) - np.mean(v)
     d = build_design(df, ModelSpec(counts="y ~ x", zeros=None, family="negbin",
                                    groups=("site",)))
     mask = build.centred_levels(d)["site"]
-    np.testing.assert_array_equal(mask, (totals >= build.CENTRE_MIN_COUNT).to_numpy())
-    assert mask[:4].all() and not mask[4:].any(), totals
+    np.testing.assert_array_equal(mask, (v < between / build.CENTRE_MARGIN)
+                                  & (size >= build.CENTRE_MIN_RECORDS))
+    assert mask[:4].all() and not mask[5], (total, v, between)  # s5: 4 records
     model = build.build_model(d, resolve(d, None))
     free = {v.name for v in model.free_RVs}
     assert {"counts_level_site", "counts_z_site"} <= free
-    assert list(model.coords["site_centred"]) == ["s0", "s1", "s2", "s3"]
-    assert list(model.coords["site_noncentred"]) == ["s4", "s5"]
+    levels = np.array([f"s{i}" for i in range(6)])
+    assert list(model.coords["counts_site_centred"]) == list(levels[mask])
+    assert list(model.coords["counts_site_noncentred"]) == list(levels[~mask])
     # never with two grouping columns or correlated intercepts
     df["season"] = np.resize(["a", "b", "c"], len(df))
     with warnings.catch_warnings():
@@ -73,7 +86,7 @@ def test_centred_fit_matches_noncentred_fit(monkeypatch, cached_fit):
     ll = get_family("negbin").logpmf(centred.design.y, lp.counts, lp.zeros, lp.log_alpha)
     stored = centred.idata.log_likelihood["y"].values.reshape(ll.shape)
     np.testing.assert_allclose(ll, stored, rtol=1e-9, atol=1e-9)
-    monkeypatch.setattr(build, "CENTRE_MIN_COUNT", np.inf)
+    monkeypatch.setattr(build, "CENTRING", False)
     plain = _fit(df, seed=4)
     assert "counts_level_site" not in plain.idata.posterior
     for var in ("counts_coef", "counts_sd_site", "counts_effect_site", "dispersion"):
@@ -97,3 +110,28 @@ def test_new_site_prediction_is_wider_than_a_known_rich_site(cached_fit):
                         seed=1)
     assert np.isfinite(new["sd"].iloc[0]) and np.isfinite(known["sd"].iloc[0])
     assert new["sd"].iloc[0] > 2 * known["sd"].iloc[0]
+
+
+def test_no_centring_without_spread_and_zeros_part_centred_on_group_predictors():
+    """Levels that do not differ (between-level variance not positive) stay non-centred; a
+    data-rich zeros part is centred on its intercept plus the group-level predictor."""
+    rng = np.random.default_rng(5)
+    n = 3000
+    site = rng.integers(0, 6, n)
+    flat = pd.DataFrame({"y": rng.poisson(3.0, n), "site": [f"s{i}" for i in site]})
+    d = build_design(flat, ModelSpec(counts="y ~ 1", family="poisson", groups=("site",)))
+    assert build.centred_levels(d) == {}
+    barrier = (site % 2).astype(float)
+    extra = rng.random(n) < 1 / (1 + np.exp(-(-1.5 + 2.0 * barrier + rng.normal(0, 0.5, 6)[site])))
+    y = np.where(extra, 0, rng.poisson(np.exp(1.0 + rng.normal(0, 0.5, 6)[site])))
+    df = pd.DataFrame({"y": y, "barrier": barrier, "site": [f"s{i}" for i in site]})
+    d = build_design(df, ModelSpec(counts="y ~ 1", zeros="~ barrier", family="zip",
+                                   groups=("site",)))
+    assert build.centred_levels(d, "zeros")["site"].all()
+    cols, values = build.group_level_columns(d.zeros, d.groups[0])
+    assert cols.tolist() == [d.zeros.terms.index("barrier")]
+    np.testing.assert_allclose(values[:, 0], d.zeros.X_std[:, cols[0]][
+        [int(np.flatnonzero(d.groups[0].codes == j)[0]) for j in range(6)]])
+    model = build.build_model(d, resolve(d, None))
+    assert {"zeros_level_site", "counts_level_site"} <= {v.name for v in model.free_RVs}
+    assert np.isfinite(model.compile_logp()(model.initial_point()))

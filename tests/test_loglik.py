@@ -42,12 +42,16 @@ def test_loo_per_pattern_equals_arviz_per_record():
         warnings.simplefilter("ignore")
         got = loglik.loo(idata_p)
         ref = az.loo(idata_r, pointwise=True, var_name="y", scale="log")
-    for key in ("elpd_loo", "se", "p_loo"):
-        assert got[key] == pytest.approx(ref[key], rel=1e-12, abs=1e-12), key
-    assert got.n_data_points == ref.n_data_points == 90
-    np.testing.assert_allclose(got.loo_i.values, ref.loo_i.values, rtol=1e-12)
-    np.testing.assert_allclose(got.pareto_k.values, ref.pareto_k.values, rtol=1e-12)
-    assert bool(got.warning) == bool(ref.warning)
+        chunked = [loglik.loo(idata_p, chunk=5), loglik.loo(idata_r, chunk=7),
+                   loglik.loo(idata_r)]
+    for est in (got, *chunked):
+        for key in ("elpd_loo", "se", "p_loo"):
+            assert est[key] == pytest.approx(ref[key], rel=1e-12, abs=1e-12), key
+        assert est.n_data_points == ref.n_data_points == 90
+        assert est.n_samples == ref.n_samples and est.good_k == ref.good_k
+        np.testing.assert_allclose(est.loo_i.values, ref.loo_i.values, rtol=1e-12)
+        np.testing.assert_allclose(est.pareto_k.values, ref.pareto_k.values, rtol=1e-12)
+        assert bool(est.warning) == bool(ref.warning)
     assert (ref.pareto_k.values > 0.7).any()  # the heavy columns do exercise high k
 
 
