@@ -288,6 +288,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     ap.add_argument("--draws", type=int, default=Config.draws)
     ap.add_argument("--tune", type=int, default=Config.tune)
     ap.add_argument("--seed", type=int, default=Config.seed)
+    ap.add_argument("--group-rows", type=int, default=Config.group_rows,
+                    help="records per data set with groups (6 sites)")
     ap.add_argument("--out", default=C.RESULTS)
     ap.add_argument("--resume", action="store_true", help="continue an interrupted run")
     ap.add_argument("--summarise-only", action="store_true",
@@ -297,8 +299,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     if a.summarise_only:
         res = summarise(out=a.out)
     else:
-        res = run(a.families, g, a.reps, Config(draws=a.draws, tune=a.tune, seed=a.seed),
-                  a.out, a.resume)
+        res = run(a.families, g, a.reps, Config(draws=a.draws, tune=a.tune, seed=a.seed,
+                                                group_rows=a.group_rows), a.out, a.resume)
     with pd.option_context("display.width", 200, "display.max_columns", 20):
         print(res["families"].to_string(index=False))
     return 0 if (res["families"]["verdict"] == "pass").all() else 1
