@@ -205,16 +205,24 @@ def run_nuts(model: pm.Model, settings: SamplerSettings) -> az.InferenceData:
     return idata
 
 
+#: Name prefixes of the raw variables bayeszi.build samples for group effects (standard
+#: normals, correlation transforms, centred levels); their effects are diagnosed instead.
+_RAW_PREFIXES = tuple(f"{part}_{kind}_" for part in ("counts", "zeros")
+                      for kind in ("z", "slope_z", "level")) + ("z_",)
+
+
 def parameter_names(idata: az.InferenceData) -> list[str]:
     """The posterior variables worth diagnosing (skips raw non-centred z's and centred
     levels, whose effects are diagnosed instead)."""
     names = []
-    for v in idata.posterior.data_vars:
-        if "_z_" in v or v.startswith("z_") or "_level_" in v or "_chol" in v \
-                or v.endswith("_std_coef") or "_std_coef_" in v:
+    for v in map(str, idata.posterior.data_vars):
+        # by prefix: a grouping column's own name (say 'zone_z_1') must not hide its effects
+        if v.startswith(_RAW_PREFIXES) or "_chol" in v or v.endswith("_std_coef") \
+                or "_std_coef_" in v:
             continue
-        names.append(str(v))
+        names.append(v)
     return names
+
 
 
 def diagnose(idata: az.InferenceData, thresholds: Thresholds | None = None) -> dict:

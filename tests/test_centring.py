@@ -166,3 +166,17 @@ def test_varying_slope_with_centred_intercepts_builds():
     free = {v.name for v in model.free_RVs}
     assert {"counts_level_site", "counts_slope_z_site"} <= free
     assert np.isfinite(model.compile_logp()(model.initial_point()))
+
+
+def test_diagnostics_skip_raw_variables_by_name_prefix():
+    """Raw sampler variables (z's, centred levels, correlation transforms) are left out of
+    the diagnostics table by their exact prefixes; a grouping column whose own name holds
+    '_z_' or '_level_' keeps its effects and sds in the table."""
+    from bayeszi.sample import parameter_names
+
+    names = ["counts_z_site", "zeros_slope_z_site", "counts_level_site", "z_corr_site",
+             "counts_effect_zone_z_1", "counts_sd_water_level_x", "counts_coef",
+             "counts_std_coef"]
+    idata = az.from_dict(posterior={v: np.zeros((2, 5)) for v in names})
+    assert parameter_names(idata) == ["counts_effect_zone_z_1", "counts_sd_water_level_x",
+                                      "counts_coef"]
