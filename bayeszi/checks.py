@@ -654,20 +654,14 @@ RESIDUAL_METHODS = ("posterior", "loo")
 
 
 def _relative_efficiency(fitted: FittedModel) -> float:
-    """Mean relative ESS (ess / draws) of the posterior, as ArviZ's ``loo`` computes it."""
-    import arviz as az
+    """Mean relative ESS (ess / draws) of the posterior, as ArviZ's ``loo`` computes it
+    (:func:`bayeszi.loglik.relative_efficiency`), at most 1."""
+    from bayeszi.loglik import relative_efficiency
 
     post = fitted.idata.posterior
     if post.sizes["chain"] * post.sizes["draw"] < 8:
         return 1.0
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        ess = az.ess(post, method="mean")
-    vals = np.hstack([np.asarray(ess[v]).ravel() for v in ess.data_vars])
-    vals = vals[np.isfinite(vals)]
-    if vals.size == 0:
-        return 1.0
-    return float(min(vals.mean() / (post.sizes["chain"] * post.sizes["draw"]), 1.0))
+    return min(relative_efficiency(post), 1.0)
 
 
 def residuals(fitted: FittedModel, method: str = "posterior",

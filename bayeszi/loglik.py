@@ -75,7 +75,6 @@ def store(idata: az.InferenceData, values: np.ndarray, obs: Sequence[Any],
              INDEX_VAR: (("obs",), np.asarray(inverse, dtype=np.int64))},
             coords={"chain": chain, "draw": draw, "obs": list(obs),
                     PATTERN_DIM: np.arange(values.shape[-1])})
-        ds["y"].attrs["bayeszi_stored_per"] = "pattern"
         idata.add_groups(log_likelihood=ds)
         return "pattern"
     if inverse is not None:  # patterns are not in record order even when none are pooled
@@ -130,14 +129,24 @@ def record_values(idata: az.InferenceData) -> np.ndarray:
     return np.asarray(ll.values)[..., idata.log_likelihood[INDEX_VAR].values]
 
 
-def _reff(idata: az.InferenceData, n_samples: int) -> float:
-    """Relative efficiency as ``arviz.loo`` computes it: mean ESS over the posterior / S."""
-    posterior = idata.posterior
-    if len(posterior.chain) == 1:
+def relative_efficiency(posterior: xr.Dataset) -> float:
+    """Mean ESS over every posterior variable divided by the number of draws, as
+    ``arviz.loo`` computes it for PSIS; non-finite ESS values (a constant variable) are left
+    out, and 1.0 is returned when none remain.
+
+    Example
+    -------
+    >>> relative_efficiency(fitted.idata.posterior)               # doctest: +SKIP
+    0.61
+    """
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ess = az.ess(posterior, method="mean")
+    vals = np.hstack([np.asarray(ess[v]).ravel() for v in ess.data_vars])
+    vals = vals[np.isfinite(vals)]
+    if vals.size == 0:
         return 1.0
-    ess_p = az.ess(posterior, method="mean")
-    return float(np.hstack([ess_p[v].values.flatten() for v in ess_p.data_vars]).mean()
-                 / n_samples)
+    return float(vals.mean() / (posterior.sizes["chain"] * posterior.sizes["draw"]))
 
 
 def loo(idata: az.InferenceData, chunk: int = LOO_CHUNK) -> Any:
@@ -161,7 +170,7 @@ def loo(idata: az.InferenceData, chunk: int = LOO_CHUNK) -> Any:
     values = np.asarray(ll.values)
     chains, draws, m = values.shape
     samples = chains * draws
-    reff = _reff(idata, samples)
+    reff = 1.0 if chains == 1 else relative_efficiency(idata.posterior)
     loo_cols, k_cols, lppd_cols = np.empty(m), np.empty(m), np.empty(m)
     for c0 in range(0, m, chunk):
         block = values[..., c0:c0 + chunk].reshape(samples, -1).T  # (columns, samples)

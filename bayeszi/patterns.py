@@ -158,7 +158,7 @@ def pattern_logp(family: str, patterns: Patterns, weighted: bool = True
     one entry per pattern. With ``weighted=True`` (the model's density) each pattern's value
     is multiplied by its number of records, so the values sum to the log-likelihood of all
     records at O(patterns) cost; with ``weighted=False`` it is the log density of one record
-    of each pattern (:func:`row_log_likelihood` looks it up per record). The observed counts
+    of each pattern (:func:`pattern_log_likelihood` computes it per pattern). The observed counts
     are built in (``value`` is not read): PyMC calls the density of an observed variable only
     at its observed value.
 
@@ -246,7 +246,7 @@ def pattern_random(family: str, patterns: Patterns) -> Callable[..., np.ndarray]
 
 @dataclass
 class Likelihood:
-    """What :func:`row_log_likelihood` needs from a built model (kept on the model)."""
+    """What :func:`pattern_log_likelihood` needs from a built model (kept on the model)."""
 
     family: str
     patterns: Patterns
@@ -262,7 +262,7 @@ def pattern_log_likelihood(model: Any, posterior: Any, chunk: int = 200) -> np.n
     :class:`Likelihood` as ``model.bayeszi_likelihood``), ``posterior`` an xarray Dataset
     holding its free variables with dims (chain, draw, ...). Returns an array of shape
     (chain, draw, n_patterns); ``model.bayeszi_likelihood.patterns.inverse`` maps records to
-    patterns (see :func:`row_log_likelihood` and :mod:`bayeszi.loglik`).
+    patterns (see :mod:`bayeszi.loglik`).
 
     Example
     -------
@@ -291,17 +291,3 @@ def pattern_log_likelihood(model: Any, posterior: Any, chunk: int = 200) -> np.n
                                       for d in range(d0, d1)])
     return out
 
-
-def row_log_likelihood(model: Any, posterior: Any, chunk: int = 200) -> np.ndarray:
-    """Pointwise log-likelihood of every original record at every posterior draw: shape
-    (chain, draw, n), each record getting its pattern's value from
-    :func:`pattern_log_likelihood` (computed once per pattern).
-
-    Example
-    -------
-    >>> ll = row_log_likelihood(model, idata.posterior)           # doctest: +SKIP
-    >>> ll.shape == (2, 1000, fitted.design.n)                    # doctest: +SKIP
-    True
-    """
-    lik: Likelihood = model.bayeszi_likelihood
-    return pattern_log_likelihood(model, posterior, chunk)[..., lik.patterns.inverse]
