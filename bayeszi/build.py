@@ -197,6 +197,13 @@ def group_level_columns(pdes: PartDesign, g: GroupDesign) -> tuple[np.ndarray, n
     return cols_arr, X[np.ix_(first, cols_arr)]
 
 
+def _level_centre(pdes: PartDesign, coef, g: GroupDesign):
+    """Per level of ``g``: the part's intercept plus its group-level predictors (the centre
+    of a centred level), as a tensor of the coefficients ``coef``."""
+    cols, values = group_level_columns(pdes, g)
+    return coef[pdes.intercept] + pt.dot(pt.as_tensor_variable(values), coef[cols])
+
+
 def _intercepts(part: str, g: GroupDesign, sd, centre, centred: np.ndarray | None):
     """Intercept effects of group ``g`` in ``part``: non-centred, or centred for the levels
     in ``centred``: ``{part}_level_{g}`` ~ Normal(centre, sd) and effect = level - centre,
@@ -263,23 +270,14 @@ def build_model(design: Design, priors: PriorSet) -> pm.Model:
         coords[g.name] = g.levels
     for part, terms in spec.varying.items():
         coords[f"{part}_slope_term"] = list(terms)
+    # which levels get centred intercepts: decided on the records, before pooling
     centred = {part: centred_levels(design, part) for part in ("counts", "zeros")}
     for part, masks in centred.items():
         for name, mask in masks.items():
-            levels = coords[name]
-            coords[f"{part}_{name}_centred"] = [lv for lv, c in zip(levels, mask, strict=True)
-                                                if c]
+            levels = np.asarray(coords[name], dtype=object)
+            coords[f"{part}_{name}_centred"] = list(levels[mask])
             if not mask.all():
-                coords[f"{part}_{name}_noncentred"] = [
-                    lv for lv, c in zip(levels, mask, strict=True) if not c]
-    # centred levels are centred on the intercept plus the group-level predictors
-    level_cols = {}
-    for part, masks in centred.items():
-        pdes = design.counts if part == "counts" else design.zeros
-        for name in masks:
-            g = next(gr for gr in design.groups if gr.name == name)
-            cols, values = group_level_columns(pdes, g)
-            level_cols[part] = (cols, values, pdes.intercept)
+                coords[f"{part}_{name}_noncentred"] = list(levels[~mask])
     # Everything below works on patterns of identical records (see bayeszi/patterns.py):
     # one row per distinct record when records repeat, else one per record, zeros first.
     patterns = find_patterns(design)
@@ -295,14 +293,11 @@ def build_model(design: Design, priors: PriorSet) -> pm.Model:
             Xz = pt.as_tensor_variable(design.zeros.X_std)
             bz = _coefficients("zeros", design.zeros, priors.zeros)
             eta_z = pt.dot(Xz, bz)
+        coefs = {"counts": (design.counts, bc), "zeros": (design.zeros, bz)}
         for g in design.groups:
             masks = {part: m[g.name] for part, m in centred.items() if g.name in m}
-            icpts = {}
-            for part, coef in (("counts", bc), ("zeros", bz)):
-                if part in masks:
-                    icpts[part] = coef[level_cols[part][2]] + pt.dot(
-                        pt.as_tensor_variable(level_cols[part][1]), coef[level_cols[part][0]])
-            eta_c, eta_z = _group_terms(design, priors, g, eta_c, eta_z, icpts, masks)
+            centres = {part: _level_centre(*coefs[part], g) for part in masks}
+            eta_c, eta_z = _group_terms(design, priors, g, eta_c, eta_z, centres, masks)
         if fam.has_dispersion:
             sqrt_alpha = _dist("dispersion_sqrt", priors.dispersion)
             log_alpha = 2.0 * pt.log(sqrt_alpha)
