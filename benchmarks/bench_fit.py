@@ -55,6 +55,10 @@ from bench_data import FORMULAS, make_data  # noqa: E402
 
 N_GROUPS = 30
 SEED = 20240917
+#: bayeszi's parameters whose minimum bulk ESS is reported (coefficients, dispersion, group
+#: sds and every group effect)
+BAYESZI_PARAMETERS = ["counts_coef", "zeros_coef", "dispersion", "counts_sd_reach",
+                      "zeros_sd_reach", "counts_effect_reach", "zeros_effect_reach"]
 
 
 # ---------------------------------------------------------------------------- (a) plain PyMC
@@ -114,9 +118,8 @@ def _bayeszi_fit(df, layout: str, seed: int, sampler: str) -> dict:
     fitted = bz.fit(df, counts=counts, zeros=zeros, family="zinb", exposure="trap_nights",
                     groups="reach", seed=seed, progressbar=False, sampler=sampler)
     wall = time.perf_counter() - t0
-    names = ["counts_coef", "zeros_coef", "dispersion", "counts_sd_reach", "zeros_sd_reach",
-             "counts_effect_reach", "zeros_effect_reach"]
-    out = _summary(fitted.idata, names, wall, fitted.idata.sample_stats.attrs["bayeszi_sampler"])
+    out = _summary(fitted.idata, BAYESZI_PARAMETERS, wall,
+                   fitted.idata.sample_stats.attrs["bayeszi_sampler"])
     out["timing"] = fitted.timing
     return out
 

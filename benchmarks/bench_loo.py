@@ -36,13 +36,11 @@ import tracemalloc
 import warnings
 from pathlib import Path
 
-import numpy as np
-
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
 from bench_data import FORMULAS, make_data  # noqa: E402
-from bench_fit import N_GROUPS, SEED  # noqa: E402
+from bench_fit import BAYESZI_PARAMETERS, N_GROUPS, SEED, _summary  # noqa: E402
 
 
 def _rss_mb(who: int) -> float:
@@ -51,8 +49,6 @@ def _rss_mb(who: int) -> float:
 
 def run(n: int, layout: str = "discrete", seed: int = SEED, sampler: str = "auto") -> dict:
     """Fit, LOO and compare on ``n`` records; returns the figures (see the module doc)."""
-    import arviz as az
-
     import bayeszi as bz
     from bayeszi import loglik
     from bayeszi.patterns import find_patterns
@@ -65,11 +61,8 @@ def run(n: int, layout: str = "discrete", seed: int = SEED, sampler: str = "auto
                     groups="reach", seed=seed, progressbar=False, sampler=sampler)
     fit_s = time.perf_counter() - t0
     rss_fit = _rss_mb(resource.RUSAGE_SELF)
-    names = ["counts_coef", "zeros_coef", "dispersion", "counts_sd_reach", "zeros_sd_reach",
-             "counts_effect_reach", "zeros_effect_reach"]
-    ess = az.ess(fitted.idata, var_names=names, method="bulk")
-    per_var = {v: float(np.min(ess[v].values)) for v in names}
-    min_ess = min(per_var.values())
+    summary = _summary(fitted.idata, BAYESZI_PARAMETERS, fit_s,
+                       fitted.idata.sample_stats.attrs.get("bayeszi_sampler"))
     ll = fitted.idata.log_likelihood["y"]
     tracemalloc.start()
     t1 = time.perf_counter()
@@ -78,17 +71,13 @@ def run(n: int, layout: str = "discrete", seed: int = SEED, sampler: str = "auto
     loo_s = time.perf_counter() - t1
     _, traced_peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
-    stats = fitted.idata.sample_stats
-    steps = stats["n_steps"] if "n_steps" in stats else stats.get("tree_size")
     return {
-        "n": n, "layout": layout, "seed": seed,
-        "sampler": stats.attrs.get("bayeszi_sampler"),
+        "n": n, "layout": layout, "seed": seed, "sampler": summary["sampler"],
         "patterns": find_patterns(fitted.design).n_patterns,
         "fit_s": fit_s, "timing": fitted.timing,
-        "min_ess_bulk": min_ess, "min_ess_var": min(per_var, key=per_var.get),
-        "ess_per_s": min_ess / fit_s,
-        "divergences": int(np.asarray(stats["diverging"]).sum()),
-        "mean_steps": float(np.asarray(steps).mean()) if steps is not None else None,
+        "min_ess_bulk": summary["min_ess_bulk"], "min_ess_var": summary["min_ess_var"],
+        "ess_per_s": summary["ess_per_s"], "divergences": summary["divergences"],
+        "mean_steps": summary["mean_steps"],
         "loglik_stored_per": loglik.stored_per(fitted.idata),
         "loglik_shape": list(ll.shape), "loglik_mb": ll.nbytes / 2**20,
         "loo_s": loo_s, "elpd_loo": est.elpd, "se": est.se, "p_loo": est.p_loo,
