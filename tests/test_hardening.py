@@ -581,14 +581,6 @@ def _cmodels(note: str, tokens: tuple[str, ...], change: Callable[[dict], Any]):
     return apply
 
 
-def _ckw(note: str, tokens: tuple[str, ...], **values: Any):
-    def apply(case: Case, draw: st.DrawFn) -> None:
-        case.payload["kw"].update(values)
-        case.perturb(note, *tokens)
-
-    return apply
-
-
 COMPARE_PERTURBATIONS = [
     _cmodels("one model", ("two",), lambda m: {"a": m["a"]}),
     _cmodels("no models", ("two",), lambda m: {}),
@@ -598,9 +590,9 @@ COMPARE_PERTURBATIONS = [
              lambda m: {**m, "raw": "idata"}),
     _cmodels("a fit of other data", ("different data",), lambda m: {**m, "other": "other"}),
     _cmodels("names equal as text", ("name",), lambda m: {1: m["a"], "1": m["b"]}),
-    _ckw("k_threshold text", ("k_threshold",), k_threshold="high"),
-    _ckw("k_threshold NaN", ("k_threshold",), k_threshold=float("nan")),
-    _ckw("refit budget exceeded", ("max_refits",), exact_refits=True, k_threshold=-np.inf,
+    _pkw("k_threshold text", ("k_threshold",), k_threshold="high"),
+    _pkw("k_threshold NaN", ("k_threshold",), k_threshold=float("nan")),
+    _pkw("refit budget exceeded", ("max_refits",), exact_refits=True, k_threshold=-np.inf,
          max_refits=3),
 ]
 
