@@ -307,7 +307,8 @@ def build_model(design: Design, priors: PriorSet) -> pm.Model:
 
         # ---- likelihood: per pattern, one value per original record (bayeszi/patterns.py)
         # The density sums each pattern once, weighted by its records; the pointwise
-        # log-likelihood per record is computed after sampling (bayeszi.sample.run_nuts).
+        # log-likelihood per record is computed after sampling, in NumPy
+        # (bayeszi.patterns.pattern_log_likelihood, called by bayeszi.api.fit_spec).
         pm.CustomDist("y", eta_c, eta_z, log_alpha,
                       logp=pattern_logp(fam.name, patterns),
                       random=pattern_random(fam.name, patterns),

@@ -20,7 +20,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from bayeszi.design import EncodedRows
+from bayeszi.design import Design, EncodedRows
 from bayeszi.errors import BayesziError
 
 if TYPE_CHECKING:
@@ -172,9 +172,14 @@ def linear_predictors(fitted: FittedModel, rows: EncodedRows, groups: str = "kno
     return LinearPredictors(eta_c, eta_z, log_alpha)
 
 
-def fitted_rows(fitted: FittedModel) -> EncodedRows:
-    """The fitted data encoded as :class:`EncodedRows` (known groups)."""
-    d = fitted.design
+def design_rows(design: Design) -> EncodedRows:
+    """The rows of ``design`` (the fitted data, or its patterns) as :class:`EncodedRows`."""
+    d = design
     return EncodedRows(d.counts.X, None if d.zeros is None else d.zeros.X, d.log_offset,
                        {g.name: g.codes for g in d.groups}, d.n,
                        {g.name: np.asarray(g.levels, dtype=object)[g.codes] for g in d.groups})
+
+
+def fitted_rows(fitted: FittedModel) -> EncodedRows:
+    """The fitted data encoded as :class:`EncodedRows` (known groups)."""
+    return design_rows(fitted.design)

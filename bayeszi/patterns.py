@@ -246,7 +246,10 @@ def pattern_random(family: str, patterns: Patterns) -> Callable[..., np.ndarray]
 
 @dataclass
 class Likelihood:
-    """What :func:`pattern_log_likelihood` needs from a built model (kept on the model)."""
+    """What a built model keeps as ``model.bayeszi_likelihood``: its family, its patterns (the
+    sampler choice and :func:`pattern_log_likelihood` read them) and its linear predictors as
+    PyTensor tensors of the free variables (tests evaluate the model's own density with them
+    and compare it with :func:`pattern_log_likelihood`)."""
 
     family: str
     patterns: Patterns
@@ -255,39 +258,32 @@ class Likelihood:
     log_alpha: Any
 
 
-def pattern_log_likelihood(model: Any, posterior: Any, chunk: int = 200) -> np.ndarray:
-    """Log-likelihood of every *pattern* (one record of it) at every posterior draw.
+def pattern_log_likelihood(fitted: Any, patterns: Patterns, chunk: int = 200) -> np.ndarray:
+    """Log-likelihood of every *pattern* (one record of it) at every posterior draw, in NumPy.
 
-    ``model`` is a model from :func:`bayeszi.build.build_model` (it carries a
-    :class:`Likelihood` as ``model.bayeszi_likelihood``), ``posterior`` an xarray Dataset
-    holding its free variables with dims (chain, draw, ...). Returns an array of shape
-    (chain, draw, n_patterns); ``model.bayeszi_likelihood.patterns.inverse`` maps records to
-    patterns (see :mod:`bayeszi.loglik`).
+    ``fitted`` is a :class:`~bayeszi.fitted.FittedModel` and ``patterns`` the patterns its
+    model was built on (``model.bayeszi_likelihood.patterns``). The linear predictors are
+    those of predictions (:func:`bayeszi.draws.linear_predictors`, known groups) and the
+    density the family's closed form (:meth:`~bayeszi.families.Family.logpmf`), ``chunk``
+    draws at a time, so nothing is compiled. Returns an array of shape (chain, draw,
+    n_patterns); ``patterns.inverse`` maps records to patterns (see :mod:`bayeszi.loglik`).
 
     Example
     -------
-    >>> ll = pattern_log_likelihood(model, idata.posterior)       # doctest: +SKIP
+    >>> ll = pattern_log_likelihood(fitted, model.bayeszi_likelihood.patterns)  # doctest: +SKIP
     >>> ll.shape[-1] == model.bayeszi_likelihood.patterns.n_patterns  # doctest: +SKIP
     True
     """
-    import pytensor
-    from pytensor.graph.replace import clone_replace
+    from bayeszi.draws import design_rows, linear_predictors
 
-    lik: Likelihood = model.bayeszi_likelihood
-    lp = pattern_logp(lik.family, lik.patterns, weighted=False)(
-        None, lik.eta_c, lik.eta_z, lik.log_alpha)
-    # the free variables become plain inputs, fed from the posterior draws
-    inputs = [rv.type(name=rv.name) for rv in model.free_RVs]
-    lp = clone_replace(lp, replace=dict(zip(model.free_RVs, inputs, strict=True)))
-    fn = pytensor.function(inputs, lp, on_unused_input="ignore")
-    arrays = [np.asarray(posterior[rv.name].values) for rv in model.free_RVs]
-    chains, draws = arrays[0].shape[:2] if arrays else (0, 0)
-    out = np.empty((chains, draws, lik.patterns.n_patterns))
-    for c in range(chains):
-        for d0 in range(0, draws, chunk):
-            d1 = min(draws, d0 + chunk)
-            out[c, d0:d1] = np.stack([fn(*(a[c, d].astype(i.dtype) for a, i in
-                                          zip(arrays, inputs, strict=True)))
-                                      for d in range(d0, d1)])
-    return out
-
+    post = fitted.idata.posterior
+    chains, draws = int(post.sizes["chain"]), int(post.sizes["draw"])
+    fam = F.get_family(fitted.spec.family)
+    rows = design_rows(patterns.design)
+    y = patterns.design.y[None, :]
+    out = np.empty((chains * draws, patterns.n_patterns))
+    for d0 in range(0, chains * draws, chunk):
+        sel = np.arange(d0, min(chains * draws, d0 + chunk))
+        lp = linear_predictors(fitted, rows, groups="known", draw_index=sel)
+        out[sel] = fam.logpmf(y, lp.counts, lp.zeros, lp.log_alpha)
+    return out.reshape(chains, draws, patterns.n_patterns)

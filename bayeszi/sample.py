@@ -168,22 +168,17 @@ def _sample_nutpie(model: pm.Model, settings: SamplerSettings, progress: bool
 
 
 def _add_log_likelihood(model: pm.Model, idata: az.InferenceData) -> None:
-    """Store the pointwise log-likelihood for LOO: per record, or per pattern for a very
-    large fit (see :mod:`bayeszi.loglik`)."""
-    if hasattr(model, "bayeszi_likelihood"):
-        from bayeszi import loglik
-        from bayeszi.patterns import pattern_log_likelihood
-
-        ll = pattern_log_likelihood(model, idata.posterior)
-        loglik.store(idata, ll, obs=list(model.coords["obs"]),
-                     inverse=model.bayeszi_likelihood.patterns.inverse)
-    else:  # a model not built by bayeszi: PyMC's own pointwise densities
-        with model, _quiet_pymc():
-            pm.compute_log_likelihood(idata, progressbar=False)
+    """PyMC's own pointwise log-likelihood, for a model not built by bayeszi (a bayeszi model's
+    is computed in NumPy once the fit exists: :func:`bayeszi.patterns.pattern_log_likelihood`)."""
+    with model, _quiet_pymc():
+        pm.compute_log_likelihood(idata, progressbar=False)
 
 
 def run_nuts(model: pm.Model, settings: SamplerSettings) -> az.InferenceData:
     """Sample ``model`` with NUTS; the sampler used is recorded in ``sample_stats`` attrs.
+
+    A model not built by bayeszi gets PyMC's pointwise log-likelihood; for a bayeszi model
+    :func:`bayeszi.api.fit_spec` adds it after sampling, without compiling anything.
 
     ``settings.sampler`` picks PyMC's NUTS (``"pymc"``), nutpie (``"nutpie"``, optional:
     falls back to PyMC with a warning when missing) or the measured default (``"auto"``,
@@ -200,7 +195,8 @@ def run_nuts(model: pm.Model, settings: SamplerSettings) -> az.InferenceData:
     else:
         idata = _sample_pymc(model, settings, bool(progress))
         label = "pymc-nuts"
-    _add_log_likelihood(model, idata)
+    if not hasattr(model, "bayeszi_likelihood"):
+        _add_log_likelihood(model, idata)
     idata.sample_stats.attrs["bayeszi_sampler"] = label
     return idata
 

@@ -100,13 +100,31 @@ def _plain_fit(df, layout: str, seed: int) -> dict:
     model = plain_model(df, layout)
     with model:
         idata = pm.sample(chains=2, cores=2, random_seed=seed, progressbar=False,
-                          compute_convergence_checks=False)
+                          compute_convergence_checks=False, callback=_progress_callback())
     wall = time.perf_counter() - t0
     post = idata.posterior
     post["effect_c"] = post["sd_c"] * post["z_c"]
     post["effect_z"] = post["sd_z"] * post["z_z"]
     names = ["a", "b", "g0", "g1", "sd_c", "sd_z", "alpha", "effect_c", "effect_z"]
     return _summary(idata, names, wall, "pymc-nuts")
+
+
+def _progress_callback():
+    """With BENCH_PROGRESS set to a file name, append "chain iteration seconds" to it every
+    100 iterations of the plain fit (to follow a fit that runs for hours); else None."""
+    path = os.environ.get("BENCH_PROGRESS")
+    if not path:
+        return None
+    t0 = time.perf_counter()
+    done: dict[int, int] = {}
+
+    def callback(trace, draw):
+        done[draw.chain] = done.get(draw.chain, 0) + 1
+        if done[draw.chain] % 100 == 0:
+            with open(path, "a") as fh:
+                fh.write(f"{draw.chain} {done[draw.chain]} {time.perf_counter() - t0:.0f}\n")
+
+    return callback
 
 
 # ---------------------------------------------------------------------------- (b) bayeszi
@@ -263,6 +281,7 @@ def _run_child(run: str, n: int, layout: str, seed: int, timeout: float) -> dict
         return {"run": run, "n": n, "layout": layout, "error": " | ".join(tail)}
     out = json.loads(lines[-1])
     out["process_s"] = time.perf_counter() - t0
+    out["load_average_1min_after"] = os.getloadavg()[0]
     return out
 
 
