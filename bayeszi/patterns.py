@@ -258,14 +258,20 @@ class Likelihood:
     log_alpha: Any
 
 
-def pattern_log_likelihood(fitted: Any, patterns: Patterns, chunk: int = 200) -> np.ndarray:
+#: :func:`pattern_log_likelihood` works on about this many (draw, pattern) values at a time
+LOGLIK_CHUNK_VALUES = 2_000_000
+
+
+def pattern_log_likelihood(fitted: Any, patterns: Patterns, chunk: int | None = None
+                           ) -> np.ndarray:
     """Log-likelihood of every *pattern* (one record of it) at every posterior draw, in NumPy.
 
     ``fitted`` is a :class:`~bayeszi.fitted.FittedModel` and ``patterns`` the patterns its
     model was built on (``model.bayeszi_likelihood.patterns``). The linear predictors are
     those of predictions (:func:`bayeszi.draws.linear_predictors`, known groups) and the
     density the family's closed form (:meth:`~bayeszi.families.Family.logpmf`), ``chunk``
-    draws at a time, so nothing is compiled. Returns an array of shape (chain, draw,
+    draws at a time (default: about :data:`LOGLIK_CHUNK_VALUES` values, so temporaries stay
+    near 16 MB each), so nothing is compiled. Returns an array of shape (chain, draw,
     n_patterns); ``patterns.inverse`` maps records to patterns (see :mod:`bayeszi.loglik`).
 
     Example
@@ -282,6 +288,8 @@ def pattern_log_likelihood(fitted: Any, patterns: Patterns, chunk: int = 200) ->
     rows = design_rows(patterns.design)
     y = patterns.design.y[None, :]
     out = np.empty((chains * draws, patterns.n_patterns))
+    if chunk is None:
+        chunk = max(1, LOGLIK_CHUNK_VALUES // max(1, patterns.n_patterns))
     for d0 in range(0, chains * draws, chunk):
         sel = np.arange(d0, min(chains * draws, d0 + chunk))
         lp = linear_predictors(fitted, rows, groups="known", draw_index=sel)

@@ -11,9 +11,12 @@ import arviz as az
 import numpy as np
 import pandas as pd
 import pytest
+from graph_reference import graph_log_likelihood
 
 import bayeszi as bz
 from bayeszi import loglik
+from bayeszi.build import build_model
+from bayeszi.patterns import pattern_log_likelihood
 
 
 def _pattern_idata(seed: int = 3, chains: int = 2, draws: int = 200, n_pat: int = 12,
@@ -80,6 +83,12 @@ def test_large_fit_stores_per_pattern_and_loo_is_unchanged(monkeypatch, tmp_path
     assert loglik.stored_per(m.idata) == "pattern"
     n_pat = m.idata.log_likelihood["y"].sizes["obs_pattern"]
     assert n_pat < n / 4
+    # the stored values are the model graph's density, and do not depend on the chunking
+    ref_graph, stored = graph_log_likelihood(m, draws=10)
+    np.testing.assert_allclose(stored, ref_graph, rtol=1e-9, atol=1e-9)
+    pats = build_model(m.design, m.priors).bayeszi_likelihood.patterns
+    np.testing.assert_array_equal(pattern_log_likelihood(m, pats, chunk=7),
+                                  m.idata.log_likelihood["y"].values)
     est = m.loo()
     ref = az.loo(az.InferenceData(posterior=m.idata.posterior, log_likelihood=az.from_dict(
         log_likelihood={"y": loglik.record_values(m.idata)}).log_likelihood),
