@@ -44,10 +44,11 @@ def _cores(settings: SamplerSettings) -> int:
 
 #: ``sampler="auto"`` uses nutpie (when installed) once a fit's work, patterns x (tune +
 #: draws) x chains, reaches this; below it PyMC's NUTS finishes first, because numba's
-#: compile takes longer than PyTensor's C compile. Measured (docs/performance.md): nutpie
-#: lost at 2.4e5 (400 records x 300 iterations x 2 chains, 1.8x slower), was level to 1.5x
-#: faster at 6e6-8e6 (2,000 records) and 2.9x faster at 2.6e7 (20,000 discrete records).
-NUTPIE_MIN_WORK = 4e6
+#: compile (about 15 s) takes longer than PyTensor's C compile. Measured
+#: (docs/performance.md): nutpie lost at 2.4e5 (400 records x 300 iterations x 2 chains,
+#: 1.8x slower) and at 6e6-8e6 (2,000 records, 2 x 2,000 iterations: PyMC 0-30% faster),
+#: and was 2.9x faster at 2.6e7 (20,000 discrete records).
+NUTPIE_MIN_WORK = 1e7
 
 
 def nutpie_version() -> str | None:
