@@ -168,18 +168,11 @@ def _sample_nutpie(model: pm.Model, settings: SamplerSettings, progress: bool
     return idata
 
 
-def _add_log_likelihood(model: pm.Model, idata: az.InferenceData) -> None:
-    """PyMC's own pointwise log-likelihood, for a model not built by bayeszi (a bayeszi model's
-    is computed in NumPy once the fit exists: :func:`bayeszi.patterns.pattern_log_likelihood`)."""
-    with model, _quiet_pymc():
-        pm.compute_log_likelihood(idata, progressbar=False)
-
-
 def run_nuts(model: pm.Model, settings: SamplerSettings) -> az.InferenceData:
     """Sample ``model`` with NUTS; the sampler used is recorded in ``sample_stats`` attrs.
 
-    A model not built by bayeszi gets PyMC's pointwise log-likelihood; for a bayeszi model
-    :func:`bayeszi.api.fit_spec` adds it after sampling, without compiling anything.
+    No pointwise log-likelihood is computed here: :func:`bayeszi.api.fit_spec` adds it after
+    sampling, in NumPy (:func:`bayeszi.patterns.pattern_log_likelihood`).
 
     ``settings.sampler`` picks PyMC's NUTS (``"pymc"``), nutpie (``"nutpie"``, optional:
     falls back to PyMC with a warning when missing) or the measured default (``"auto"``,
@@ -196,8 +189,6 @@ def run_nuts(model: pm.Model, settings: SamplerSettings) -> az.InferenceData:
     else:
         idata = _sample_pymc(model, settings, bool(progress))
         label = "pymc-nuts"
-    if not hasattr(model, "bayeszi_likelihood"):
-        _add_log_likelihood(model, idata)
     idata.sample_stats.attrs["bayeszi_sampler"] = label
     return idata
 
@@ -219,7 +210,6 @@ def parameter_names(idata: az.InferenceData) -> list[str]:
             continue
         names.append(v)
     return names
-
 
 
 def diagnose(idata: az.InferenceData, thresholds: Thresholds | None = None) -> dict:

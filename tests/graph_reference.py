@@ -8,8 +8,8 @@ predictions of :mod:`bayeszi.draws` agree.
 
 Example
 -------
->>> ref = graph_log_likelihood(fitted, draws=10)                     # doctest: +SKIP
->>> ref.shape == (10, fitted.design.n)                                # doctest: +SKIP
+>>> ref, stored = graph_log_likelihood(fitted, draws=10)             # doctest: +SKIP
+>>> ref.shape == stored.shape == (10, fitted.design.n)                # doctest: +SKIP
 True
 """
 
