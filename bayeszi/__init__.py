@@ -13,27 +13,29 @@ Example
 from __future__ import annotations
 
 import importlib
+import importlib.abc
+import importlib.util
+import sys
 from typing import Any
 
-from bayeszi.errors import BayesziError
-
-__version__ = "0.1.0"
+from bayeszi.base.errors import BayesziError
+from bayeszi.base.version import __version__
 
 _LAZY = {
-    "fit": "bayeszi.api",
-    "fit_spec": "bayeszi.api",
-    "load": "bayeszi.api",
-    "make_spec": "bayeszi.api",
-    "prior_predictive": "bayeszi.api",
+    "fit": "bayeszi.fitting.api",
+    "fit_spec": "bayeszi.fitting.api",
+    "load": "bayeszi.fitting.api",
+    "make_spec": "bayeszi.fitting.api",
+    "prior_predictive": "bayeszi.fitting.api",
     "FAMILY_NAMES": "bayeszi.families",
     "get_family": "bayeszi.families",
-    "Prior": "bayeszi.priors",
-    "ModelSpec": "bayeszi.spec",
-    "SamplerSettings": "bayeszi.spec",
-    "BayesziWarning": "bayeszi.validate",
-    "FittedModel": "bayeszi.fitted",
-    "compare": "bayeszi.comparison",
-    "fit_candidates": "bayeszi.candidates",
+    "Prior": "bayeszi.model.priors",
+    "ModelSpec": "bayeszi.base.spec",
+    "SamplerSettings": "bayeszi.base.spec",
+    "BayesziWarning": "bayeszi.base.errors",
+    "FittedModel": "bayeszi.fitting.fitted",
+    "compare": "bayeszi.answers.comparison",
+    "fit_candidates": "bayeszi.fitting.candidates",
 }
 
 __all__ = ["BayesziError", "__version__", *sorted(_LAZY)]
@@ -49,3 +51,47 @@ def __getattr__(name: str) -> Any:
 
 def __dir__() -> list[str]:
     return sorted(set(globals()) | set(_LAZY))
+
+
+#: Module paths of the flat layout before the layers (0.1.0), kept as aliases so that code
+#: written against them (``import bayeszi.checks``) keeps working: the same module object.
+_MOVED = {
+    "bayeszi.candidates": "bayeszi.fitting.candidates",
+    "bayeszi.comparison": "bayeszi.answers.comparison",
+    "bayeszi.compareplots": "bayeszi.plots.compareplots",
+    "bayeszi.loglik": "bayeszi.engine.loglik",
+    "bayeszi.checks": "bayeszi.answers.checks",
+    "bayeszi.checkplots": "bayeszi.plots.checkplots",
+    "bayeszi.groups": "bayeszi.answers.groups",
+    "bayeszi.predict": "bayeszi.answers.predict",
+    "bayeszi.contrast": "bayeszi.answers.contrast",
+    "bayeszi.study": "bayeszi.app.study",
+    "bayeszi.report": "bayeszi.app.report",
+    "bayeszi.cli": "bayeszi.app.cli",
+    "bayeszi.api": "bayeszi.fitting.api",
+    "bayeszi.fitted": "bayeszi.fitting.fitted",
+    "bayeszi.spec": "bayeszi.base.spec",
+    "bayeszi.errors": "bayeszi.base.errors",
+}
+
+
+class _MovedModules(importlib.abc.MetaPathFinder, importlib.abc.Loader):
+    """Finds an old module path and hands out the module at its new place."""
+
+    def find_spec(self, fullname: str, path: Any, target: Any = None) -> Any:
+        if fullname in _MOVED:
+            return importlib.util.spec_from_loader(fullname, self)
+        return None
+
+    def create_module(self, spec: Any) -> Any:
+        module = importlib.import_module(_MOVED[spec.name])
+        spec.loader_state = module.__spec__  # its own spec, put back by exec_module
+        return module
+
+    def exec_module(self, module: Any) -> None:
+        # the import system stamped the alias's spec on the module: give it back its own
+        module.__spec__ = module.__spec__.loader_state
+
+
+if not any(isinstance(f, _MovedModules) for f in sys.meta_path):
+    sys.meta_path.append(_MovedModules())

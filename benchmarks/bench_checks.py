@@ -36,11 +36,13 @@ sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 
 from bench_data import FORMULAS, make_data  # noqa: E402
 
-from bayeszi import checks  # noqa: E402
-from bayeszi.api import make_spec  # noqa: E402
-from bayeszi.design import build_design  # noqa: E402
-from bayeszi.fitted import FittedModel, add_user_scale  # noqa: E402
-from bayeszi.priors import resolve  # noqa: E402
+from bayeszi.answers import checks  # noqa: E402
+from bayeszi.engine.fit import add_user_scale  # noqa: E402
+from bayeszi.fitting.api import make_spec  # noqa: E402
+from bayeszi.fitting.fitted import FittedModel  # noqa: E402
+from bayeszi.model.design import build_design  # noqa: E402
+from bayeszi.model.diagnostics import diagnose  # noqa: E402
+from bayeszi.model.priors import resolve  # noqa: E402
 
 
 def synthetic_fit(rows: int = 10_000, draws: int = 4_000, chains: int = 4,
@@ -75,11 +77,11 @@ def synthetic_fit(rows: int = 10_000, draws: int = 4_000, chains: int = 4,
         coords={"counts_term": c_terms, "zeros_term": z_terms, "reach": levels},
         dims={"counts_std_coef": ["counts_term"], "zeros_std_coef": ["zeros_term"],
               "counts_effect_reach": ["reach"], "zeros_effect_reach": ["reach"]},
+        sample_stats={"diverging": np.zeros(shape, dtype=bool)},
     )
     add_user_scale(idata, design)
-    fitted = FittedModel(spec, design, idata, resolve(design, spec.priors))
-    fitted._data = df[design.used_columns].copy()  # type: ignore[attr-defined]
-    return fitted
+    return FittedModel(spec, design, idata, resolve(design, spec.priors),
+                       df[design.used_columns].copy(), diagnose(idata))
 
 
 def measure(fn: Callable[[], object], repeat: int) -> tuple[float, float, float]:

@@ -192,12 +192,12 @@ def _grad_fn(model):
 def _bayeszi_model(df, layout: str, rowwise: bool = False):
     """bayeszi's model; ``rowwise=True`` rebuilds the earlier likelihood for comparison:
     no patterns, and the family's generic per-row density (one switch per row)."""
-    import bayeszi.build as B
-    from bayeszi.design import build_design
+    import bayeszi.model.build as B
+    from bayeszi.base.spec import ModelSpec
     from bayeszi.families import get_family
-    from bayeszi.patterns import find_patterns
-    from bayeszi.priors import resolve
-    from bayeszi.spec import ModelSpec
+    from bayeszi.model.design import build_design
+    from bayeszi.model.patterns import find_patterns
+    from bayeszi.model.priors import resolve
 
     counts, zeros = FORMULAS[layout]
     spec = ModelSpec(counts=counts, zeros=zeros, family="zinb", exposure="trap_nights",
@@ -205,7 +205,7 @@ def _bayeszi_model(df, layout: str, rowwise: bool = False):
     design = build_design(df, spec)
     priors = resolve(design, None)
     if not rowwise:
-        return B.build_model(design, priors)
+        return B.build_model(design, priors)  # a BuiltModel: the model and its patterns
     fam = get_family("zinb")
     saved = B.find_patterns, B.pattern_logp
 
@@ -218,7 +218,7 @@ def _bayeszi_model(df, layout: str, rowwise: bool = False):
     B.find_patterns = identity
     B.pattern_logp = lambda name, pats: (lambda v, ec, ez, la: fam.logp(design.y, ec, ez, la))
     try:
-        return B.build_model(design, priors)
+        return B.build_model(design, priors).model
     finally:
         B.find_patterns, B.pattern_logp = saved
 
@@ -238,10 +238,10 @@ def gradient(sizes: list[int], layouts: list[str], rounds: int, seed: int,
             for name, (make, kw) in makers.items():
                 t0 = time.perf_counter()
                 model = make(df, layout, **kw)
+                if hasattr(model, "likelihood"):  # bayeszi's BuiltModel
+                    n_pat, model = model.n_rows, model.model
                 fns[name] = _grad_fn(model)
                 compile_s[name] = time.perf_counter() - t0
-                if name == "bayeszi":
-                    n_pat = model.bayeszi_likelihood.patterns.n_patterns
             calls = max(3, int(2e6 // n))
             times: dict[str, list[float]] = {k: [] for k in fns}
             for fn, x in fns.values():

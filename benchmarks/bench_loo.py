@@ -8,7 +8,7 @@ defaults (2 chains x (1,000 tune + 1,000 draws); sampler ``auto``), then compute
 - wall seconds of the fit (split into build and sampling, which includes the pointwise
   log-likelihood) and of LOO;
 - min bulk ESS over the model's parameters and min ESS per wall second of the fit;
-- how the log-likelihood is stored (per record or per pattern, bayeszi.loglik) and its size;
+- how the log-likelihood is stored (per record or per pattern, bayeszi.engine.loglik) and its size;
 - peak resident memory of the process after the fit and after LOO (``ru_maxrss``), of the
   sampler's worker processes, and the peak of Python-tracked allocations during LOO alone
   (``tracemalloc``, which sees NumPy's buffers).
@@ -50,8 +50,8 @@ def _rss_mb(who: int) -> float:
 def run(n: int, layout: str = "discrete", seed: int = SEED, sampler: str = "auto") -> dict:
     """Fit, LOO and compare on ``n`` records; returns the figures (see the module doc)."""
     import bayeszi as bz
-    from bayeszi import loglik
-    from bayeszi.patterns import find_patterns
+    from bayeszi.engine import loglik
+    from bayeszi.model.patterns import find_patterns
 
     warnings.simplefilter("ignore")
     df, _ = make_data(n, layout, n_groups=N_GROUPS, seed=seed)

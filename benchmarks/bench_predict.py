@@ -7,7 +7,7 @@ trap-line checks (the crayfish generator with 200 reaches), with 4,000 posterior
 and is not what is measured, so the posterior is written by hand: each draw is the
 generator's true parameters plus small normal noise (coefficients sd 0.05, reach effects
 sd 0.1, group sds and the dispersion times a lognormal factor). Both contenders read the
-same InferenceData and the same PyMC model (built by :func:`bayeszi.build.build_model` on
+same InferenceData and the same PyMC model (built by :func:`bayeszi.model.build.build_model` on
 the 10,000 rows), so they answer the same question.
 
 Measured, each in the same process, one after the other:
@@ -51,11 +51,13 @@ import numpy as np
 import pandas as pd
 
 import bayeszi as bz
-from bayeszi.build import build_model
 from bayeszi.data import simulate_crayfish
-from bayeszi.design import build_design
-from bayeszi.fitted import FittedModel, add_user_scale
-from bayeszi.priors import resolve
+from bayeszi.engine.fit import add_user_scale
+from bayeszi.fitting.fitted import FittedModel
+from bayeszi.model.build import build_model
+from bayeszi.model.design import build_design
+from bayeszi.model.diagnostics import diagnose
+from bayeszi.model.priors import resolve
 
 COUNTS = "crayfish ~ water_temp + C(substrate) + depth + canopy"
 ZEROS = "~ barrier"
@@ -78,7 +80,7 @@ def hand_posterior(data: pd.DataFrame, truth: dict[str, Any], chains: int, draws
                         groups="reach")
     design = build_design(data, spec)
     priors = resolve(design, spec.priors)
-    model = build_model(design, priors)
+    model = build_model(design, priors).model
     rng = np.random.default_rng(seed)
     shape = (chains, draws)
     levels = design.groups[0].levels
@@ -110,9 +112,9 @@ def hand_posterior(data: pd.DataFrame, truth: dict[str, Any], chains: int, draws
     idata = az.from_dict(posterior=post, coords=coords, dims=dims,
                          sample_stats={"diverging": np.zeros(shape, dtype=bool)})
     add_user_scale(idata, design)
-    fitted = FittedModel(spec, design, idata, priors)
-    fitted._data = data[design.used_columns].copy()  # type: ignore[attr-defined]
-    fitted.diagnostics()  # computed once here, outside the timed steps
+    # diagnostics computed once here, outside the timed steps
+    fitted = FittedModel(spec, design, idata, priors, data[design.used_columns].copy(),
+                         diagnose(idata))
     return fitted, model
 
 

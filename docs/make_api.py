@@ -14,7 +14,7 @@ What the page holds, in order:
 2. the fitted model: the fields of :class:`bayeszi.FittedModel` and every public method;
 3. the modules a user calls directly (``PUBLIC_MODULES``): their ``__all__`` (or, without
    one, the public functions and classes defined in them);
-4. the ``bayeszi`` command line, read from :func:`bayeszi.cli.build_parser`;
+4. the ``bayeszi`` command line, read from :func:`bayeszi.app.cli.build_parser`;
 5. one line for every other module under ``bayeszi/``, so a new module shows up at once.
 
 The text depends only on the code (no dates, no paths, no memory addresses), so running the
@@ -48,19 +48,19 @@ if str(ROOT) not in sys.path:  # document this working tree, installed or not
 #: Modules documented name by name, in this order, with the topic page that explains them.
 PUBLIC_MODULES: dict[str, str] = {
     "bayeszi.data": "guide.md",
-    "bayeszi.candidates": "compare.md",
-    "bayeszi.comparison": "compare.md",
-    "bayeszi.compareplots": "compare.md",
-    "bayeszi.loglik": "compare.md",
-    "bayeszi.checks": "checks.md",
-    "bayeszi.checkplots": "checks.md",
-    "bayeszi.groups": "groups.md",
-    "bayeszi.predict": "predict.md",
-    "bayeszi.contrast": "predict.md",
+    "bayeszi.fitting.candidates": "compare.md",
+    "bayeszi.answers.comparison": "compare.md",
+    "bayeszi.plots.compareplots": "compare.md",
+    "bayeszi.engine.loglik": "compare.md",
+    "bayeszi.answers.checks": "checks.md",
+    "bayeszi.plots.checkplots": "checks.md",
+    "bayeszi.answers.groups": "groups.md",
+    "bayeszi.answers.predict": "predict.md",
+    "bayeszi.answers.contrast": "predict.md",
     "bayeszi.families": "families.md",
-    "bayeszi.study": "study-file.md",
-    "bayeszi.report": "cli.md",
-    "bayeszi.cli": "cli.md",
+    "bayeszi.app.study": "study-file.md",
+    "bayeszi.app.report": "cli.md",
+    "bayeszi.app.cli": "cli.md",
 }
 
 #: Order of the top-level names; names not listed here follow, sorted.
@@ -345,7 +345,7 @@ def top_level() -> list[Entry]:
 
 def fitted_methods() -> tuple[list[tuple[str, str]], list[Entry]]:
     """The fields of FittedModel and an entry for each public method, in source order."""
-    from bayeszi.fitted import FittedModel
+    from bayeszi.fitting.fitted import FittedModel
 
     fields = [(f.name, _annotation(f.type)) for f in dataclasses.fields(FittedModel)
               if not f.name.startswith("_")]
@@ -420,7 +420,7 @@ def entries() -> Iterator[Entry]:
 # ---------------------------------------------------------------------- command line
 def cli_lines() -> list[str]:
     """The subcommands and their arguments, read from the argument parser."""
-    from bayeszi.cli import build_parser
+    from bayeszi.app.cli import build_parser
 
     parser = build_parser()
     sub = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
@@ -562,7 +562,7 @@ def render() -> str:
             lines += render_entry(e, known)
 
     lines += ["## The command line: `bayeszi`", "",
-              "Read from `bayeszi.cli.build_parser()`; [cli.md](cli.md) has examples, exit "
+              "Read from `bayeszi.app.cli.build_parser()`; [cli.md](cli.md) has examples, exit "
               "codes and the report folder.", ""]
     lines += cli_lines()
 

@@ -1,10 +1,10 @@
 """The model's own log density per record, evaluated from its PyTensor graph at posterior draws.
 
 bayeszi stores the pointwise log-likelihood computed in NumPy from the draws
-(:func:`bayeszi.patterns.pattern_log_likelihood`). Tests compare it with the density the
-sampler actually used: the model's graph (:func:`bayeszi.patterns.pattern_logp`, unweighted)
+(:func:`bayeszi.engine.pointwise.pattern_log_likelihood`). Tests compare it with the density the
+sampler actually used: the model's graph (:func:`bayeszi.model.patterns.pattern_logp`, unweighted)
 with its free variables replaced by the drawn values. Equality means the model and the
-predictions of :mod:`bayeszi.draws` agree.
+predictions of :mod:`bayeszi.engine.draws` agree.
 
 Example
 -------
@@ -19,17 +19,17 @@ import numpy as np
 import pytensor
 from pytensor.graph.replace import clone_replace
 
-from bayeszi.build import build_model
-from bayeszi.patterns import pattern_logp
+from bayeszi.model.build import build_model
+from bayeszi.model.patterns import pattern_logp
 
 
 def graph_log_likelihood(fitted, draws: int = 20) -> tuple[np.ndarray, np.ndarray]:
     """(model graph's values, stored values), both (draws, records), for the first ``draws``
     draws of chain 0."""
-    from bayeszi import loglik
+    from bayeszi.engine import loglik
 
-    model = build_model(fitted.design, fitted.priors)
-    lik = model.bayeszi_likelihood
+    built = build_model(fitted.design, fitted.priors)
+    model, lik = built.model, built.likelihood
     lp = pattern_logp(lik.family, lik.patterns, weighted=False)(
         None, lik.eta_c, lik.eta_z, lik.log_alpha)
     inputs = [rv.type(name=rv.name) for rv in model.free_RVs]

@@ -1,4 +1,4 @@
-"""Centred intercepts for data-rich levels (bayeszi.build.centred_levels): the same
+"""Centred intercepts for data-rich levels (bayeszi.model.build.centred_levels): the same
 model as the non-centred form, only sampled differently. Checked here: which levels are
 centred, that the stored log-likelihood equals the family's density rebuilt from the draws,
 and that the posterior agrees with the non-centred fit of the same data within Monte Carlo
@@ -15,10 +15,10 @@ import pytest
 from graph_reference import graph_log_likelihood
 
 import bayeszi as bz
-from bayeszi import build
-from bayeszi.design import build_design
-from bayeszi.priors import resolve
-from bayeszi.spec import ModelSpec
+from bayeszi.base.spec import ModelSpec
+from bayeszi.model import build
+from bayeszi.model.design import build_design
+from bayeszi.model.priors import resolve
 
 
 def _sites(seed: int = 21) -> pd.DataFrame:
@@ -43,7 +43,7 @@ def _fit(df: pd.DataFrame, seed: int = 3):
 
 
 def test_which_levels_are_centred():
-    """The documented moment rule (bayeszi.build.centred_levels), recomputed here: per site
+    """The documented moment rule (bayeszi.model.build.centred_levels), recomputed here: per site
     m = (sum(y) + 0.5) / visits and v = (sum((y - m)^2) + 0.5) / (sum(y) + 0.5)^2; a site is
     centred when v < (var(log m) - mean(v)) / 4 and it has at least 50 records."""
     df = _sites()
@@ -61,7 +61,7 @@ def test_which_levels_are_centred():
     np.testing.assert_array_equal(mask, (v < between / build.CENTRE_MARGIN)
                                   & (size >= build.CENTRE_MIN_RECORDS))
     assert mask[:4].all() and not mask[5], (total, v, between)  # s5: 4 records
-    model = build.build_model(d, resolve(d, None))
+    model = build.build_model(d, resolve(d, None)).model
     free = {v.name for v in model.free_RVs}
     assert {"counts_level_site", "counts_z_site"} <= free
     levels = np.array([f"s{i}" for i in range(6)])
@@ -129,7 +129,7 @@ def test_no_centring_without_spread_and_zeros_part_centred_on_group_predictors()
     assert cols.tolist() == [d.zeros.terms.index("barrier")]
     np.testing.assert_allclose(values[:, 0], d.zeros.X_std[:, cols[0]][
         [int(np.flatnonzero(d.groups[0].codes == j)[0]) for j in range(6)]])
-    model = build.build_model(d, resolve(d, None))
+    model = build.build_model(d, resolve(d, None)).model
     assert {"zeros_level_site", "counts_level_site"} <= {v.name for v in model.free_RVs}
     assert np.isfinite(model.compile_logp()(model.initial_point()))
 
@@ -158,7 +158,7 @@ def test_varying_slope_with_centred_intercepts_builds():
     df = _sites()
     d = build_design(df, ModelSpec(counts="y ~ x", zeros=None, family="negbin",
                                    groups=("site",), varying={"counts": ("x",)}))
-    model = build.build_model(d, resolve(d, None))
+    model = build.build_model(d, resolve(d, None)).model
     free = {v.name for v in model.free_RVs}
     assert {"counts_level_site", "counts_slope_z_site"} <= free
     assert np.isfinite(model.compile_logp()(model.initial_point()))
@@ -168,7 +168,7 @@ def test_diagnostics_skip_raw_variables_by_name_prefix():
     """Raw sampler variables (z's, centred levels, correlation transforms) are left out of
     the diagnostics table by their exact prefixes; a grouping column whose own name holds
     '_z_' or '_level_' keeps its effects and sds in the table."""
-    from bayeszi.sample import parameter_names
+    from bayeszi.model.diagnostics import parameter_names
 
     names = ["counts_z_site", "zeros_slope_z_site", "counts_level_site", "z_corr_site",
              "counts_effect_zone_z_1", "counts_sd_water_level_x", "counts_coef",

@@ -1,4 +1,4 @@
-"""Posterior predictive checks (bayeszi.checks, bayeszi.checkplots) on simulated data.
+"""Posterior predictive checks (bayeszi.answers.checks, bayeszi.plots.checkplots) on simulated data.
 
 Sources of the check values, named beside each test:
 - Zero-inflated Poisson and its zero-source probability p / (p + (1 - p) exp(-mu)):
@@ -23,8 +23,8 @@ from scipy import special, stats
 from simulate import simulate
 
 import bayeszi as bz
-from bayeszi import checks
-from bayeszi.draws import fitted_rows, linear_predictors
+from bayeszi.answers import checks
+from bayeszi.engine.draws import fitted_rows, linear_predictors
 from bayeszi.families import get_family
 
 SMALL = dict(draws=400, tune=400, chains=2, cores=1, seed=3, progressbar=False)

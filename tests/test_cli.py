@@ -20,7 +20,7 @@ import pandas as pd
 import pytest
 
 import bayeszi
-from bayeszi.cli import main
+from bayeszi.app.cli import main
 from bayeszi.data import simulate_crayfish
 
 SMALL_STUDY = """\
@@ -99,7 +99,7 @@ def run_small_study() -> dict:
 
 
 # Short test fits raise sampler warnings on every API call; the report shows them already.
-pytestmark = pytest.mark.filterwarnings("ignore::bayeszi.validate.BayesziWarning")
+pytestmark = pytest.mark.filterwarnings("ignore::bayeszi.model.validate.BayesziWarning")
 
 
 @pytest.fixture(scope="module")
@@ -140,12 +140,12 @@ def test_usage_error_is_one_line_exit_2(capsys):
 
 
 def test_internal_failure_is_exit_1_without_traceback(monkeypatch, tmp_path, capsys):
-    import bayeszi.study
+    import bayeszi.app.study
 
     def broken(path):
         raise RuntimeError("simulated bug")
 
-    monkeypatch.setattr(bayeszi.study, "load_study", broken)
+    monkeypatch.setattr(bayeszi.app.study, "load_study", broken)
     assert main(["run", str(tmp_path / "x.toml"), "--out", str(tmp_path / "o")]) == 1
     line = one_line_error(capsys.readouterr().err)
     assert "internal error" in line and "simulated bug" in line
@@ -342,7 +342,7 @@ def test_unwritable_output_refused_before_sampling(tmp_path, capsys, monkeypatch
 
 def test_demo_study_is_valid_and_small():
     """The shipped demo study reads and checks against its data (no sampling here)."""
-    from bayeszi.study import demo_study_path, load_study
+    from bayeszi.app.study import demo_study_path, load_study
 
     study = load_study(demo_study_path())
     study.check(study.load_data())
@@ -354,7 +354,7 @@ def test_demo_study_is_valid_and_small():
 
 def test_study_file_documents_every_key():
     """docs/study-file.md names every key the reader accepts."""
-    from bayeszi import study as S
+    from bayeszi.app import study as S
 
     doc = (Path(__file__).parents[1] / "docs" / "study-file.md").read_text(encoding="utf-8")
     for key in {*S.STUDY_KEYS, *S.SAMPLER_KEYS, *S.MODEL_KEYS, *S.SCENARIO_KEYS,

@@ -41,10 +41,10 @@ from statsmodels.discrete.truncated_model import (
 )
 
 import bayeszi as bz
-from bayeszi.candidates import _Progress, candidate_specs, fit_candidates
-from bayeszi.compareplots import plot_comparison
-from bayeszi.comparison import RefitWrapper, check_same_data, compare, loo
-from bayeszi.draws import linear_predictors
+from bayeszi.answers.comparison import RefitWrapper, check_same_data, compare, loo
+from bayeszi.engine.draws import linear_predictors
+from bayeszi.fitting.candidates import _Progress, candidate_specs, fit_candidates
+from bayeszi.plots.compareplots import plot_comparison
 
 SMALL = {"draws": 400, "tune": 400, "chains": 2}
 SIX = ["poisson", "negbin", "zip", "zinb", "hurdle-poisson", "hurdle-negbin"]
@@ -212,12 +212,12 @@ def test_candidate_names_and_zeros_settings():
 
 
 def test_fit_candidates_checks_all_candidates_before_sampling(monkeypatch):
-    import bayeszi.api
+    import bayeszi.fitting.api
 
     def no_sampling(*a, **k):
         raise AssertionError("sampling started before the data were checked")
 
-    monkeypatch.setattr(bayeszi.api, "fit_spec", no_sampling)
+    monkeypatch.setattr(bayeszi.fitting.api, "fit_spec", no_sampling)
     df = pd.DataFrame({"y": [1, 2, 3, 1, 4, 2], "x": np.arange(6.0)})
     with pytest.raises(bz.BayesziError, match="candidate 'hurdle-poisson'.*no zeros"):
         fit_candidates(df, "y ~ x", ["poisson", "hurdle-poisson"], progressbar=False)
@@ -226,8 +226,8 @@ def test_fit_candidates_checks_all_candidates_before_sampling(monkeypatch):
 
 
 def test_fit_candidates_shows_each_data_warning_once(monkeypatch):
-    import bayeszi.api
-    from bayeszi.design import build_design
+    import bayeszi.fitting.api
+    from bayeszi.model.design import build_design
 
     calls = []
 
@@ -236,7 +236,7 @@ def test_fit_candidates_shows_each_data_warning_once(monkeypatch):
         build_design(data, spec)
         return spec.family
 
-    monkeypatch.setattr(bayeszi.api, "fit_spec", fake_fit)
+    monkeypatch.setattr(bayeszi.fitting.api, "fit_spec", fake_fit)
     df = pd.DataFrame({"y": [0, 2, 3, 0, 4, 2, 1, 0], "x": np.arange(8.0),
                        "site": list("aabbccdz")})
     with warnings.catch_warnings(record=True) as caught:
@@ -285,7 +285,7 @@ def test_high_pareto_k_rows_are_named_and_refitted_exactly(small_fit):
     w = RefitWrapper(small_fit)
     kept, held = w.sel_observations([20])
     refit = w.sample(kept)
-    assert refit.design.n == 39 and "r20" not in refit._data.index
+    assert refit.design.n == 39 and "r20" not in refit.data.index
     ll = w.log_likelihood__i(held, w.get_inference_data(refit)).values.ravel()
     post = refit.idata.posterior
     eta = (post["counts_coef"].sel(counts_term="Intercept").values
@@ -345,7 +345,7 @@ def test_refits_are_refused_past_the_budget(small_fit):
 # ---------------------------------------------------------------------------- refusals
 def _variant(m, **design_changes):
     v = dataclasses.replace(m, design=dataclasses.replace(m.design, **design_changes))
-    v._data = m._data.copy()
+    v.data = m.data.copy()
     return v
 
 
@@ -362,17 +362,17 @@ def test_compare_refuses_different_data(small_fit):
                                               "at 40 row"):
         compare({"a": m, "b": with_hours})
     moved = _variant(m)
-    moved._data["x"] = moved._data["x"] + np.where(np.arange(40) == 7, 0.5, 0.0)
+    moved.data["x"] = moved.data["x"] + np.where(np.arange(40) == 7, 0.5, 0.0)
     with pytest.raises(bz.BayesziError, match="column 'x' differs at 1 row.*r7"):
         compare({"a": m, "b": moved})
     relabelled = _variant(m)
-    relabelled._data.index = [f"q{i}" for i in range(40)]
+    relabelled.data.index = [f"q{i}" for i in range(40)]
     with pytest.raises(bz.BayesziError, match="row labels differ"):
         compare({"a": m, "b": relabelled})
     w = RefitWrapper(m)
     kept, _ = w.sel_observations([5])
     shorter = dataclasses.replace(m, design=dataclasses.replace(m.design, n=39))
-    shorter._data = kept
+    shorter.data = kept
     with pytest.raises(bz.BayesziError, match="40 rows vs 39 rows"):
         compare({"a": m, "b": shorter})
     with pytest.raises(bz.BayesziError, match="at least two"):

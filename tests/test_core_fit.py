@@ -107,7 +107,7 @@ def test_prior_override_is_used():
     pp = bz.prior_predictive(df, counts="y ~ x1", family="poisson",
                              priors={"counts": {"x1": bz.Prior("normal", 5.0, 0.01)}},
                              draws=2000, seed=1)
-    from bayeszi.design import build_design
+    from bayeszi.model.design import build_design
 
     d = build_design(df, bz.make_spec("y ~ x1", family="poisson"))
     j = d.counts.terms.index("x1")
@@ -154,7 +154,7 @@ def test_spec_json_round_trip():
 
 
 def test_cli_exit_codes(capsys):
-    from bayeszi.cli import main
+    from bayeszi.app.cli import main
 
     assert main(["--version"]) == 0
     assert main(["no-such-command"]) == 2
@@ -164,6 +164,6 @@ def test_cli_exit_codes(capsys):
 def test_public_names_are_functions_after_submodule_imports():
     import importlib
 
-    for mod in ("bayeszi.comparison", "bayeszi.candidates", "bayeszi.api"):
+    for mod in ("bayeszi.answers.comparison", "bayeszi.fitting.candidates", "bayeszi.fitting.api"):
         importlib.import_module(mod)
     assert callable(bz.compare) and callable(bz.fit_candidates) and callable(bz.fit)

@@ -93,7 +93,7 @@ def test_same_seed_same_data_other_seed_other_data(name: str) -> None:
 
 @pytest.mark.parametrize("name", sorted(GENERATORS))
 def test_missing_output_folder_is_a_clear_error(name: str, tmp_path: Path) -> None:
-    from bayeszi.errors import BayesziError
+    from bayeszi.base.errors import BayesziError
 
     gen, _ = GENERATORS[name]
     missing = tmp_path / "nowhere"
@@ -103,7 +103,7 @@ def test_missing_output_folder_is_a_clear_error(name: str, tmp_path: Path) -> No
 
 
 def test_bad_settings_are_clear_errors() -> None:
-    from bayeszi.errors import BayesziError
+    from bayeszi.base.errors import BayesziError
 
     with pytest.raises(BayesziError, match="n_reaches"):
         crayfish_gen.simulate(n_reaches=0)
@@ -338,8 +338,8 @@ def test_packaged_generator_is_importable_and_matches_the_script() -> None:
 
 
 def test_simulate_crayfish_small_and_bad_input() -> None:
+    from bayeszi.base.errors import BayesziError
     from bayeszi.data import simulate_crayfish
-    from bayeszi.errors import BayesziError
 
     data, truth = simulate_crayfish(seed=3, n_reaches=8, n_rivers=2)
     assert data["reach"].nunique() == 8 and truth["seed"] == 3

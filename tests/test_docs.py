@@ -51,12 +51,12 @@ KNOWN_WITHOUT_EXAMPLE = {
     "bayeszi.fit_spec", "bayeszi.make_spec", "bayeszi.load", "bayeszi.FittedModel",
     "bayeszi.Prior", "bayeszi.ModelSpec", "bayeszi.SamplerSettings", "bayeszi.BayesziError",
     "bayeszi.BayesziWarning", "FittedModel.diagnostics", "FittedModel.sampler_problems",
-    "FittedModel.coefficients", "FittedModel.save", "bayeszi.candidates.Candidate",
-    "bayeszi.study.Candidate", "bayeszi.study.Contrast", "bayeszi.study.Scenario",
-    "bayeszi.study.Study", "bayeszi.study.demo_study_path", "bayeszi.study.load_study",
-    "bayeszi.study.parse_study", "bayeszi.study.read_table", "bayeszi.study.sha256_of",
-    "bayeszi.report.report_saved", "bayeszi.report.run_study", "bayeszi.cli.build_parser",
-    "bayeszi.cli.main",
+    "FittedModel.coefficients", "FittedModel.save", "bayeszi.fitting.candidates.Candidate",
+    "bayeszi.app.study.Candidate", "bayeszi.app.study.Contrast", "bayeszi.app.study.Scenario",
+    "bayeszi.app.study.Study", "bayeszi.app.study.demo_study_path", "bayeszi.app.study.load_study",
+    "bayeszi.app.study.parse_study", "bayeszi.app.study.read_table", "bayeszi.app.study.sha256_of",
+    "bayeszi.app.report.report_saved", "bayeszi.app.report.run_study",
+    "bayeszi.app.cli.build_parser", "bayeszi.app.cli.main",
 }
 
 
@@ -92,7 +92,7 @@ def test_api_reference_is_current():
 
 
 def test_api_reference_names_every_public_object():
-    from bayeszi.fitted import FittedModel
+    from bayeszi.fitting.fitted import FittedModel
 
     text = (DOCS / "api.md").read_text(encoding="utf-8")
     headings = set(re.findall(r"^###? `([^`]+)`", text, flags=re.M))
@@ -143,7 +143,7 @@ def _crayfish_slice() -> pd.DataFrame:
 
 def _short_fit(cache: Any) -> Any:
     """``bayeszi.fit`` with the sampler cut to :data:`SHORT`, each distinct call made once."""
-    from bayeszi.api import fit as real_fit
+    from bayeszi.fitting.api import fit as real_fit
 
     def fit(data: pd.DataFrame, *args: Any, **kwargs: Any) -> Any:
         kwargs.update(SHORT)

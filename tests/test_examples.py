@@ -15,8 +15,8 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from bayeszi.cli import main
-from bayeszi.study import load_study
+from bayeszi.app.cli import main
+from bayeszi.app.study import load_study
 
 ROOT = Path(__file__).parents[1]
 EXAMPLES = ["camera_traps", "circuit_boards", "crayfish"]

@@ -23,10 +23,10 @@ import pytest
 from scipy import stats
 
 import bayeszi as bz
-from bayeszi.build import build_model
-from bayeszi.design import build_design
-from bayeszi.errors import BayesziError
-from bayeszi.priors import resolve
+from bayeszi.base.errors import BayesziError
+from bayeszi.model.build import build_model
+from bayeszi.model.design import build_design
+from bayeszi.model.priors import resolve
 
 FAST = dict(chains=2, cores=1, progressbar=False)
 
@@ -246,7 +246,7 @@ def test_a_grouping_column_with_200_levels_builds() -> None:
     df, _ = many_levels()
     d = build_design(df, bz.make_spec("y ~ x", family="zip", groups="f"))
     assert len(d.groups[0].levels) == 200 and d.groups[0].counts_per_level.min() == 5
-    model = build_model(d, resolve(d, None))
+    model = build_model(d, resolve(d, None)).model
     assert len(model.coords["f"]) == 200
 
 

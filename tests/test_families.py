@@ -27,7 +27,7 @@ from scipy import special as sc
 from scipy import stats
 
 import bayeszi.families as families_module
-from bayeszi.errors import BayesziError
+from bayeszi.base.errors import BayesziError
 from bayeszi.families import FAMILY_NAMES, Family, get_family
 
 # ----------------------------------------------------------------------------- grids

@@ -36,9 +36,9 @@ from test_hardening import make_tiny_fit, tiny_data
 
 import bayeszi
 import bayeszi as bz
-from bayeszi import store
-from bayeszi.cli import main
-from bayeszi.errors import BayesziError
+from bayeszi.app.cli import main
+from bayeszi.base.errors import BayesziError
+from bayeszi.engine import archive as store
 
 PROC = "/proc/bayeszi-fault-test"  # nobody, not even root, can create files in /proc
 HAVE_PROC = os.path.isdir("/proc/self")
@@ -85,9 +85,9 @@ def _interrupting_sample(*args: Any, **kwargs: Any) -> None:
 @pytest.fixture
 def pymc_sampler(monkeypatch):
     """Make sampler='auto' mean PyMC's NUTS, whose pm.sample these tests replace."""
-    import bayeszi.sample
+    import bayeszi.model.sample
 
-    monkeypatch.setattr(bayeszi.sample, "choose_sampler", lambda *args, **kwargs: "pymc")
+    monkeypatch.setattr(bayeszi.model.sample, "choose_sampler", lambda *args, **kwargs: "pymc")
 
 
 def small_frame() -> pd.DataFrame:
@@ -137,9 +137,10 @@ def test_real_sigint_during_real_sampling_is_not_swallowed(monkeypatch, pymc_sam
 
 def test_a_short_result_from_the_sampler_is_refused(tiny, monkeypatch):
     """Whatever the reason, fewer draws than asked for never become a fit."""
-    import bayeszi.api as api
+    import bayeszi.engine.fit as engine_fit
 
-    monkeypatch.setattr(api, "run_nuts", lambda model, s: tiny.idata.isel(draw=slice(0, 5)))
+    monkeypatch.setattr(engine_fit, "run_nuts",
+                        lambda model, s, rows: tiny.idata.isel(draw=slice(0, 5)))
     with pytest.raises(BayesziError, match=r"returned 2 chain\(s\) of 5 draws instead of 2 of "
                                            r"20"):
         bz.fit(tiny_data(), counts="y ~ x + C(f)", zeros="~ w", family="zinb", exposure="e",
@@ -221,7 +222,7 @@ def test_a_flipped_byte_is_refused_or_changes_nothing(tiny, saved, tmp_path, whe
         assert "saved fit" in str(err) or "bayeszi" in str(err)
         return
     _posterior_equal(tiny, back)  # loaded: then exactly the saved numbers
-    pd.testing.assert_frame_equal(back._data, tiny._data)
+    pd.testing.assert_frame_equal(back.data, tiny.data)
 
 
 def _edit(path: Path, change: Any) -> None:

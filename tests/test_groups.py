@@ -25,12 +25,12 @@ from graph_reference import graph_log_likelihood
 from scipy import stats
 
 import bayeszi as bz
-from bayeszi.build import build_model
-from bayeszi.design import build_design
-from bayeszi.draws import fitted_rows, linear_predictors
+from bayeszi.base.spec import ModelSpec
+from bayeszi.engine.draws import fitted_rows, linear_predictors
 from bayeszi.families import get_family
-from bayeszi.priors import resolve
-from bayeszi.spec import ModelSpec
+from bayeszi.model.build import build_model
+from bayeszi.model.design import build_design
+from bayeszi.model.priors import resolve
 
 TRUE = {"counts": {"Intercept": 0.4, "x": 0.35}, "zeros": {"Intercept": -0.9, "w": 0.8},
         "alpha": 0.3}
@@ -196,7 +196,7 @@ def test_model_variables_for_every_group_option():
         warnings.simplefilter("ignore")  # 'season' has only 3 levels
         d = _design(df, groups=("reach", "season"), nested={"reach": "river"},
                     correlated=True, varying={"counts": ("x",), "zeros": ("w",)})
-    model = build_model(d, resolve(d, None))
+    model = build_model(d, resolve(d, None)).model
     free = {v.name for v in model.free_RVs}
     for g, n_levels in (("reach", 10), ("season", 3)):
         # non-centred: the effects are deterministic functions of sd and standard normals
@@ -218,7 +218,7 @@ def test_correlation_prior_is_the_lkj_density(eta):
 
     df, _ = reach_survey(seed=3, n_reaches=8, visits=(3, 3), lines=1)
     d = _design(df, groups=("reach",), correlated=True)
-    model = build_model(d, resolve(d, {"lkj_eta": eta}))
+    model = build_model(d, resolve(d, {"lkj_eta": eta})).model
     u = pt.dscalar("u")
     half_logp = pytensor.function([u], pm.logp(model["z_corr_reach"], u), mode="FAST_COMPILE")
     v = pt.dvector("v")

@@ -37,12 +37,12 @@ from hypothesis import strategies as st
 
 import bayeszi
 import bayeszi as bz
-from bayeszi.build import build_model
-from bayeszi.cli import main as cli_main
-from bayeszi.design import build_design
-from bayeszi.errors import BayesziError
-from bayeszi.priors import Prior, resolve
-from bayeszi.spec import ModelSpec
+from bayeszi.app.cli import main as cli_main
+from bayeszi.base.errors import BayesziError
+from bayeszi.base.spec import ModelSpec
+from bayeszi.model.build import build_model
+from bayeszi.model.design import build_design
+from bayeszi.model.priors import Prior, resolve
 
 QUICK = dict(deadline=None, derandomize=True, database=None,
              suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large,
@@ -354,7 +354,7 @@ def test_every_accepted_design_builds_a_model(case: Case) -> None:
     _, design, priors = result
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        model = build_model(design, priors)
+        model = build_model(design, priors).model
     assert "y" in model.named_vars
     assert list(model.coords["counts_term"]) == design.counts.terms
 
@@ -716,7 +716,7 @@ def study_folder(tmp_path_factory):
 @settings(max_examples=150, **QUICK)
 @given(case=study_cases())
 def test_study_parser_reads_or_names_the_problem(study_folder, case: Case) -> None:
-    from bayeszi.study import parse_study
+    from bayeszi.app.study import parse_study
 
     study = outcome(case, lambda: parse_study(case.payload["raw"],
                                               str(study_folder / "study.toml")))
@@ -727,7 +727,7 @@ def test_study_parser_reads_or_names_the_problem(study_folder, case: Case) -> No
 @settings(max_examples=40, **QUICK)
 @given(case=study_cases())
 def test_study_check_against_the_data_or_names_the_problem(study_folder, case: Case) -> None:
-    from bayeszi.study import parse_study
+    from bayeszi.app.study import parse_study
 
     def check() -> bool:
         study = parse_study(case.payload["raw"], str(study_folder / "study.toml"))
@@ -743,7 +743,7 @@ def test_study_check_against_the_data_or_names_the_problem(study_folder, case: C
                                        "[[model]]\nname = 'x'\n", "\x00\x01", "[study]\n"
                                        "data = 'data.csv'\nresponse = 'y'\n"])))
 def test_any_study_text_loads_or_is_a_bayeszi_error(study_folder, text: str) -> None:
-    from bayeszi.study import load_study
+    from bayeszi.app.study import load_study
 
     path = study_folder / "random.toml"
     path.write_text(text, encoding="utf-8", errors="surrogatepass")
@@ -866,7 +866,7 @@ def test_odd_but_valid_inputs_fit_predict_and_save(tmp_path) -> None:
     assert np.isfinite(table[["mean", "sd"]].to_numpy()).all()
     assert list(pred.index[:4]) == ["rec0", "rec1", "rec2", "rec3"]
     np.testing.assert_array_equal(back.design.counts.X, m.design.counts.X)
-    assert list(back._data.index) == list(df.index)
+    assert list(back.data.index) == list(df.index)
 
 
 # ============================================================================ docs/errors.md

@@ -1,5 +1,5 @@
-"""The pointwise log-likelihood stored per pattern (bayeszi.loglik) gives LOO exactly as if it
-were stored per record. Reference: ``arviz.loo`` on the per-record array (ArviZ's PSIS-LOO,
+"""The pointwise log-likelihood stored per pattern (bayeszi.engine.loglik) gives LOO exactly as
+if it were stored per record. Reference: ``arviz.loo`` on the per-record array (ArviZ's PSIS-LOO,
 Vehtari, Gelman & Gabry 2017), which smooths each column on its own, so identical columns
 must get identical values."""
 
@@ -14,9 +14,9 @@ import pytest
 from graph_reference import graph_log_likelihood
 
 import bayeszi as bz
-from bayeszi import loglik
-from bayeszi.build import build_model
-from bayeszi.patterns import pattern_log_likelihood
+from bayeszi.engine import loglik
+from bayeszi.model.build import build_model
+from bayeszi.engine.pointwise import pattern_log_likelihood
 
 
 def _pattern_idata(seed: int = 3, chains: int = 2, draws: int = 200, n_pat: int = 12,
@@ -86,7 +86,7 @@ def test_large_fit_stores_per_pattern_and_loo_is_unchanged(monkeypatch, tmp_path
     # the stored values are the model graph's density, and do not depend on the chunking
     ref_graph, stored = graph_log_likelihood(m, draws=10)
     np.testing.assert_allclose(stored, ref_graph, rtol=1e-9, atol=1e-9)
-    pats = build_model(m.design, m.priors).bayeszi_likelihood.patterns
+    pats = build_model(m.design, m.priors).likelihood.patterns
     np.testing.assert_array_equal(pattern_log_likelihood(m, pats, chunk=7),
                                   m.idata.log_likelihood["y"].values)
     est = m.loo()

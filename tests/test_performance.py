@@ -25,14 +25,14 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-import bayeszi.sample as S
-from bayeszi.build import build_model
-from bayeszi.design import build_design
+import bayeszi.model.sample as S
+from bayeszi.base.errors import BayesziWarning
+from bayeszi.base.spec import ModelSpec, SamplerSettings
 from bayeszi.families import FAMILY_NAMES, get_family
-from bayeszi.patterns import find_patterns, pattern_logp
-from bayeszi.priors import resolve
-from bayeszi.spec import ModelSpec, SamplerSettings
-from bayeszi.validate import BayesziWarning
+from bayeszi.model.build import build_model
+from bayeszi.model.design import build_design
+from bayeszi.model.patterns import find_patterns, pattern_logp
+from bayeszi.model.priors import resolve
 
 pt = pytest.importorskip("pytensor.tensor")
 import pytensor  # noqa: E402
@@ -167,8 +167,8 @@ def test_model_density_and_prior_draws_per_record():
     df = _discrete_frame(1500, seed=3)
     spec = _spec("zinb")
     design = build_design(df, spec)
-    model = build_model(design, resolve(design, None))
-    pats = model.bayeszi_likelihood.patterns
+    built = build_model(design, resolve(design, None))
+    model, pats = built.model, built.likelihood.patterns
     assert pats.pooled
     point = model.initial_point()
     total = model.compile_logp(vars=[model["y"]])(point)
@@ -213,9 +213,8 @@ def test_sampler_auto_weighs_the_work(monkeypatch):
 def test_fit_work_counts_patterns():
     df = _discrete_frame(1500, seed=3)
     design = build_design(df, _spec("zinb"))
-    model = build_model(design, resolve(design, None))
-    n_pat = model.bayeszi_likelihood.patterns.n_patterns
-    work = S.fit_work(model, SamplerSettings(draws=100, tune=200, chains=3))
+    n_pat = build_model(design, resolve(design, None)).n_rows
+    work = S.fit_work(n_pat, SamplerSettings(draws=100, tune=200, chains=3))
     assert work == n_pat * 300 * 3
 
 
@@ -232,7 +231,7 @@ def _small_fit(sampler: str):
 
 def _check_fit(fitted, label_start: str, folder):
     import bayeszi as bz
-    from bayeszi.draws import fitted_rows, linear_predictors
+    from bayeszi.engine.draws import fitted_rows, linear_predictors
 
     assert fitted.idata.sample_stats.attrs["bayeszi_sampler"].startswith(label_start)
     # the sampler used travels with the saved fit

@@ -1,4 +1,6 @@
-"""Predictions, contrasts and average predictive comparisons (bayeszi.predict, bayeszi.contrast).
+"""Predictions, contrasts and average predictive comparisons.
+
+Modules: bayeszi.answers.predict and bayeszi.answers.contrast.
 
 Two kinds of fitted models are used:
 
@@ -13,6 +15,7 @@ Two kinds of fitted models are used:
 from __future__ import annotations
 
 import copy
+import dataclasses
 import warnings
 
 import arviz as az
@@ -24,13 +27,14 @@ from scipy import stats
 from simulate import simulate
 
 import bayeszi as bz
-import bayeszi.predict
-from bayeszi.design import build_design
+import bayeszi.answers.predict
+from bayeszi.answers.predict import plan_chunks
+from bayeszi.engine.fit import add_user_scale
 from bayeszi.families import get_family
-from bayeszi.fitted import FittedModel, add_user_scale
-from bayeszi.predict import plan_chunks
-from bayeszi.priors import resolve
-from bayeszi.sample import Thresholds
+from bayeszi.fitting.fitted import FittedModel
+from bayeszi.model.design import build_design
+from bayeszi.model.diagnostics import Diagnostics
+from bayeszi.model.priors import resolve
 
 pytestmark = pytest.mark.filterwarnings("ignore::bayeszi.BayesziWarning")
 
@@ -39,10 +43,9 @@ GEARS = ["a", "b", "c"]
 
 
 # ================================================================= hand-built fitted models
-def _clean_diag(n: int, divergences: int = 0) -> dict:
-    return {"table": pd.DataFrame(columns=["r_hat", "ess_bulk", "ess_tail"]),
-            "divergences": divergences, "draws": n, "bad_rhat": [], "bad_ess": [],
-            "max_treedepth_hits": 0, "thresholds": Thresholds()}
+def _clean_diag(n: int, divergences: int = 0) -> Diagnostics:
+    return Diagnostics(table=pd.DataFrame(columns=["r_hat", "ess_bulk", "ess_tail"]),
+                       divergences=divergences, draws=n, chains=1)
 
 
 def hand_fit(family: str, n_draws: int = 20, seed: int = 5, site_sd: float | None = None,
@@ -87,9 +90,8 @@ def hand_fit(family: str, n_draws: int = 20, seed: int = 5, site_sd: float | Non
                      "dispersion_sqrt": np.sqrt(par["alpha"])[None]})
     idata = az.from_dict(posterior=post, coords=coords, dims=dims)
     add_user_scale(idata, design)
-    m = FittedModel(spec, design, idata, resolve(design, None))
-    m._data = df[design.used_columns].copy()  # type: ignore[attr-defined]
-    m._diag = _clean_diag(S)
+    m = FittedModel(spec, design, idata, resolve(design, None), df[design.used_columns].copy(),
+                    _clean_diag(S))
     return m, par
 
 
@@ -147,7 +149,7 @@ def hand_quantities(family: str, mu, p, alpha, expo, k: int, kmax: int) -> dict:
 @pytest.mark.parametrize("family", FAMILIES)
 def test_every_quantity_equals_hand_computation_per_draw(family):
     m, par = hand_fit(family)
-    new = m._data.head(25).copy()
+    new = m.data.head(25).copy()
     new["exposure"] = np.linspace(0.5, 4.0, len(new))
     mu, p, alpha, expo = hand_parts(m, par, new)
     k, kmax = 3, 6
@@ -179,7 +181,7 @@ def test_every_quantity_equals_hand_computation_per_draw(family):
 
 def test_typical_groups_leave_group_effects_out():
     m, par = hand_fit("zinb")
-    new = m._data.head(10)
+    new = m.data.head(10)
     mu, p, alpha, expo = hand_parts(m, par, new, effects=False)
     got = m.prediction_draws(new, what="p_zero", groups="typical")
     law = stats.nbinom(1.0 / alpha, 1.0 / (1.0 + alpha * mu))
@@ -189,7 +191,7 @@ def test_typical_groups_leave_group_effects_out():
 def test_new_and_average_groups_with_zero_spread_equal_typical():
     # with every group sd 0, a new group's effect is exactly 0
     m, _ = hand_fit("hurdle-negbin", site_sd=0.0)
-    new = m._data.head(10).drop(columns="site")
+    new = m.data.head(10).drop(columns="site")
     typical = m.prediction_draws(new, what="mean", groups="typical").values
     for mode in ("new", "average"):
         got = m.prediction_draws(new, what="mean", groups=mode, seed=1).values
@@ -201,7 +203,7 @@ def test_population_average_matches_lognormal_mean():
     # multiplies E[Y] by exp(s^2 / 2), the lognormal mean (common fact, no source needed).
     s, M = 0.5, 4000
     m, _ = hand_fit("poisson", site_sd=s, n_draws=10)
-    new = m._data.head(8)
+    new = m.data.head(8)
     typical = m.prediction_draws(new, what="mean", groups="typical").values
     avg = m.prediction_draws(new, what="mean", groups="average", n_average=M, seed=3).values
     factor = avg / typical
@@ -214,7 +216,7 @@ def test_hurdle_exposure_moves_counts_part_only():
     # hurdle-poisson: P(Y = 0) = p does not depend on exposure, and doubling mu changes
     # E[Y] = (1 - p) mu / (1 - exp(-mu)) by the factor 2 / (1 + exp(-mu)), not 2.
     m, par = hand_fit("hurdle-poisson")
-    new = m._data.head(12)
+    new = m.data.head(12)
     one = m.prediction_draws(new, what="mean", exposure=1.0).values
     two = m.prediction_draws(new, what="mean", exposure=2.0).values
     mu1, *_ = hand_parts(m, par, new, exposure=1.0)
@@ -226,7 +228,7 @@ def test_hurdle_exposure_moves_counts_part_only():
 
 def test_category_average_comparison_is_mean_difference_between_levels():
     m, _ = hand_fit("zip")
-    data = m._data
+    data = m.data
     apc = m.average_comparison("gear", what="rate")
     assert list(apc["comparison"]) == ["b vs a", "c vs a"]
     base = m.prediction_draws(data.assign(gear="a"), what="rate").values
@@ -239,16 +241,16 @@ def test_category_average_comparison_is_mean_difference_between_levels():
 
 def test_unseen_factor_level_names_known_levels():
     m, _ = hand_fit("zinb")
-    new = m._data.head(3).copy()
+    new = m.data.head(3).copy()
     new["gear"] = ["a", "mud", "b"]
     _raises(r"'gear'.*\['mud'\].*known levels: \['a', 'b', 'c'\]", m.predict, new)
 
 
 def test_sampler_problems_are_warned_and_kept():
     m, _ = hand_fit("poisson")
-    m._diag = _clean_diag(20, divergences=3)
+    m = dataclasses.replace(m, sampling=_clean_diag(20, divergences=3))
     with pytest.warns(bz.BayesziWarning, match="3 divergent"):
-        table = m.predict(m._data.head(2))
+        table = m.predict(m.data.head(2))
     assert "3 divergent" in table.attrs["sampler_problems"][0]
 
 
@@ -264,8 +266,8 @@ def test_chunks_keep_linked_rows_together():
 
 def test_many_small_chunks_give_the_same_answers(monkeypatch):
     m, par = hand_fit("negbin", n=400, n_draws=100)
-    rows = m._data
-    monkeypatch.setattr(bayeszi.predict, "CHUNK_ELEMENTS", 2000)  # 10 rows per chunk
+    rows = m.data
+    monkeypatch.setattr(bayeszi.answers.predict, "CHUNK_ELEMENTS", 2000)  # 10 rows per chunk
     got = m.predict(rows, what="p_zero")
     mu, _, alpha, _ = hand_parts(m, par, rows)
     p0 = (1 + alpha * mu) ** (-1 / alpha)  # NB P(0) (common fact)
@@ -492,7 +494,7 @@ def test_bad_input_says_what_to_do(cached_fit):
 
 def test_plain_families_have_no_zeros_part_probability():
     m, _ = hand_fit("negbin", n_draws=3)
-    _raises(r"no zeros part.*what='p_zero'", m.predict, m._data.head(2), what="p_zeros_part")
+    _raises(r"no zeros part.*what='p_zero'", m.predict, m.data.head(2), what="p_zeros_part")
     with warnings.catch_warnings():
         warnings.simplefilter("error")
-        m.predict(m._data.head(2), what="p_zero")
+        m.predict(m.data.head(2), what="p_zero")

@@ -24,11 +24,11 @@ import pytest
 from test_cli import run_small_study
 
 import bayeszi
-from bayeszi.report.document import format_number
-from bayeszi.report.output import MARKER, OutputFolder
+from bayeszi.app.report.document import format_number
+from bayeszi.app.report.output import MARKER, OutputFolder
 
 # Short test fits raise sampler warnings on every API call; the report shows them already.
-pytestmark = pytest.mark.filterwarnings("ignore::bayeszi.validate.BayesziWarning")
+pytestmark = pytest.mark.filterwarnings("ignore::bayeszi.model.validate.BayesziWarning")
 
 SECTIONS = ["data", "models", "diagnostics", "comparison", "coefficients", "groups",
             "zero-checks", "spread", "rootograms", "residuals", "zero-sources", "predictions",
@@ -140,7 +140,7 @@ def test_coefficients_equal_the_api(report):
 
 
 def test_loo_table_equals_the_api(report):
-    from bayeszi.comparison import compare
+    from bayeszi.answers.comparison import compare
 
     fits = {n: _fit(report, n) for n in ("zinb-reach", "poisson")}
     api = compare(fits)
@@ -155,7 +155,7 @@ def test_loo_table_equals_the_api(report):
 
 
 def test_data_summary_and_zero_check_equal_the_api(report):
-    from bayeszi.checks import zero_check
+    from bayeszi.answers.checks import zero_check
 
     fit = _fit(report, "zinb-reach")
     y = fit.design.y
@@ -171,7 +171,7 @@ def test_data_summary_and_zero_check_equal_the_api(report):
 
 
 def test_scenario_predictions_equal_the_api(report):
-    from bayeszi.study import load_study
+    from bayeszi.app.study import load_study
 
     study = load_study(str(report["study"]))
     scn = study.scenario("open reach")
@@ -246,7 +246,7 @@ def test_output_folder_failure_leaves_nothing_and_keeps_earlier(tmp_path):
 
 
 def test_output_folder_refusals(tmp_path):
-    from bayeszi.errors import BayesziError
+    from bayeszi.base.errors import BayesziError
 
     (tmp_path / "theirs").mkdir()
     (tmp_path / "theirs" / "x.txt").write_text("x")

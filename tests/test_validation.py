@@ -11,8 +11,8 @@ import pandas as pd
 import pytest
 
 import bayeszi as bz
-from bayeszi.design import build_design
-from bayeszi.spec import ModelSpec
+from bayeszi.base.spec import ModelSpec
+from bayeszi.model.design import build_design
 
 
 @pytest.fixture
@@ -172,7 +172,7 @@ def test_group_problems(df):
 
 def test_unknown_prior_term(df):
     with pytest.raises(bz.BayesziError, match=r"unknown term.*'nope'"):
-        from bayeszi.priors import resolve
+        from bayeszi.model.priors import resolve
 
         resolve(design(df), {"counts": {"nope": ["normal", 0, 1]}})
 

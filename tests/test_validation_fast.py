@@ -15,8 +15,8 @@ import pytest
 from scipy import stats
 
 import bayeszi as bz
-from bayeszi.design import build_design
-from bayeszi.priors import resolve
+from bayeszi.model.design import build_design
+from bayeszi.model.priors import resolve
 
 sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 

@@ -44,7 +44,7 @@ import pandas as pd
 from scipy import stats
 
 import bayeszi as bz
-from bayeszi.priors import Prior
+from bayeszi.model.priors import Prior
 
 #: Formulas used throughout: a continuous (x) and a binary (b) input for the counts, a
 #: continuous one (w) for the zeros part; effort enters as exposure.
@@ -265,9 +265,9 @@ def fit(df: pd.DataFrame, family: str, groups: bool, prior: SimPrior, settings: 
                    tune=settings.tune, chains=settings.chains, cores=settings.cores,
                    target_accept=settings.target_accept, seed=seed, progressbar=False)
     diag = m.diagnostics()
-    table = diag["table"]
+    table = diag.table
     record = {
-        "divergences": int(diag["divergences"]),
+        "divergences": int(diag.divergences),
         "max_rhat": float(table["r_hat"].max()),
         "min_ess_bulk": float(table["ess_bulk"].min()),
         "min_ess_tail": float(table["ess_tail"].min()),

@@ -47,7 +47,7 @@ import numpy as np
 import pandas as pd
 
 import bayeszi as bz
-from bayeszi.errors import BayesziError
+from bayeszi.base.errors import BayesziError
 from validation import common as C
 
 #: The families of the demo and the two examples (ZINB, hurdle-NB, ZIP).

@@ -214,9 +214,9 @@ def bayes_fit(family: str, df: pd.DataFrame, draws: int, tune: int, seed: int
         m = bz.fit(df, counts=f"{RESPONSE} ~ {RHS}", zeros=f"~ {RHS}", family=family,
                    draws=draws, tune=tune, chains=2, cores=1, seed=seed, progressbar=False)
     diag = m.diagnostics()
-    return m, {"divergences": int(diag["divergences"]),
-               "max_rhat": float(diag["table"]["r_hat"].max()),
-               "min_ess_bulk": float(diag["table"]["ess_bulk"].min()),
+    return m, {"divergences": int(diag.divergences),
+               "max_rhat": float(diag.table["r_hat"].max()),
+               "min_ess_bulk": float(diag.table["ess_bulk"].min()),
                "seconds": time.perf_counter() - t0,
                "warnings": " | ".join(sorted({str(w.message)[:160] for w in caught
                                               if issubclass(w.category, bz.BayesziWarning)}))}
@@ -322,7 +322,7 @@ def pairwise_consistency(fits: dict[str, Any], mles: dict[str, MLE]) -> pd.DataF
     """Every pair: the elpd difference and its standard error (paired pointwise values), the
     AIC difference, and whether LOO and AIC order the pair the same way (or LOO calls it a
     tie within :data:`TIE_SE` standard errors)."""
-    from bayeszi.comparison import loo
+    from bayeszi.answers.comparison import loo
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")

@@ -43,7 +43,7 @@ import numpy as np
 import pandas as pd
 
 import bayeszi as bz
-from bayeszi.errors import BayesziError
+from bayeszi.base.errors import BayesziError
 from validation import common as C
 
 

@@ -110,7 +110,7 @@ def simulate_crayfish(
     their defaults this is exactly the shipped data. Change ``n_reaches`` (and
     ``n_rivers``) for smaller or larger data sets; see
     :func:`bayeszi.data.generate_crayfish.simulate` for every argument.
-    A bad argument raises :class:`bayeszi.errors.BayesziError`.
+    A bad argument raises :class:`bayeszi.base.errors.BayesziError`.
 
     Example
     -------

@@ -50,7 +50,7 @@ import numpy as np
 import pandas as pd
 
 try:  # the package's error class when installed; a plain ValueError when run standalone
-    from bayeszi.errors import BayesziError
+    from bayeszi.base.errors import BayesziError
 except ImportError:  # pragma: no cover - only when the script is copied out of the package
     BayesziError = ValueError  # type: ignore[misc,assignment]
 

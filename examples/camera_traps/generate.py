@@ -48,7 +48,7 @@ import numpy as np
 import pandas as pd
 
 try:  # the package's error class when installed; a plain ValueError otherwise
-    from bayeszi.errors import BayesziError
+    from bayeszi.base.errors import BayesziError
 except ImportError:  # pragma: no cover
     BayesziError = ValueError  # type: ignore[misc,assignment]
 

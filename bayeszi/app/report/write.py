@@ -1,0 +1,76 @@
+"""Write a :class:`~bayeszi.app.report.document.Document` into an output folder.
+
+The folder gets ``report.html`` (self-contained: figures embedded), ``tables/NAME.csv`` for
+every table (full precision) and ``figures/NAME.png`` and ``figures/NAME.svg`` for every
+figure. Everything goes into the temporary folder of an
+:class:`~bayeszi.app.report.output.OutputFolder`, which the caller commits.
+
+Example
+-------
+>>> import os, tempfile, pandas as pd
+>>> from bayeszi.app.report.document import Document, Section, Table
+>>> from bayeszi.app.report.output import OutputFolder
+>>> doc = Document("t", sections=[Section("s", "S", [Table("rows", pd.DataFrame({"y": [1]}),
+...                                                       "c")])])
+>>> with OutputFolder(os.path.join(tempfile.mkdtemp(), "out")) as out:
+...     files = write_document(doc, out)
+...     _ = out.commit()
+>>> files
+['tables/rows.csv', 'report.html']
+"""
+
+from __future__ import annotations
+
+import io
+import re
+from collections.abc import Sequence
+
+from bayeszi.app.report.document import Document, render_html
+from bayeszi.app.report.output import OutputFolder
+
+REPORT_NAME = "report.html"
+
+
+def slug(name: str) -> str:
+    """A file-name-safe form of ``name``.
+
+    >>> slug("zinb reach (v2)")
+    'zinb-reach-v2'
+    """
+    s = re.sub(r"[^A-Za-z0-9_.+-]+", "-", name.strip()).strip("-.")
+    return s or "item"
+
+
+def figure_bytes(figure, fmt: str, dpi: int = 110) -> bytes:
+    """The figure rendered as ``png`` or ``svg`` bytes."""
+    buf = io.BytesIO()
+    meta = {"Software": None} if fmt == "png" else {"Date": None}
+    figure.savefig(buf, format=fmt, dpi=dpi, bbox_inches="tight", metadata=meta)
+    return buf.getvalue()
+
+
+def write_document(doc: Document, out: OutputFolder, footer: Sequence[str] = ()) -> list[str]:
+    """Write tables, figures and the page into ``out``; returns the relative file names."""
+    import matplotlib.pyplot as plt
+
+    files: list[str] = []
+    seen: set[str] = set()
+    for t in doc.tables():
+        name = slug(t.name)
+        if name in seen:
+            raise ValueError(f"two report tables share the file name {name!r}")
+        seen.add(name)
+        frame = t.frame.reset_index() if t.index else t.frame
+        files.append(out.write_text(f"tables/{name}.csv", frame.to_csv(index=False)))
+    images: dict[str, bytes] = {}
+    for f in doc.figures():
+        name = slug(f.name)
+        if name in images:
+            raise ValueError(f"two report figures share the file name {name!r}")
+        png = figure_bytes(f.figure, "png")
+        images[f.name] = png
+        files.append(out.write_bytes(f"figures/{name}.png", png))
+        files.append(out.write_bytes(f"figures/{name}.svg", figure_bytes(f.figure, "svg")))
+        plt.close(f.figure)
+    files.append(out.write_text(REPORT_NAME, render_html(doc, images, footer)))
+    return files

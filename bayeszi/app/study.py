@@ -1,0 +1,549 @@
+"""Read and check a study file: the data, the candidate models, the sampler and the scenarios.
+
+A study file is TOML in bayeszi's own schema (documented in docs/study-file.md). It is read
+strictly: an unknown key anywhere is a :class:`~bayeszi.base.errors.BayesziError` that names the
+key, where it sits and the keys allowed there. :func:`load_study` only reads and checks the
+file itself; :meth:`Study.check` then checks the study against its data (columns, formulas,
+factor levels of the scenarios) without sampling, so a bad study fails in seconds.
+
+Example
+-------
+>>> from bayeszi.app.study import load_study, demo_study_path
+>>> study = load_study(demo_study_path())
+>>> [c.name for c in study.candidates][:1]
+['zinb-reach']
+>>> study.response, study.exposure
+('crayfish', 'trap_nights')
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import difflib
+import hashlib
+import os
+import re
+import tomllib
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from importlib import resources
+from typing import Any
+
+import pandas as pd
+
+from bayeszi.base.errors import BayesziError
+from bayeszi.base.spec import ModelSpec, SamplerSettings
+
+# Allowed keys, per table. Kept here so that the error messages and docs/study-file.md agree.
+TOP_KEYS = ("study", "sampler", "model", "scenario", "contrast")
+STUDY_KEYS = ("title", "summary", "data", "response", "exposure", "offset", "exposure_unit",
+              "groups", "nested", "seed", "interval", "preferred")
+SAMPLER_KEYS = ("draws", "tune", "chains", "cores", "target_accept", "sampler")
+MODEL_KEYS = ("name", "family", "counts", "zeros", "groups", "varying", "nested",
+              "correlated", "priors", "sampler")
+MODEL_SAMPLER_KEYS = ("draws", "tune", "target_accept")
+SCENARIO_KEYS = ("name", "values", "vary", "groups")
+CONTRAST_KEYS = ("name", "scenario", "change")
+SCENARIO_GROUPS = ("new", "known", "average", "typical")
+_NAME = re.compile(r"^[A-Za-z0-9][^\x00-\x1f/\\]{0,79}$")
+
+
+def _where(table: str, index: int | None = None, name: str | None = None) -> str:
+    if index is None:
+        return f"[{table}]"
+    label = f"[[{table}]] number {index + 1}"
+    return label + (f" ({name!r})" if name else "")
+
+
+def _strict(table: Any, known: tuple[str, ...], where: str) -> dict[str, Any]:
+    """Refuse a non-table or any key not in ``known``, naming it and listing the known ones."""
+    if not isinstance(table, Mapping):
+        raise BayesziError(f"{where} must be a table of settings, got {type(table).__name__}")
+    for key in table:
+        if key not in known:
+            near = difflib.get_close_matches(str(key), known, n=1)
+            hint = f" (did you mean {near[0]!r}?)" if near else ""
+            raise BayesziError(f"unknown key {key!r} in {where}{hint}; known keys there: "
+                               f"{', '.join(known)}")
+    return dict(table)
+
+
+def _text(value: Any, key: str, where: str, required: bool = False) -> str | None:
+    if value is None:
+        if required:
+            raise BayesziError(f"{where} needs {key!r}")
+        return None
+    if not isinstance(value, str) or not value.strip():
+        raise BayesziError(f"{key!r} in {where} must be a non-empty text, got {value!r}")
+    return value.strip()
+
+
+def _names(value: Any, key: str, where: str) -> tuple[str, ...]:
+    if value is None:
+        return ()
+    if isinstance(value, str):
+        value = [value]
+    if not isinstance(value, list) or not all(isinstance(v, str) and v for v in value):
+        raise BayesziError(f"{key!r} in {where} must be a column name or a list of them, got "
+                           f"{value!r}")
+    return tuple(value)
+
+
+def _scalar(value: Any, key: str, where: str) -> Any:
+    if isinstance(value, bool):
+        return int(value)
+    if isinstance(value, (int, float, str)):
+        return value
+    raise BayesziError(f"{key!r} in {where} must be a number or a text label, got {value!r}")
+
+
+@dataclass(frozen=True)
+class Candidate:
+    """One candidate model of a study: its name and its validated :class:`ModelSpec`."""
+
+    name: str
+    spec: ModelSpec
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """A named setting of the predictors to predict at.
+
+    ``values`` fixes columns to one value each; ``vary`` gives one column a list of values
+    (one prediction row per value). ``groups`` says which group effects to use: ``"new"`` a
+    group not in the data (drawn from the population), ``"known"`` the group named in
+    ``values`` or ``"none"`` the population centre.
+    """
+
+    name: str
+    values: Mapping[str, Any]
+    vary: Mapping[str, tuple[Any, ...]] = field(default_factory=dict)
+    groups: str = "new"
+
+    def frame(self, exposure: str | None = None) -> pd.DataFrame:
+        """The prediction rows (exposure set to 1 unit unless the scenario gives it)."""
+        rows: list[dict[str, Any]] = [dict(self.values)]
+        for col, options in self.vary.items():
+            rows = [{**r, col: v} for r in rows for v in options]
+        df = pd.DataFrame(rows)
+        if exposure is not None and exposure not in df.columns:
+            df[exposure] = 1.0
+        return df
+
+
+@dataclass(frozen=True)
+class Contrast:
+    """A comparison of scenario ``scenario`` with the same rows after ``change``."""
+
+    name: str
+    scenario: str
+    change: Mapping[str, Any]
+
+
+@dataclass(frozen=True)
+class Study:
+    """A checked study file. Build it with :func:`load_study`."""
+
+    path: str
+    data_path: str
+    response: str
+    candidates: tuple[Candidate, ...]
+    title: str = "bayeszi study"
+    summary: str = ""
+    exposure: str | None = None
+    offset: str | None = None
+    exposure_unit: str | None = None
+    groups: tuple[str, ...] = ()
+    seed: int | None = None
+    interval: float = 0.9
+    preferred: str | None = None
+    sampler: SamplerSettings = field(default_factory=SamplerSettings)
+    scenarios: tuple[Scenario, ...] = ()
+    contrasts: tuple[Contrast, ...] = ()
+
+    # ------------------------------------------------------------------ data
+    def load_data(self) -> pd.DataFrame:
+        """Read the data file (CSV); a missing or unreadable file is a BayesziError."""
+        return read_table(self.data_path, self.path)
+
+    def data_sha256(self) -> str:
+        """SHA-256 of the data file's bytes (for the reproducibility footer)."""
+        return sha256_of(self.data_path)
+
+    def study_sha256(self) -> str:
+        """SHA-256 of the study file's bytes."""
+        return sha256_of(self.path)
+
+    @property
+    def unit(self) -> str:
+        """The exposure unit for plain-language text, e.g. ``"trap night"``."""
+        if self.exposure_unit:
+            return self.exposure_unit
+        if self.exposure:
+            return f"unit of {self.exposure}"
+        return "record"
+
+    def candidate(self, name: str) -> Candidate:
+        """The candidate called ``name``."""
+        for c in self.candidates:
+            if c.name == name:
+                return c
+        raise BayesziError(f"no model called {name!r}; models: {[c.name for c in self.candidates]}")
+
+    def scenario(self, name: str) -> Scenario:
+        """The scenario called ``name``."""
+        for s in self.scenarios:
+            if s.name == name:
+                return s
+        raise BayesziError(f"no scenario called {name!r}; scenarios: "
+                           f"{[s.name for s in self.scenarios]}")
+
+    # ------------------------------------------------------------------ checks
+    def check(self, data: pd.DataFrame) -> None:
+        """Check every candidate and scenario against ``data`` without sampling.
+
+        Builds each candidate's design (response, formulas, exposure, groups) and encodes
+        every scenario and contrast row with it (columns present, factor levels known).
+        """
+        import warnings
+
+        from bayeszi.model.design import build_design
+
+        if self.response not in data.columns:
+            near = difflib.get_close_matches(self.response, [str(c) for c in data.columns], n=3)
+            hint = f" Did you mean {near}?" if near else ""
+            raise BayesziError(
+                f"response {self.response!r} ([study] response) is not a column of "
+                f"{os.path.basename(self.data_path)}; columns: {list(map(str, data.columns))[:20]}."
+                f"{hint}"
+            )
+        designs = {}
+        for c in self.candidates:
+            try:
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore")  # the fit shows data warnings once
+                    designs[c.name] = build_design(data, c.spec)
+            except BayesziError as err:
+                raise BayesziError(f"model {c.name!r}: {err}") from None
+        used = sorted({c for d in designs.values() for c in d.used_columns} - {self.response})
+        for s in self.scenarios:
+            for col in [*s.values, *s.vary]:
+                _known_column(col, used, f"scenario '{s.name}'")
+            rows = s.frame(self.exposure)
+            for name, d in designs.items():
+                self._check_rows(s.name, rows, d, s.groups, name)
+        for ct in self.contrasts:
+            for col in ct.change:
+                _known_column(col, used, f"contrast '{ct.name}'")
+            s = self.scenario(ct.scenario)
+            rows = s.frame(self.exposure).assign(**dict(ct.change))
+            for name, d in designs.items():
+                self._check_rows(f"{ct.scenario}' changed by contrast '{ct.name}", rows, d,
+                                 s.groups, name)
+
+    @staticmethod
+    def _check_rows(label: str, rows: pd.DataFrame, design: Any, groups: str, model: str
+                    ) -> None:
+        try:
+            enc = design.encode(rows)
+        except BayesziError as err:
+            raise BayesziError(f"scenario '{label}' (model {model!r}): {err}") from None
+        if groups == "known":
+            for g in design.groups:
+                codes = enc.group_codes.get(g.name)
+                if codes is None:
+                    raise BayesziError(
+                        f"scenario '{label}' asks for known groups, but its values do not name "
+                        f"the group column {g.name!r}; add e.g. {g.name} = {g.levels[0]!r}, or "
+                        "use groups = \"new\""
+                    )
+                if (codes < 0).any():
+                    raise BayesziError(
+                        f"scenario '{label}': {g.name} level(s) not in the data; known levels: "
+                        f"{g.levels[:20]}"
+                    )
+
+    # ------------------------------------------------------------------ overrides
+    def with_sampler(self, **changes: Any) -> Study:
+        """A copy with sampler settings changed (``None`` values are ignored)."""
+        changes = {k: v for k, v in changes.items() if v is not None}
+        if not changes:
+            return self
+        sampler = dataclasses.replace(self.sampler, **changes)
+        cands = tuple(Candidate(c.name, dataclasses.replace(
+            c.spec, sampler=dataclasses.replace(c.spec.sampler, **changes)))
+            for c in self.candidates)
+        return dataclasses.replace(self, sampler=sampler, candidates=cands)
+
+
+def _known_column(col: str, used: list[str], where: str) -> None:
+    """A scenario or contrast may only set columns that some model uses."""
+    if col not in used:
+        near = difflib.get_close_matches(col, used, n=1)
+        hint = f" (did you mean {near[0]!r}?)" if near else ""
+        raise BayesziError(f"{where} sets column {col!r}{hint}, which no model uses, so it "
+                           f"would change nothing; columns the models use: {used}")
+
+
+# ---------------------------------------------------------------------- reading
+def sha256_of(path: str) -> str:
+    """SHA-256 hex digest of a file's bytes."""
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def read_table(path: str, named_in: str | None = None) -> pd.DataFrame:
+    """Read a CSV data file; a missing, empty or unreadable file is a BayesziError."""
+    where = f" (named in {named_in})" if named_in else ""
+    if not os.path.isfile(path):
+        raise BayesziError(f"data file {path!r}{where} does not exist; paths in a study file are "
+                           "relative to the study file's folder")
+    try:
+        df = pd.read_csv(path, keep_default_na=True)
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError,
+            OSError) as err:
+        first = str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
+        raise BayesziError(f"data file {path!r}{where} cannot be read as CSV: {first}") from None
+    if len(df) == 0:
+        raise BayesziError(f"data file {path!r}{where} has no rows")
+    return df
+
+
+def demo_study_path() -> str:
+    """Path of the shipped crayfish study (``bayeszi/data/crayfish_study.toml``)."""
+    return str(resources.files("bayeszi.data").joinpath("crayfish_study.toml"))
+
+
+def load_study(path: str) -> Study:
+    """Read and check a study file (see docs/study-file.md); errors are BayesziErrors."""
+    path = os.path.abspath(os.fspath(path))
+    if not os.path.isfile(path):
+        raise BayesziError(f"study file {path!r} does not exist")
+    try:
+        with open(path, "rb") as fh:
+            raw = tomllib.load(fh)
+    except tomllib.TOMLDecodeError as err:
+        raise BayesziError(f"study file {os.path.basename(path)} is not valid TOML: {err}") \
+            from None
+    except UnicodeDecodeError:
+        raise BayesziError(f"study file {os.path.basename(path)} is not UTF-8 text") from None
+    return parse_study(raw, path)
+
+
+def parse_study(raw: Mapping[str, Any], path: str) -> Study:
+    """Build a :class:`Study` from a parsed TOML mapping (``path`` anchors relative paths)."""
+    top = _strict(raw, TOP_KEYS, "the study file (top level)")
+    if "study" not in top:
+        raise BayesziError("the study file needs a [study] table with at least 'data' and "
+                           "'response'")
+    st = _strict(top["study"], STUDY_KEYS, "[study]")
+    data = _text(st.get("data"), "data", "[study]", required=True)
+    folder = os.path.dirname(path)
+    data_path = os.path.normpath(os.path.join(folder, data))
+    response = _text(st.get("response"), "response", "[study]", required=True)
+    exposure = _text(st.get("exposure"), "exposure", "[study]")
+    offset = _text(st.get("offset"), "offset", "[study]")
+    groups = _names(st.get("groups"), "groups", "[study]")
+    nested = st.get("nested", {})
+    if not isinstance(nested, Mapping):
+        raise BayesziError("'nested' in [study] must be a table like { reach = \"river\" }")
+    seed = st.get("seed")
+    if seed is not None and (not isinstance(seed, int) or isinstance(seed, bool) or seed < 0):
+        raise BayesziError(f"'seed' in [study] must be a non-negative whole number, got {seed!r}")
+    interval = st.get("interval", 0.9)
+    if isinstance(interval, bool) or not isinstance(interval, (int, float)) \
+            or not 0 < interval < 1:
+        raise BayesziError(f"'interval' in [study] must lie strictly between 0 and 1, got "
+                           f"{interval!r}; e.g. 0.9 for 90% intervals")
+    sampler_raw = _strict(top.get("sampler", {}), SAMPLER_KEYS, "[sampler]")
+    try:
+        sampler = SamplerSettings(**sampler_raw, seed=seed)
+    except BayesziError as err:
+        raise BayesziError(f"[sampler]: {err}") from None
+
+    models = top.get("model")
+    if not models:
+        raise BayesziError("the study file names no candidate models; add at least one "
+                           "[[model]] table with name, family and counts")
+    if not isinstance(models, list):
+        raise BayesziError("write each candidate as a [[model]] table (double brackets)")
+    cands: list[Candidate] = []
+    for i, m in enumerate(models):
+        name = m.get("name") if isinstance(m, Mapping) else None
+        where = _where("model", i, name if isinstance(name, str) else None)
+        m = _strict(m, MODEL_KEYS, where)
+        cands.append(_candidate(m, where, response, exposure, offset, groups, dict(nested),
+                                sampler))
+    _unique([c.name for c in cands], "model")
+
+    scenarios: list[Scenario] = []
+    for i, s in enumerate(_list(top.get("scenario"), "scenario")):
+        name = s.get("name") if isinstance(s, Mapping) else None
+        where = _where("scenario", i, name if isinstance(name, str) else None)
+        scenarios.append(_scenario(_strict(s, SCENARIO_KEYS, where), where, response))
+    _unique([s.name for s in scenarios], "scenario")
+    contrasts: list[Contrast] = []
+    for i, c in enumerate(_list(top.get("contrast"), "contrast")):
+        name = c.get("name") if isinstance(c, Mapping) else None
+        where = _where("contrast", i, name if isinstance(name, str) else None)
+        contrasts.append(_contrast(_strict(c, CONTRAST_KEYS, where), where,
+                                   [s.name for s in scenarios]))
+    _unique([c.name for c in contrasts], "contrast")
+
+    preferred = _text(st.get("preferred"), "preferred", "[study]")
+    if preferred is not None and preferred not in [c.name for c in cands]:
+        raise BayesziError(f"'preferred' in [study] names {preferred!r}, which is not a model; "
+                           f"models: {[c.name for c in cands]}")
+    return Study(
+        path=path, data_path=data_path, response=response, candidates=tuple(cands),
+        title=_text(st.get("title"), "title", "[study]") or "bayeszi study",
+        summary=_text(st.get("summary"), "summary", "[study]") or "",
+        exposure=exposure, offset=offset,
+        exposure_unit=_text(st.get("exposure_unit"), "exposure_unit", "[study]"),
+        groups=groups, seed=seed, interval=float(interval), preferred=preferred,
+        sampler=sampler, scenarios=tuple(scenarios), contrasts=tuple(contrasts),
+    )
+
+
+def _list(value: Any, table: str) -> list[Any]:
+    if value is None:
+        return []
+    if not isinstance(value, list):
+        raise BayesziError(f"write each {table} as a [[{table}]] table (double brackets)")
+    return value
+
+
+def _unique(names: list[str], table: str) -> None:
+    seen: set[str] = set()
+    for n in names:
+        if n in seen:
+            raise BayesziError(f"two [[{table}]] tables are both called {n!r}; names must differ")
+        seen.add(n)
+
+
+def _checked_name(value: Any, where: str) -> str:
+    name = _text(value, "name", where, required=True)
+    assert name is not None
+    if not _NAME.match(name):
+        raise BayesziError(
+            f"name {name!r} in {where} must be 1-80 characters without / or \\, starting with a "
+            "letter or digit (it also names output files)"
+        )
+    return name
+
+
+def _rhs(value: Any, key: str, where: str, response: str | None) -> str | None:
+    text = _text(value, key, where)
+    if text is None:
+        return None
+    if "~" in text:
+        lhs, rhs = text.split("~", 1)
+        lhs = lhs.strip().strip("`")
+        if lhs and key == "zeros":
+            raise BayesziError(f"'zeros' in {where} has a response left of '~'; the zeros part "
+                               "shares the study's response, so write only the right side, e.g. "
+                               "zeros = \"barrier\"")
+        if lhs and lhs != response:
+            raise BayesziError(
+                f"'counts' in {where} has response {lhs!r}, but [study] response is "
+                f"{response!r}; write only the right side, e.g. counts = \"depth + canopy\""
+            )
+        text = rhs.strip()
+    if not text:
+        raise BayesziError(f"{key!r} in {where} is empty; write \"1\" for an intercept only")
+    return text
+
+
+def _candidate(m: dict[str, Any], where: str, response: str, exposure: str | None,
+               offset: str | None, groups: tuple[str, ...], nested: dict[str, str],
+               sampler: SamplerSettings) -> Candidate:
+    name = _checked_name(m.get("name"), where)
+    family = _text(m.get("family"), "family", where, required=True)
+    counts = _rhs(m.get("counts"), "counts", where, response)
+    if counts is None:
+        raise BayesziError(f"{where} needs 'counts', the right side of the counts formula, e.g. "
+                           "counts = \"depth + canopy\"")
+    zeros = _rhs(m.get("zeros"), "zeros", where, response) or "1"
+    m_groups = _names(m["groups"], "groups", where) if "groups" in m else groups
+    varying = m.get("varying", {})
+    if not isinstance(varying, Mapping):
+        raise BayesziError(f"'varying' in {where} must be a table like {{ counts = [\"depth\"] }}")
+    m_nested = m.get("nested", nested)
+    if not isinstance(m_nested, Mapping):
+        raise BayesziError(f"'nested' in {where} must be a table like {{ reach = \"river\" }}")
+    m_nested = {k: v for k, v in dict(m_nested).items() if k in m_groups}
+    correlated = m.get("correlated", False)
+    if not isinstance(correlated, bool):
+        raise BayesziError(f"'correlated' in {where} must be true or false")
+    priors = m.get("priors", {})
+    if not isinstance(priors, Mapping):
+        raise BayesziError(f"'priors' in {where} must be a table; see docs/priors.md")
+    own = _strict(m.get("sampler", {}), MODEL_SAMPLER_KEYS, f"{where} sampler")
+    try:
+        spec = ModelSpec(
+            counts=f"{_quote(response)} ~ {counts}", zeros=f"~ {zeros}", family=family,
+            exposure=exposure, offset=offset, groups=m_groups, varying=dict(varying),
+            nested=m_nested, correlated=correlated, priors=dict(priors),
+            sampler=dataclasses.replace(sampler, **own),
+        )
+    except BayesziError as err:
+        raise BayesziError(f"{where}: {err}") from None
+    except TypeError as err:  # a wrongly typed setting inside ModelSpec
+        raise BayesziError(f"{where}: {err}") from None
+    return Candidate(name, spec)
+
+
+def _quote(column: str) -> str:
+    return column if column.isidentifier() else f"`{column}`"
+
+
+def _scenario(s: dict[str, Any], where: str, response: str) -> Scenario:
+    name = _checked_name(s.get("name"), where)
+    values = s.get("values", {})
+    if not isinstance(values, Mapping):
+        raise BayesziError(f"'values' in {where} must be a table like {{ depth = 0.5 }}")
+    values = {str(k): _scalar(v, f"values.{k}", where) for k, v in values.items()}
+    vary = s.get("vary", {})
+    if not isinstance(vary, Mapping):
+        raise BayesziError(f"'vary' in {where} must be a table like {{ depth = [0.2, 0.5, 1] }}")
+    if len(vary) > 1:
+        raise BayesziError(f"'vary' in {where} may list one column; make one scenario per column")
+    vary_t: dict[str, tuple[Any, ...]] = {}
+    for k, v in vary.items():
+        if not isinstance(v, list) or not v:
+            raise BayesziError(f"'vary.{k}' in {where} must be a non-empty list of values")
+        if k in values:
+            raise BayesziError(f"column {k!r} is both fixed in 'values' and listed in 'vary' in "
+                               f"{where}; keep one")
+        vary_t[str(k)] = tuple(_scalar(x, f"vary.{k}", where) for x in v)
+    if response in values or response in vary_t:
+        raise BayesziError(f"{where} sets the response {response!r}; scenarios set predictors "
+                           "only")
+    if not values and not vary_t:
+        raise BayesziError(f"{where} sets no predictor values; add values = {{ ... }}")
+    groups = s.get("groups", "new")
+    if groups not in SCENARIO_GROUPS:
+        raise BayesziError(f"'groups' in {where} must be one of {', '.join(SCENARIO_GROUPS)}, "
+                           f"got {groups!r}")
+    return Scenario(name, values, vary_t, groups)
+
+
+def _contrast(c: dict[str, Any], where: str, scenario_names: list[str]) -> Contrast:
+    name = _checked_name(c.get("name"), where)
+    scen = _text(c.get("scenario"), "scenario", where, required=True)
+    if scen not in scenario_names:
+        raise BayesziError(f"'scenario' in {where} names {scen!r}, which is not a [[scenario]]; "
+                           f"scenarios: {scenario_names}")
+    change = c.get("change", {})
+    if not isinstance(change, Mapping) or not change:
+        raise BayesziError(f"{where} needs 'change', a table of the values that differ, e.g. "
+                           "change = { barrier = 1 }")
+    change = {str(k): _scalar(v, f"change.{k}", where) for k, v in change.items()}
+    return Contrast(name, scen, change)
+
+
+__all__ = ["Candidate", "Contrast", "Scenario", "Study", "demo_study_path", "load_study",
+           "parse_study", "read_table", "sha256_of"]

@@ -1,0 +1,144 @@
+"""Names shared by every layer: the families, their zero mechanisms, the posterior variables.
+
+The posterior variable names are built here and nowhere else, so that the model graph, the
+answers, saving and loading agree on them. The wording of the zeros part (``P(extra zero)``
+in the zero-inflated families, ``P(Y = 0)`` in the hurdle families) is also kept here.
+
+Example
+-------
+>>> from bayeszi.base import names
+>>> names.check_family("zinbb")  # doctest: +ELLIPSIS
+Traceback (most recent call last):
+...
+bayeszi.base.errors.BayesziError: unknown family 'zinbb'; did you mean 'zinb'? ...
+>>> names.zero_mechanism("hurdle-poisson"), names.zeros_label("hurdle-poisson")
+('hurdle', 'P(Y = 0)')
+>>> names.group_sd("counts", "reach"), names.coef("zeros")
+('counts_sd_reach', 'zeros_coef')
+"""
+
+from __future__ import annotations
+
+import difflib
+
+from bayeszi.base.errors import BayesziError
+
+#: every family, in the order tables and menus list them
+FAMILY_NAMES: tuple[str, ...] = (
+    "poisson",
+    "negbin",
+    "zip",
+    "zinb",
+    "hurdle-poisson",
+    "hurdle-negbin",
+)
+
+#: the zero mechanism of each family: None (no zeros part), "inflation" or "hurdle"
+ZERO_MECHANISMS: dict[str, str | None] = {
+    "poisson": None,
+    "negbin": None,
+    "zip": "inflation",
+    "zinb": "inflation",
+    "hurdle-poisson": "hurdle",
+    "hurdle-negbin": "hurdle",
+}
+
+#: the two parts of every model
+PARTS: tuple[str, str] = ("counts", "zeros")
+
+#: what the zeros part's probability is, per zero mechanism
+ZEROS_LABELS: dict[str | None, str] = {
+    "inflation": "P(extra zero)",
+    "hurdle": "P(Y = 0)",
+    None: "",
+}
+
+
+def check_family(name: object) -> str:
+    """``name`` if it is a family, else a BayesziError with the nearest name."""
+    if isinstance(name, str) and name in ZERO_MECHANISMS:
+        return name
+    choices = ", ".join(repr(n) for n in FAMILY_NAMES)
+    near = difflib.get_close_matches(str(name).strip().lower(), FAMILY_NAMES, n=1, cutoff=0.5)
+    hint = f"did you mean {near[0]!r}? " if near else ""
+    raise BayesziError(f"unknown family {name!r}; {hint}Set family to one of {choices}.")
+
+
+def zero_mechanism(family: str) -> str | None:
+    """None, ``"inflation"`` or ``"hurdle"`` for a family name."""
+    return ZERO_MECHANISMS[check_family(family)]
+
+
+def zeros_label(family: str) -> str:
+    """``P(extra zero)``, ``P(Y = 0)`` or ``""`` (no zeros part) for a family name."""
+    return ZEROS_LABELS[zero_mechanism(family)]
+
+
+def zeros_meaning(family: str) -> str:
+    """One phrase saying what the zeros part models, for tables and report text."""
+    kind = zero_mechanism(family)
+    if kind == "inflation":
+        return "P(extra zero): the chance of a structural zero"
+    if kind == "hurdle":
+        return "P(Y = 0): the chance of any zero (the hurdle)"
+    return "no zeros part"
+
+
+# ------------------------------------------------------------------ posterior variables
+def coef(part: str) -> str:
+    """User-scale coefficients of a part (``counts_coef``)."""
+    return f"{part}_coef"
+
+
+def std_coef(part: str) -> str:
+    """Coefficients on the internal (centred, scaled) scale, as sampled."""
+    return f"{part}_std_coef"
+
+
+def term_dim(part: str) -> str:
+    """The coordinate naming a part's terms."""
+    return f"{part}_term"
+
+
+def slope_term_dim(part: str) -> str:
+    """The coordinate naming a part's varying slopes."""
+    return f"{part}_slope_term"
+
+
+def group_sd(part: str, group: str) -> str:
+    """Between-level sd of a group's intercepts in a part."""
+    return f"{part}_sd_{group}"
+
+
+def group_raw(part: str, group: str) -> str:
+    """Standardised (non-centred) intercept effects of a group in a part."""
+    return f"{part}_z_{group}"
+
+
+def slope_sd(part: str, group: str) -> str:
+    """Between-level sd of a group's varying slopes in a part."""
+    return f"{part}_slope_sd_{group}"
+
+
+def slope_raw(part: str, group: str) -> str:
+    """Standardised varying-slope effects of a group in a part."""
+    return f"{part}_slope_z_{group}"
+
+
+def slope(part: str, group: str) -> str:
+    """Varying-slope effects of a group in a part (internal scale)."""
+    return f"{part}_slope_{group}"
+
+
+def corr(group: str) -> str:
+    """Correlation of a group's counts and zeros intercepts."""
+    return f"corr_{group}"
+
+
+def corr_raw(group: str) -> str:
+    """The Beta-distributed (corr + 1) / 2 behind :func:`corr`."""
+    return f"z_corr_{group}"
+
+
+DISPERSION = "dispersion"
+"""The negative binomial's overdispersion alpha."""

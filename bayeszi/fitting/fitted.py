@@ -1,0 +1,416 @@
+"""The fitted model: spec, design state and draws, and the questions they answer.
+
+Example
+-------
+>>> import bayeszi as bz                                         # doctest: +SKIP
+>>> m = bz.fit(df, counts="crayfish ~ depth", family="zip")      # doctest: +SKIP
+>>> m.coefficients()                                             # doctest: +SKIP
+"""
+
+from __future__ import annotations
+
+from dataclasses import fields
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from bayeszi.answers import checks as check_answers
+from bayeszi.answers import comparison as loo_answers
+from bayeszi.answers import contrast as contrast_answers
+from bayeszi.answers import groups as group_answers
+from bayeszi.answers import predict as predict_answers
+from bayeszi.base.errors import BayesziError
+from bayeszi.engine import archive
+from bayeszi.engine.record import FitRecord
+from bayeszi.families import get_family
+from bayeszi.model.diagnostics import Diagnostics
+from bayeszi.plots import checkplots
+
+
+def _label(part: str, family: str, term: str) -> str:
+    fam = get_family(family)
+    if part == "counts":
+        return "base rate" if term == "Intercept" else "rate ratio"
+    what = "P(extra zero)" if fam.zeros_kind == "inflation" else "P(Y = 0)"
+    return f"base odds of {what}" if term == "Intercept" else f"odds ratio of {what}"
+
+
+class FittedModel(FitRecord):
+    """A fitted bayeszi model. Build one with :func:`bayeszi.fit`; see docs/api.md.
+
+    Its fields are those of :class:`bayeszi.engine.record.FitRecord`: ``spec``, ``design``,
+    ``idata``, ``priors``, ``data`` (the used columns of the fitted data), ``sampling``
+    (the sampler diagnostics) and ``timing``.
+    """
+
+    @classmethod
+    def from_record(cls, record: FitRecord) -> FittedModel:
+        """The fitted model of a finished record (the one way to make one)."""
+        return cls(**{f.name: getattr(record, f.name) for f in fields(FitRecord)})
+
+    # ------------------------------------------------------------------ diagnostics
+    def diagnostics(self) -> Diagnostics:
+        """Divergences, per-parameter R-hat/ESS (``table``) and flagged parameter names."""
+        return self.sampling
+
+    def sampler_problems(self) -> list[str]:
+        """Plain-language sampler problems with what to try (empty when all is well)."""
+        return self.sampling.problems()
+
+    # ------------------------------------------------------------------ tables
+    def coefficients(self, interval: float = 0.9, groups: bool = True) -> pd.DataFrame:
+        """Coefficient table of both parts on the user's scale.
+
+        Rows are labelled by part and term; columns: posterior mean, sd, the central
+        ``interval`` bounds, the exp scale (rate ratio for counts, odds ratio for zeros) with
+        its bounds, R-hat, bulk and tail ESS and a flag. Group sds (and correlations) and the
+        NB dispersion are listed too, without an exp scale.
+        """
+        if not 0 < interval < 1:
+            raise BayesziError(f"interval must lie in (0, 1), got {interval!r}; e.g. 0.9")
+        lo_q, hi_q = (1 - interval) / 2, 1 - (1 - interval) / 2
+        lo_name, hi_name = f"{100 * lo_q:g}%", f"{100 * hi_q:g}%"
+        diag = self.sampling.table
+        post = self.idata.posterior
+        rows = []
+
+        def add(part: str, term: str, draws: np.ndarray, key: str, scale: str | None) -> None:
+            d = np.asarray(draws).reshape(-1)
+            lo, hi = np.quantile(d, [lo_q, hi_q])
+            row = {"part": part, "term": term, "mean": d.mean(), "sd": d.std(ddof=1),
+                   lo_name: lo, hi_name: hi, "exp scale": scale or "",
+                   "exp(mean)": np.nan, f"exp {lo_name}": np.nan, f"exp {hi_name}": np.nan}
+            if scale:
+                e = np.exp(d)
+                row["exp(mean)"] = float(e.mean())
+                row[f"exp {lo_name}"], row[f"exp {hi_name}"] = np.exp([lo, hi])
+            if key in diag.index:
+                row.update(diag.loc[key, ["r_hat", "ess_bulk", "ess_tail"]].to_dict())
+            rows.append(row)
+
+        for part, pdes in (("counts", self.design.counts), ("zeros", self.design.zeros)):
+            if pdes is None:
+                continue
+            var = post[f"{part}_coef"]
+            for term in pdes.terms:
+                add(part, term, var.sel({f"{part}_term": term}).values,
+                    f"{part}_coef[{term}]", _label(part, self.spec.family, term))
+        if "dispersion" in post:
+            add("counts", "dispersion (alpha)", post["dispersion"].values, "dispersion", None)
+        if groups:
+            for g in self.design.groups:
+                for part in ("counts", "zeros"):
+                    name = f"{part}_sd_{g.name}"
+                    if name in post:
+                        add(part, f"sd({g.name})", post[name].values, name, None)
+                    sname = f"{part}_slope_sd_{g.name}"
+                    if sname in post:
+                        pdes = self.design.counts if part == "counts" else self.design.zeros
+                        for t in self.spec.varying.get(part, ()):
+                            j = pdes.terms.index(t)
+                            v = post[sname].sel({f"{part}_slope_term": t}).values / pdes.scale[j]
+                            add(part, f"sd({g.name}: {t})", v, f"{sname}[{t}]", None)
+                if f"corr_{g.name}" in post:
+                    add("both", f"corr({g.name})", post[f"corr_{g.name}"].values,
+                        f"corr_{g.name}", None)
+        table = pd.DataFrame(rows)
+        th = self.sampling.thresholds
+        table["flag"] = [_flag_for(r, th) for r in table.to_dict("records")]
+        return table.set_index(["part", "term"])
+
+    def __str__(self) -> str:
+        return format_fit(self)
+
+    def __repr__(self) -> str:
+        return format_fit(self)
+
+    # ------------------------------------------------------------------ groups (groups issue)
+    def group_effects(self, interval: float = 0.9, part: str | None = None,
+                      group: str | None = None) -> pd.DataFrame:
+        """Each group level's effect, per part, with intervals, exp scale and pooling factor.
+
+        See :func:`bayeszi.answers.groups.group_effects` for the columns.
+
+        Example
+        -------
+        >>> m.group_effects(part="counts").loc["reach"]   # doctest: +SKIP
+        """
+        return group_answers.group_effects(self, interval=interval, part=part, group=group)
+
+    def pooling_summary(self, interval: float = 0.9) -> pd.DataFrame:
+        """How spread out each batch of group effects is and how strongly it is pooled.
+
+        See :func:`bayeszi.answers.groups.pooling_summary`.
+
+        Example
+        -------
+        >>> m.pooling_summary()[["sd", "pooling"]]   # doctest: +SKIP
+        """
+        return group_answers.pooling_summary(self, interval=interval)
+
+    # ------------------------------------------------------------------ checks
+    # (posterior predictive check methods go here; the work is done in bayeszi/checks.py
+    # and the figures in bayeszi/checkplots.py)
+    def zero_check(self, by: str | list | pd.Series | None = None, interval: float = 0.9,
+                   draws: int | None = None, seed: int | None = 0) -> pd.DataFrame:
+        """Observed share of zeros against replicated data, overall and per group.
+
+        ``by=None`` checks the fit's grouping columns; name a column the model uses, pass
+        labels as a Series of the fitted data frame (``by=df["site"]``), or ``by=[]`` for
+        the overall row only. See :func:`bayeszi.answers.checks.zero_check`.
+
+        Example
+        -------
+        >>> m.zero_check(by="reach")                              # doctest: +SKIP
+        """
+        return check_answers.zero_check(self, by=by, interval=interval, draws=draws, seed=seed)
+
+    def zero_check_plot(self, by: str | list | pd.Series | None = None, interval: float = 0.9,
+                        draws: int | None = None, seed: int | None = 0):
+        """Figure of :meth:`zero_check`: replicated zero share and the levels of one group.
+
+        Example
+        -------
+        >>> m.zero_check_plot(by="reach").savefig("zeros.png")    # doctest: +SKIP
+        """
+        return checkplots.zero_check_figure(self.zero_check(by=by, interval=interval, draws=draws,
+                                                 seed=seed))
+
+    def count_frequencies(self, kmax: int | None = None, interval: float = 0.9,
+                          draws: int | None = None) -> pd.DataFrame:
+        """Observed against expected number of records with each count 0..K and K+1 or more.
+
+        See :func:`bayeszi.answers.checks.count_frequencies`.
+
+        Example
+        -------
+        >>> m.count_frequencies().loc["0", ["observed", "expected"]]   # doctest: +SKIP
+        """
+        return check_answers.count_frequencies(self, kmax=kmax, interval=interval, draws=draws)
+
+    def rootogram(self, kmax: int | None = None, interval: float = 0.9,
+                  draws: int | None = None, ax: Any = None):
+        """Hanging rootogram (Tukey 1977) of :meth:`count_frequencies`, as a Figure.
+
+        Example
+        -------
+        >>> m.rootogram().savefig("rootogram.png")                # doctest: +SKIP
+        """
+        return checkplots.rootogram_figure(self.count_frequencies(kmax=kmax, interval=interval,
+                                                       draws=draws), ax=ax)
+
+    def dispersion_check(self, interval: float = 0.9, draws: int | None = None,
+                         seed: int | None = 0) -> pd.DataFrame:
+        """Mean, variance and variance/mean of the data against replicated data sets.
+
+        Example
+        -------
+        >>> m.dispersion_check().loc["variance / mean"]           # doctest: +SKIP
+        """
+        return check_answers.dispersion_check(self, interval=interval, draws=draws, seed=seed)
+
+    def max_count_check(self, interval: float = 0.9, draws: int | None = None,
+                        seed: int | None = 0) -> pd.DataFrame:
+        """Largest observed count against the largest counts of replicated data sets.
+
+        Example
+        -------
+        >>> m.max_count_check()                                   # doctest: +SKIP
+        """
+        return check_answers.max_count_check(self, interval=interval, draws=draws, seed=seed)
+
+    def replicated_statistics_plot(self, draws: int | None = None, seed: int | None = 0):
+        """Figure: zero share, variance/mean and largest count of replicated data sets.
+
+        Example
+        -------
+        >>> m.replicated_statistics_plot().savefig("replicated.png")   # doctest: +SKIP
+        """
+        stats = check_answers.replicated_statistics(self, draws=draws, seed=seed)
+        return checkplots.statistics_figure(stats)
+
+    def residuals(self, method: str = "posterior", seed: int | None = 0,
+                  draws: int | None = None) -> pd.DataFrame:
+        """Randomized quantile residuals (Dunn & Smyth 1996), one per fitted record.
+
+        ``method="posterior"`` or ``"loo"`` (leave-one-out, PSIS). See
+        :func:`bayeszi.answers.checks.residuals`.
+
+        Example
+        -------
+        >>> m.residuals()["residual"].describe()                  # doctest: +SKIP
+        """
+        return check_answers.residuals(self, method=method, seed=seed, draws=draws)
+
+    def residual_plots(self, method: str = "posterior", seed: int | None = 0,
+                       draws: int | None = None):
+        """Figure: QQ plot and residual-versus-expected plot of :meth:`residuals`.
+
+        Example
+        -------
+        >>> m.residual_plots().savefig("residuals.png")           # doctest: +SKIP
+        """
+        return checkplots.residual_figure(self.residuals(method=method, seed=seed, draws=draws))
+
+    def zero_sources(self, by: str | list | pd.Series | None = None, interval: float = 0.9,
+                     draws: int | None = None) -> pd.DataFrame:
+        """For each observed zero (or per level of ``by``): P(it came from the zeros part).
+
+        Zero-inflated: the posterior probability of an extra zero; hurdle: 1 (all zeros come
+        from the zeros part); Poisson/negbin: 0. See :func:`bayeszi.answers.checks.zero_sources`.
+
+        Example
+        -------
+        >>> m.zero_sources(by="reach")                            # doctest: +SKIP
+        """
+        return check_answers.zero_sources(self, by=by, interval=interval, draws=draws)
+
+    # ------------------------------------------------------------------ LOO (compare.py)
+    def loo(self, exact_refits: bool = False, k_threshold: float = 0.7, max_refits: int = 20,
+            refit_settings: dict[str, Any] | None = None) -> Any:
+        """Expected log predictive density by PSIS-LOO, with each row's Pareto k.
+
+        Rows with k above ``k_threshold`` (0.7, Vehtari et al. 2024) are named in a warning;
+        ``exact_refits=True`` refits the model without each of them (at most ``max_refits``)
+        and uses the exact leave-one-out value. Returns a
+        :class:`bayeszi.answers.comparison.LooEstimate` (``.elpd``, ``.se``, ``.p_loo``,
+        ``.pointwise``, ``.k_counts()``). See :func:`bayeszi.answers.comparison.loo`.
+
+        Example
+        -------
+        >>> est = fitted.loo()                                   # doctest: +SKIP
+        >>> round(est.elpd), est.k_counts()                      # doctest: +SKIP
+        """
+        return loo_answers.loo(self, exact_refits=exact_refits, k_threshold=k_threshold,
+                   max_refits=max_refits, refit_settings=refit_settings)
+
+    # ------------------------------------------------------------------ predictions
+    def predict(self, data: pd.DataFrame | None = None, what: str | list[str] = "mean",
+                groups: str = "known", interval: float = 0.9, *, k: int | None = None,
+                exposure: float | None = None, n_average: int = 30,
+                draws: int | None = None, seed: int | None = None) -> pd.DataFrame:
+        """Posterior mean, sd and interval of a quantity per row (see docs/predict.md).
+
+        ``what``: mean, rate, p_zero, p_zeros_part, p_nonzero, count_part_mean, at_least
+        (with ``k``), new_count, or a list. ``groups``: known, new, average or typical.
+
+        Example
+        -------
+        >>> m.predict(new_df, what="rate", groups="new", exposure=1, seed=1)  # doctest: +SKIP
+        """
+        return predict_answers.predict(self, data, what, groups, interval, k=k, exposure=exposure,
+                       n_average=n_average, draws=draws, seed=seed)
+
+    def prediction_draws(self, data: pd.DataFrame | None = None, what: str = "mean",
+                         groups: str = "known", *, k: int | None = None,
+                         exposure: float | None = None, n_average: int = 30,
+                         draws: int | None = None, seed: int | None = None) -> Any:
+        """The draws behind :meth:`predict` as an xarray.DataArray (draw x row).
+
+        Example
+        -------
+        >>> m.prediction_draws(new_df, what="new_count", groups="new", seed=1)  # doctest: +SKIP
+        """
+        return predict_answers.prediction_draws(self, data, what, groups, k=k, exposure=exposure,
+                                n_average=n_average, draws=draws, seed=seed)
+
+    def count_distribution(self, data: pd.DataFrame | None = None, kmax: int = 10,
+                           groups: str = "known", *, exposure: float | None = None,
+                           n_average: int = 30, draws: int | None = None,
+                           seed: int | None = None) -> pd.DataFrame:
+        """Posterior predictive P(Y = 0..kmax) and P(Y > kmax) per row.
+
+        Example
+        -------
+        >>> m.count_distribution(new_df, kmax=5)                         # doctest: +SKIP
+        """
+        return predict_answers.count_distribution(self, data, kmax, groups, exposure=exposure,
+                                  n_average=n_average, draws=draws, seed=seed)
+
+    def contrast(self, base: pd.DataFrame | None = None, scenario: pd.DataFrame | None = None,
+                 *, shift: dict[str, Any] | None = None, set_to: dict[str, Any] | None = None,
+                 what: str = "mean", groups: str = "known", interval: float = 0.9,
+                 combine: str | None = None, k: int | None = None,
+                 exposure: float | None = None, n_average: int = 30,
+                 draws: int | None = None, seed: int | None = None) -> pd.DataFrame:
+        """Ratio and difference of a quantity, scenario vs base, with P(ratio > 1).
+
+        Example
+        -------
+        >>> m.contrast(shift={"depth": 0.5}, what="rate", combine="mean")  # doctest: +SKIP
+        """
+        return contrast_answers.contrast(
+            self, base, scenario, shift=shift, set_to=set_to, what=what, groups=groups,
+            interval=interval, combine=combine, k=k, exposure=exposure, n_average=n_average,
+            draws=draws, seed=seed)
+
+    def average_comparison(self, input: str, data: pd.DataFrame | None = None, *,
+                           what: str = "mean", groups: str = "known", interval: float = 0.9,
+                           levels: tuple[str, str] | None = None, pairs: int = 10_000,
+                           k: int | None = None, exposure: float | None = None,
+                           n_average: int = 30, draws: int | None = None,
+                           seed: int | None = None) -> pd.DataFrame:
+        """Average predictive comparison of one input (Gelman & Pardoe 2007).
+
+        Example
+        -------
+        >>> m.average_comparison("depth", what="rate")                   # doctest: +SKIP
+        """
+        return contrast_answers.average_comparison(self, input, data, what=what, groups=groups,
+                                  interval=interval, levels=levels, pairs=pairs, k=k,
+                                  exposure=exposure, n_average=n_average, draws=draws,
+                                  seed=seed)
+
+    # ------------------------------------------------------------------ persistence
+    def save(self, path: str) -> str:
+        """Write the fit to one netCDF file (draws, spec, design data); returns the path."""
+        return archive.save(self, path)
+
+
+def _flag_for(row: dict, th: Any) -> str:
+    out = []
+    r = row.get("r_hat")
+    if r is not None and np.isfinite(r) and r > th.rhat:
+        out.append("R-hat")
+    eb, et = row.get("ess_bulk"), row.get("ess_tail")
+    if eb is not None and np.isfinite(eb) and (eb < th.ess or et < th.ess):
+        out.append("low ESS")
+    return " ".join(out)
+
+
+def format_fit(m: FittedModel) -> str:
+    """The readable text shown by ``print(fitted)``."""
+    fam = get_family(m.spec.family)
+    lines = [
+        f"bayeszi fit: family {m.spec.family}, {m.design.n} records, response "
+        f"'{m.spec.response}'",
+        f"  counts part: log mean of the count process ~ {m.spec.counts_rhs}"
+        + (f" + log({m.spec.exposure})" if m.spec.exposure else "")
+        + (f" + {m.spec.offset} (offset)" if m.spec.offset else ""),
+    ]
+    if fam.zeros_kind == "inflation":
+        lines.append(f"  zeros part: logit P(extra zero) ~ {m.spec.zeros_rhs}")
+    elif fam.zeros_kind == "hurdle":
+        lines.append(f"  zeros part: logit P(Y = 0) ~ {m.spec.zeros_rhs}")
+    if m.design.groups:
+        lines.append("  groups: " + ", ".join(
+            f"{g.name} ({len(g.levels)} levels)" for g in m.design.groups))
+    post = m.idata.posterior
+    lines.append(f"  draws: {post.sizes['chain']} chains x {post.sizes['draw']}")
+    table = m.coefficients()
+    with pd.option_context("display.width", 140, "display.max_columns", 20,
+                           "display.float_format", lambda v: f"{v:.3g}"):
+        shown = table.drop(columns=["ess_tail"], errors="ignore")
+        lines.append("")
+        lines.append(shown.to_string(na_rep=""))
+    probs = m.sampler_problems()
+    lines.append("")
+    if probs:
+        lines.append("Sampler warnings:")
+        lines.extend(f"  - {p}" for p in probs)
+    else:
+        th = m.sampling.thresholds
+        lines.append(f"Sampler: no divergences, all R-hat <= {th.rhat}, "
+                     f"all ESS >= {th.ess:.0f}.")
+    return "\n".join(lines)

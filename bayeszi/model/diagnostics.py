@@ -1,0 +1,147 @@
+"""What the sampler's draws say about themselves: divergences, R-hat, bulk and tail ESS.
+
+:func:`diagnose` computes a :class:`Diagnostics` from an InferenceData; its
+:meth:`~Diagnostics.problems` are plain-language descriptions with what to try, and
+:func:`warn_about` turns each into a :class:`~bayeszi.base.errors.BayesziWarning`.
+
+Example
+-------
+>>> from bayeszi.model.diagnostics import Thresholds
+>>> Thresholds().rhat, Thresholds().ess
+(1.01, 400.0)
+"""
+
+from __future__ import annotations
+
+import logging
+import warnings
+from dataclasses import dataclass, field
+
+import arviz as az
+import numpy as np
+import pandas as pd
+
+from bayeszi.base.errors import BayesziWarning
+
+
+@dataclass(frozen=True)
+class Thresholds:
+    """What counts as sampler trouble (R-hat per Vehtari et al. 2021, Bayesian Anal.)."""
+
+    rhat: float = 1.01
+    ess: float = 400.0
+
+
+#: Name prefixes of the raw variables bayeszi.model.build samples for group effects (standard
+#: normals, correlation transforms, centred levels); their effects are diagnosed instead.
+_RAW_PREFIXES = tuple(f"{part}_{kind}_" for part in ("counts", "zeros")
+                      for kind in ("z", "slope_z", "level")) + ("z_",)
+
+
+def parameter_names(idata: az.InferenceData) -> list[str]:
+    """The posterior variables worth diagnosing (skips raw non-centred z's and centred
+    levels, whose effects are diagnosed instead)."""
+    names = []
+    for v in map(str, idata.posterior.data_vars):
+        # by prefix: a grouping column's own name (say 'zone_z_1') must not hide its effects
+        if v.startswith(_RAW_PREFIXES) or "_chol" in v or v.endswith("_std_coef") \
+                or "_std_coef_" in v:
+            continue
+        names.append(v)
+    return names
+
+
+@dataclass(frozen=True)
+class Diagnostics:
+    """The sampler diagnostics of one fit.
+
+    ``table`` has one row per parameter (``r_hat``, ``ess_bulk``, ``ess_tail``);
+    ``bad_rhat`` and ``bad_ess`` name the parameters past the :class:`Thresholds`.
+
+    Example
+    -------
+    >>> d = fitted.diagnostics()                     # doctest: +SKIP
+    >>> d.divergences, d.problems()                  # doctest: +SKIP
+    (0, [])
+    """
+
+    table: pd.DataFrame
+    divergences: int
+    draws: int
+    chains: int
+    bad_rhat: list[str] = field(default_factory=list)
+    bad_ess: list[str] = field(default_factory=list)
+    max_treedepth_hits: int = 0
+    thresholds: Thresholds = field(default_factory=Thresholds)
+
+    def problems(self) -> list[str]:
+        """Plain-language descriptions of each sampler problem, with what to try."""
+        th = self.thresholds
+        out = []
+        if self.chains < 2:
+            out.append("only one chain was run, so R-hat cannot check convergence; use "
+                       "chains=2 or more")
+        if self.divergences:
+            out.append(
+                f"{self.divergences} divergent transition(s) out of {self.draws} draws: the "
+                "sampler met curvature it could not follow, so the draws may be biased. Try "
+                "target_accept=0.95 or 0.99; if they persist, tighter priors on group sds or "
+                "the dispersion, or a simpler zeros formula"
+            )
+        if self.bad_rhat:
+            out.append(
+                f"R-hat above {th.rhat} for {_short(self.bad_rhat)}: the chains disagree. Run "
+                "more tune and draws (e.g. tune=2000, draws=2000) and check the model is "
+                "identified"
+            )
+        if self.bad_ess:
+            out.append(
+                f"bulk or tail ESS below {th.ess:.0f} for {_short(self.bad_ess)}: too few "
+                "effective draws for stable intervals. Run more draws or chains"
+            )
+        if self.max_treedepth_hits:
+            out.append(
+                f"{self.max_treedepth_hits} draw(s) hit the maximum tree depth: sampling is "
+                "slow and may be inefficient; check for strongly correlated or weakly "
+                "identified terms"
+            )
+        return out
+
+
+def diagnose(idata: az.InferenceData, thresholds: Thresholds | None = None) -> Diagnostics:
+    """Per-parameter R-hat and ESS plus the divergence count and flags."""
+    th = thresholds or Thresholds()
+    names = parameter_names(idata)
+    chains = int(idata.posterior.sizes["chain"])
+    log = logging.getLogger("arviz")
+    level = log.level
+    log.setLevel(logging.CRITICAL)  # one chain: arviz logs a shape message; we say it plainly
+    try:
+        summ = az.summary(idata, var_names=names, kind="diagnostics", round_to="none")
+    finally:
+        log.setLevel(level)
+    summ = summ[["r_hat", "ess_bulk", "ess_tail"]].copy()
+    if chains < 2:
+        summ["r_hat"] = np.nan
+    tree = idata.sample_stats.get("reached_max_treedepth")
+    return Diagnostics(
+        table=summ,
+        divergences=int(np.asarray(idata.sample_stats["diverging"]).sum()),
+        draws=int(idata.posterior.sizes["chain"] * idata.posterior.sizes["draw"]),
+        chains=chains,
+        bad_rhat=summ.index[summ["r_hat"] > th.rhat].tolist(),
+        bad_ess=summ.index[(summ["ess_bulk"] < th.ess) | (summ["ess_tail"] < th.ess)].tolist(),
+        max_treedepth_hits=int(np.asarray(tree).sum()) if tree is not None else 0,
+        thresholds=th,
+    )
+
+
+def _short(names: list[str], most: int = 6) -> str:
+    more = len(names) - most
+    return ", ".join(names[:most]) + (f" and {more} more" if more > 0 else "")
+
+
+def warn_about(diag: Diagnostics) -> None:
+    """Issue one :class:`BayesziWarning` per problem found."""
+    for text in diag.problems():
+        warnings.warn(text, BayesziWarning, stacklevel=3)
