@@ -182,89 +182,32 @@ class ModelSpec:
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
 
     def __post_init__(self) -> None:
-        object.__setattr__(self, "family", names.check_family(self.family))
-        if not isinstance(self.counts, str) or "~" not in self.counts:
-            raise BayesziError(
-                f"counts formula must look like 'response ~ predictors', got {self.counts!r}"
-            )
-        lhs, rhs = self.counts.split("~", 1)
-        if not lhs.strip():
-            raise BayesziError(
-                f"counts formula {self.counts!r} has no response on the left of '~'; "
-                "write e.g. 'crayfish ~ water_temp'"
-            )
-        if not rhs.strip():
-            raise BayesziError(f"counts formula {self.counts!r} has nothing right of '~'; "
-                               "use '~ 1' for an intercept only")
-        _one_part(rhs, "counts")
-        zeros = "~ 1" if self.zeros is None else self.zeros
-        if not isinstance(zeros, str):
-            raise BayesziError(f"zeros formula must be a string like '~ barrier', got {zeros!r}")
-        zeros = zeros.strip()
-        if not zeros.startswith("~"):
-            if "~" in zeros:
-                raise BayesziError(
-                    f"zeros formula {zeros!r} has a response on the left of '~'; the zeros part "
-                    "shares the counts response, so write only the right side, e.g. '~ barrier'"
-                )
-            zeros = "~ " + zeros
-        if not zeros[1:].strip():
-            zeros = "~ 1"
-        _one_part(zeros[1:], "zeros")
-        object.__setattr__(self, "zeros", zeros)
-        object.__setattr__(self, "exposure", _column(self.exposure, "exposure"))
-        object.__setattr__(self, "offset", _column(self.offset, "offset"))
+        # checked in this order, so that the first problem named is the same every time
+        checked: dict[str, Any] = {"family": names.check_family(self.family),
+                                   "counts": _checked_counts(self.counts),
+                                   "zeros": _checked_zeros(self.zeros),
+                                   "exposure": _column(self.exposure, "exposure"),
+                                   "offset": _column(self.offset, "offset")}
         groups = _column_list(self.groups, "groups")
         if len(set(groups)) != len(groups):
             raise BayesziError(f"groups lists a column twice: {list(groups)}")
-        object.__setattr__(self, "groups", groups)
-        raw_varying = {} if self.varying is None else self.varying
-        if not isinstance(raw_varying, Mapping):
-            raise BayesziError(f"varying must map a part to terms, e.g. {{'counts': ['depth']}}, "
-                               f"got {raw_varying!r}")
-        varying = {}
-        for part, terms in raw_varying.items():
-            if part not in PARTS:
-                raise BayesziError(
-                    f"varying has unknown part {part!r}; use 'counts' or 'zeros'"
-                )
-            terms = _column_list(terms, f"varying[{part!r}]")
-            if terms:
-                varying[part] = terms
-        if varying and not groups:
-            raise BayesziError("varying slopes need groups: pass groups='your_site_column'")
-        object.__setattr__(self, "varying", varying)
-        raw_nested = {} if self.nested is None else self.nested
-        if not isinstance(raw_nested, Mapping):
-            raise BayesziError(f"nested must map a grouping column to the column it is nested in, "
-                               f"e.g. {{'reach': 'river'}}, got {raw_nested!r}")
-        nested = dict(raw_nested)
-        for inner, outer in nested.items():
-            if inner not in groups:
-                raise BayesziError(
-                    f"nested names {inner!r}, which is not among groups {list(groups)}"
-                )
-            if not isinstance(outer, str) or not outer.strip():
-                raise BayesziError(f"nested[{inner!r}] must be a column name, got {outer!r}")
-        object.__setattr__(self, "nested", nested)
+        checked["groups"] = groups
+        checked["varying"] = _checked_varying(self.varying, groups)
+        checked["nested"] = _checked_nested(self.nested, groups)
         if not isinstance(self.correlated, (bool, np.bool_)):
             raise BayesziError(f"correlated must be True or False, got {self.correlated!r}")
-        object.__setattr__(self, "correlated", bool(self.correlated))
+        checked["correlated"] = bool(self.correlated)
         if self.correlated and not groups:
             raise BayesziError("correlated=True needs groups: pass groups='your_site_column'")
-        if self.exposure is not None and self.offset is not None:
+        if checked["exposure"] is not None and checked["offset"] is not None:
             raise BayesziError(
                 "give either exposure (effort column, logged for you) or offset (a ready-made "
                 "log offset column), not both"
             )
-        priors = {} if self.priors is None else self.priors
-        if not isinstance(priors, Mapping):
-            raise BayesziError(
-                "priors must be a dict such as {'counts': {'depth': Prior('normal', 0, 0.5)}}, "
-                f"got {priors!r}; see docs/priors.md"
-            )
-        object.__setattr__(self, "priors", _plain_priors(priors))
-        object.__setattr__(self, "sampler", SamplerSettings.from_mapping(self.sampler))
+        checked["priors"] = _checked_priors(self.priors)
+        checked["sampler"] = SamplerSettings.from_mapping(self.sampler)
+        for key, value in checked.items():
+            object.__setattr__(self, key, value)
 
     # ------------------------------------------------------------------ properties
     @property
@@ -326,3 +269,86 @@ def _one_part(rhs: str, part: str) -> None:
             f"the {part} formula '~ {rhs.strip()}' has a second '~'; write one formula per part: "
             "counts='y ~ a + b' and zeros='~ c'"
         )
+
+
+def _checked_counts(counts: object) -> str:
+    """The counts formula, refused unless it is 'response ~ predictors'."""
+    if not isinstance(counts, str) or "~" not in counts:
+        raise BayesziError(
+            f"counts formula must look like 'response ~ predictors', got {counts!r}"
+        )
+    lhs, rhs = counts.split("~", 1)
+    if not lhs.strip():
+        raise BayesziError(
+            f"counts formula {counts!r} has no response on the left of '~'; "
+            "write e.g. 'crayfish ~ water_temp'"
+        )
+    if not rhs.strip():
+        raise BayesziError(f"counts formula {counts!r} has nothing right of '~'; "
+                           "use '~ 1' for an intercept only")
+    _one_part(rhs, "counts")
+    return counts
+
+
+def _checked_zeros(zeros: object) -> str:
+    """The zeros formula normalised to '~ rhs' ('~ 1' when empty or None)."""
+    zeros = "~ 1" if zeros is None else zeros
+    if not isinstance(zeros, str):
+        raise BayesziError(f"zeros formula must be a string like '~ barrier', got {zeros!r}")
+    zeros = zeros.strip()
+    if not zeros.startswith("~"):
+        if "~" in zeros:
+            raise BayesziError(
+                f"zeros formula {zeros!r} has a response on the left of '~'; the zeros part "
+                "shares the counts response, so write only the right side, e.g. '~ barrier'"
+            )
+        zeros = "~ " + zeros
+    if not zeros[1:].strip():
+        zeros = "~ 1"
+    _one_part(zeros[1:], "zeros")
+    return zeros
+
+
+def _checked_varying(raw: object, groups: tuple[str, ...]) -> dict[str, tuple[str, ...]]:
+    """Varying slopes per part, refused without groups or with an unknown part."""
+    raw = {} if raw is None else raw
+    if not isinstance(raw, Mapping):
+        raise BayesziError(f"varying must map a part to terms, e.g. {{'counts': ['depth']}}, "
+                           f"got {raw!r}")
+    varying = {}
+    for part, terms in raw.items():
+        if part not in PARTS:
+            raise BayesziError(f"varying has unknown part {part!r}; use 'counts' or 'zeros'")
+        terms = _column_list(terms, f"varying[{part!r}]")
+        if terms:
+            varying[part] = terms
+    if varying and not groups:
+        raise BayesziError("varying slopes need groups: pass groups='your_site_column'")
+    return varying
+
+
+def _checked_nested(raw: object, groups: tuple[str, ...]) -> dict[str, str]:
+    """Grouping column -> the column it is nested in; both must be named properly."""
+    raw = {} if raw is None else raw
+    if not isinstance(raw, Mapping):
+        raise BayesziError(f"nested must map a grouping column to the column it is nested in, "
+                           f"e.g. {{'reach': 'river'}}, got {raw!r}")
+    nested = dict(raw)
+    for inner, outer in nested.items():
+        if inner not in groups:
+            raise BayesziError(f"nested names {inner!r}, which is not among groups "
+                               f"{list(groups)}")
+        if not isinstance(outer, str) or not outer.strip():
+            raise BayesziError(f"nested[{inner!r}] must be a column name, got {outer!r}")
+    return nested
+
+
+def _checked_priors(raw: object) -> dict[str, Any]:
+    """Prior overrides as plain JSON-friendly values."""
+    priors = {} if raw is None else raw
+    if not isinstance(priors, Mapping):
+        raise BayesziError(
+            "priors must be a dict such as {'counts': {'depth': Prior('normal', 0, 0.5)}}, "
+            f"got {priors!r}; see docs/priors.md"
+        )
+    return _plain_priors(priors)

@@ -426,6 +426,20 @@ def build_design(data: pd.DataFrame, spec: ModelSpec) -> Design:
     _check_group_roles(spec, data, c_vars, z_vars, fam.zeros_kind is not None)
     groups = [_group(data, g, spec.nested) for g in spec.groups]
     _check_distinct_groups(groups)
+    _check_varying_terms(spec, counts, zeros, groups)
+    _check_separation(y, counts, zeros, fam.zeros_kind)
+    ranges = {}
+    for v in dict.fromkeys([*c_vars, *z_vars]):
+        if v not in levels:
+            col = data[v].to_numpy(dtype=float)
+            ranges[v] = (float(col.min()), float(col.max()))
+    return Design(spec, len(data), y, log_offset, counts, zeros, groups, levels, used,
+                  data.index, ranges)
+
+
+def _check_varying_terms(spec: ModelSpec, counts: PartDesign, zeros: PartDesign | None,
+                         groups: list[GroupDesign]) -> None:
+    """Varying slopes must name columns of their part's design that vary within groups."""
     for part, terms in spec.varying.items():
         pd_ = counts if part == "counts" else zeros
         if pd_ is None:
@@ -439,14 +453,6 @@ def build_design(data: pd.DataFrame, spec: ModelSpec) -> Design:
             )
     for part, terms in spec.varying.items():
         _check_slopes_vary(counts if part == "counts" else zeros, terms, groups)
-    _check_separation(y, counts, zeros, fam.zeros_kind)
-    ranges = {}
-    for v in dict.fromkeys([*c_vars, *z_vars]):
-        if v not in levels:
-            col = data[v].to_numpy(dtype=float)
-            ranges[v] = (float(col.min()), float(col.max()))
-    return Design(spec, len(data), y, log_offset, counts, zeros, groups, levels, used,
-                  data.index, ranges)
 
 
 def _group(data: pd.DataFrame, name: str, nested: dict[str, str]) -> GroupDesign:

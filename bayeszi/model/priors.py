@@ -27,6 +27,7 @@ from typing import Any
 import numpy as np
 
 from bayeszi.base.errors import BayesziError
+from bayeszi.base.names import zero_mechanism
 
 COEF_DISTS = {"normal": 2, "student_t": 3, "laplace": 2}
 SCALE_DISTS = {"halfnormal": 1, "exponential": 1, "halfstudent_t": 2}
@@ -197,10 +198,8 @@ def resolve(design: Any, overrides: Mapping[str, Any] | None) -> PriorSet:
             f"unknown prior key(s) {unknown}; use 'counts', 'zeros', 'dispersion', 'group_sd' "
             "or 'lkj_eta'"
         )
-    from bayeszi.families import get_family
-
-    fam = get_family(design.spec.family)
-    c0, z0 = intercept_centres(design.y, design.log_offset, fam.zeros_kind)
+    c0, z0 = intercept_centres(design.y, design.log_offset,
+                               zero_mechanism(design.spec.family))
     parts: dict[str, dict[str, Prior]] = {}
     user: dict[str, dict[str, Prior]] = {}
     for part, pdes, centre, sd in (("counts", design.counts, c0, COUNTS_COEF_SD),
@@ -210,35 +209,52 @@ def resolve(design: Any, overrides: Mapping[str, Any] | None) -> PriorSet:
                 raise BayesziError(f"priors were given for the {part} part, but family "
                                    f"{design.spec.family!r} has none")
             continue
-        given = overrides.get(part) or {}
-        if not isinstance(given, Mapping):
-            raise BayesziError(f"priors[{part!r}] must map term names to priors, got {given!r}")
-        bad = sorted(set(given) - set(pdes.terms))
-        if bad:
-            raise BayesziError(f"priors[{part!r}] names unknown term(s) {bad}; terms of the "
-                               f"{part} part: {pdes.terms}")
-        internal: dict[str, Prior] = {}
-        shown: dict[str, Prior] = {}
-        for j, term in enumerate(pdes.terms):
-            if term in given:
-                p = as_prior(given[term], f"{part} term {term!r}")
-                if not p.is_coef:
-                    raise BayesziError(f"prior for {part} term {term!r} must be one of "
-                                       f"{sorted(COEF_DISTS)}, got {p.dist!r}")
-                shown[term] = p
-                internal[term] = p if j == pdes.intercept else p.scaled(pdes.scale[j])
-            elif j == pdes.intercept:
-                internal[term] = shown[term] = Prior("normal", centre, INTERCEPT_SD)
-            else:
-                internal[term] = Prior("normal", 0.0, sd)
-                shown[term] = internal[term].scaled(1.0 / pdes.scale[j])
-        parts[part] = internal
-        user[part] = shown
+        parts[part], user[part] = _part_priors(part, pdes, overrides.get(part) or {}, centre,
+                                               sd)
+    return PriorSet(parts.get("counts", {}), parts.get("zeros", {}),
+                    _dispersion_prior(overrides), _group_sd_priors(overrides),
+                    _lkj_eta(overrides), user)
+
+
+def _part_priors(part: str, pdes: Any, given: Any, centre: float, sd: float
+                 ) -> tuple[dict[str, Prior], dict[str, Prior]]:
+    """(internal-scale, user-scale) coefficient priors of one part, overrides applied."""
+    if not isinstance(given, Mapping):
+        raise BayesziError(f"priors[{part!r}] must map term names to priors, got {given!r}")
+    bad = sorted(set(given) - set(pdes.terms))
+    if bad:
+        raise BayesziError(f"priors[{part!r}] names unknown term(s) {bad}; terms of the "
+                           f"{part} part: {pdes.terms}")
+    internal: dict[str, Prior] = {}
+    shown: dict[str, Prior] = {}
+    for j, term in enumerate(pdes.terms):
+        if term in given:
+            p = as_prior(given[term], f"{part} term {term!r}")
+            if not p.is_coef:
+                raise BayesziError(f"prior for {part} term {term!r} must be one of "
+                                   f"{sorted(COEF_DISTS)}, got {p.dist!r}")
+            shown[term] = p
+            internal[term] = p if j == pdes.intercept else p.scaled(pdes.scale[j])
+        elif j == pdes.intercept:
+            internal[term] = shown[term] = Prior("normal", centre, INTERCEPT_SD)
+        else:
+            internal[term] = Prior("normal", 0.0, sd)
+            shown[term] = internal[term].scaled(1.0 / pdes.scale[j])
+    return internal, shown
+
+
+def _dispersion_prior(overrides: Mapping[str, Any]) -> Prior:
+    """The prior on sqrt(alpha), positive-valued."""
     disp = as_prior(overrides.get("dispersion", Prior("exponential", DISPERSION_RATE)),
                     "dispersion")
     if disp.is_coef:
         raise BayesziError("the dispersion prior (on sqrt(alpha)) must be positive-valued: "
                            f"one of {sorted(SCALE_DISTS)}")
+    return disp
+
+
+def _group_sd_priors(overrides: Mapping[str, Any]) -> dict[str, Prior]:
+    """The priors on the group sds of each part, positive-valued."""
     gsd_in = overrides.get("group_sd") or {}
     if not isinstance(gsd_in, Mapping):
         raise BayesziError("priors['group_sd'] must map 'counts'/'zeros' to priors")
@@ -248,11 +264,15 @@ def resolve(design: Any, overrides: Mapping[str, Any] | None) -> PriorSet:
         if p.is_coef:
             raise BayesziError(f"the {part} group sd prior must be one of {sorted(SCALE_DISTS)}")
         gsd[part] = p
+    return gsd
+
+
+def _lkj_eta(overrides: Mapping[str, Any]) -> float:
+    """The LKJ shape of correlated intercepts, a positive number."""
     eta = overrides.get("lkj_eta", LKJ_ETA)
     if isinstance(eta, (bool, np.bool_)) or not isinstance(eta, (int, float, np.integer,
                                                                   np.floating)) \
             or not np.isfinite(eta) or not eta > 0:
         raise BayesziError(f"priors['lkj_eta'] must be a positive number (e.g. 2, the default), "
                            f"got {eta!r}")
-    eta = float(eta)
-    return PriorSet(parts.get("counts", {}), parts.get("zeros", {}), disp, gsd, eta, user)
+    return float(eta)
