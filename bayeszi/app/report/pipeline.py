@@ -18,8 +18,9 @@ import os
 from collections.abc import Callable, Sequence
 from typing import TYPE_CHECKING, Any
 
+from bayeszi.app.report.context import ReportInput
 from bayeszi.app.report.output import OutputFolder
-from bayeszi.app.report.sections import ReportInput, build_document
+from bayeszi.app.report.sections import build_document
 from bayeszi.app.report.write import REPORT_NAME, slug, write_document
 from bayeszi.base.errors import BayesziError
 from bayeszi.fitting.candidates import fit_each
