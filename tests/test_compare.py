@@ -43,7 +43,7 @@ from statsmodels.discrete.truncated_model import (
 import bayeszi as bz
 from bayeszi.answers.comparison import RefitWrapper, check_same_data, compare, loo
 from bayeszi.engine.draws import linear_predictors
-from bayeszi.fitting.candidates import _Progress, candidate_specs, fit_candidates
+from bayeszi.fitting.candidates import ProgressDisplay, candidate_specs, fit_candidates
 from bayeszi.plots.compareplots import plot_comparison
 
 SMALL = {"draws": 400, "tune": 400, "chains": 2}
@@ -250,7 +250,7 @@ def test_fit_candidates_shows_each_data_warning_once(monkeypatch):
 
 def test_progress_is_one_display():
     buf = io.StringIO()
-    p = _Progress(2, True, buf)
+    p = ProgressDisplay(2, True, buf)
     p.start("zip")
     p.finish("zip", 3.2)
     p.start("zinb")
@@ -259,7 +259,7 @@ def test_progress_is_one_display():
     assert len(lines) == 2 and all(line.startswith("candidate ") for line in lines)
     assert lines[1].startswith("candidate 2/2 zinb: 5 s")
     quiet = io.StringIO()
-    _Progress(1, False, quiet).finish("x", 1.0)
+    ProgressDisplay(1, False, quiet).finish("x", 1.0)
     assert quiet.getvalue() == ""
 
 

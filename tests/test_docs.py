@@ -51,12 +51,12 @@ KNOWN_WITHOUT_EXAMPLE = {
     "bayeszi.fit_spec", "bayeszi.make_spec", "bayeszi.load", "bayeszi.FittedModel",
     "bayeszi.Prior", "bayeszi.ModelSpec", "bayeszi.SamplerSettings", "bayeszi.BayesziError",
     "bayeszi.BayesziWarning", "FittedModel.diagnostics", "FittedModel.sampler_problems",
-    "FittedModel.coefficients", "FittedModel.save", "bayeszi.fitting.candidates.Candidate",
-    "bayeszi.app.study.Candidate", "bayeszi.app.study.Contrast", "bayeszi.app.study.Scenario",
+    "FittedModel.coefficients", "FittedModel.save",
+    "bayeszi.app.study.Contrast", "bayeszi.app.study.Scenario",
     "bayeszi.app.study.Study", "bayeszi.app.study.demo_study_path", "bayeszi.app.study.load_study",
-    "bayeszi.app.study.parse_study", "bayeszi.app.study.read_table", "bayeszi.app.study.sha256_of",
+    "bayeszi.app.study.read_table", "bayeszi.app.study.sha256_of",
     "bayeszi.app.report.report_saved", "bayeszi.app.report.run_study",
-    "bayeszi.app.cli.build_parser", "bayeszi.app.cli.main",
+    "bayeszi.app.cli.main",
 }
 
 

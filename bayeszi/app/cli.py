@@ -98,23 +98,21 @@ def _check_file_destination(path: str, flag: str) -> str:
 def _fit(args: argparse.Namespace) -> int:
     from bayeszi.app.report.pipeline import save_fit
     from bayeszi.app.study import read_table, sha256_of
-    from bayeszi.fitting import api as bz
+    from bayeszi.fitting.api import make_spec
+    from bayeszi.fitting.candidates import Candidate, check_candidates, fit_each
 
     out = _check_file_destination(args.out, "--out")
     data = read_table(args.data)
-    spec = bz.make_spec(args.counts, args.zeros, args.family, exposure=args.exposure,
-                        offset=args.offset, groups=args.groups or None, draws=args.draws,
-                        tune=args.tune, chains=args.chains, cores=args.cores,
-                        target_accept=args.target_accept, seed=args.seed)
-    from bayeszi.model.design import build_design
-
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        build_design(data, spec)  # every data check, before sampling
+    spec = make_spec(args.counts, args.zeros, args.family, exposure=args.exposure,
+                     offset=args.offset, groups=args.groups or None, draws=args.draws,
+                     tune=args.tune, chains=args.chains, cores=args.cores,
+                     target_accept=args.target_accept, seed=args.seed)
+    name = args.name or spec.family
+    checked = check_candidates(data, [Candidate(name, spec)], noun="model")  # before sampling
     args.console(f"fitting {spec.family} to {len(data)} records of {args.data} ...")
-    fitted = bz.fit_spec(data, spec)
+    fitted = fit_each(data, checked).fits[name]
     provenance = {"data_path": os.path.abspath(args.data), "data_sha256": sha256_of(args.data),
-                  "command": args.command_line, "model": args.name or spec.family}
+                  "command": args.command_line, "model": name}
     save_fit(fitted, out, provenance)
     print(fitted)
     args.console(f"saved fit: {out}")
@@ -184,7 +182,13 @@ def _sampler_flags(p: argparse.ArgumentParser, defaults: bool) -> None:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    """The argument parser with every subcommand."""
+    """The argument parser with every subcommand.
+
+    Example
+    -------
+    >>> build_parser().parse_args(["report", "a.nc", "--out", "r"]).interval
+    0.9
+    """
     from bayeszi.base.version import __version__
 
     p = _Parser(prog="bayeszi", description="Bayesian regression for counts with excess "
@@ -194,7 +198,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--version", action="version", version=f"bayeszi {__version__}")
     sub = p.add_subparsers(dest="subcommand", required=True, metavar="COMMAND",
                            parser_class=_Parser)
+    for add in (_add_run, _add_demo, _add_fit, _add_predict, _add_report):
+        add(sub)
+    return p
 
+
+def _add_run(sub: Any) -> None:
     r = sub.add_parser("run", help="fit every model of a study file and write the report",
                        description="Fit every candidate model of STUDY (a TOML study file, "
                        "see docs/study-file.md), compare them by LOO, check them, predict the "
@@ -205,6 +214,8 @@ def build_parser() -> argparse.ArgumentParser:
     _common_run_flags(r)
     r.set_defaults(func=_run)
 
+
+def _add_demo(sub: Any) -> None:
     d = sub.add_parser("demo", help="run the shipped crayfish study",
                        description="Run the shipped crayfish study (invented trapping data on "
                        "40 stream reaches: ZINB with reach groups against two rivals) and "
@@ -214,6 +225,10 @@ def build_parser() -> argparse.ArgumentParser:
     _common_run_flags(d)
     d.set_defaults(func=_demo)
 
+
+def _add_fit(sub: Any) -> None:
+    from bayeszi.families import FAMILY_NAMES
+
     f = sub.add_parser("fit", help="fit one model from flags and save it",
                        description="Fit one model to a CSV file and save the fit (netCDF), "
                        "for 'bayeszi predict' and 'bayeszi report'.")
@@ -222,8 +237,6 @@ def build_parser() -> argparse.ArgumentParser:
                    help="counts formula with the response, e.g. 'crayfish ~ depth + canopy'")
     f.add_argument("--zeros", default="~ 1", metavar="FORMULA",
                    help="zeros formula, e.g. '~ barrier' (default: %(default)s)")
-    from bayeszi.families import FAMILY_NAMES
-
     f.add_argument("--family", default="zinb", help=f"one of {', '.join(FAMILY_NAMES)} "
                    "(default: %(default)s)")
     f.add_argument("--exposure", metavar="COLUMN", help="effort column (enters as log offset)")
@@ -239,14 +252,16 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--quiet", action="store_true", help="no progress messages")
     f.set_defaults(func=_fit)
 
+
+def _add_predict(sub: Any) -> None:
+    from bayeszi.answers.predict import GROUP_MODES, QUANTITIES
+
     q = sub.add_parser("predict", help="predict for new rows from a saved fit (CSV out)",
                        description="Predict for the rows of NEW.csv from a saved fit; writes "
                        "the rows with the posterior mean, sd and interval of each quantity.")
     q.add_argument("saved", metavar="SAVED", help="a fit saved by 'bayeszi fit' or 'run "
                    "--save-fits'")
     q.add_argument("new", metavar="NEW.csv", help="rows to predict for")
-    from bayeszi.answers.predict import GROUP_MODES, QUANTITIES
-
     q.add_argument("--what", nargs="+", choices=QUANTITIES, metavar="QUANTITY",
                    help=f"one or more of {', '.join(QUANTITIES)} (default: mean)")
     q.add_argument("--groups", default="known", choices=GROUP_MODES,
@@ -262,6 +277,8 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("--quiet", action="store_true", help="no progress messages")
     q.set_defaults(func=_predict)
 
+
+def _add_report(sub: Any) -> None:
     rp = sub.add_parser("report", help="write a report from saved fits",
                         description="Write a report folder from one or more saved fits of "
                         "the same data (no scenarios: those live in a study file).")
@@ -272,7 +289,6 @@ def build_parser() -> argparse.ArgumentParser:
                     help="central interval in the tables (default: %(default)s)")
     rp.add_argument("--quiet", action="store_true", help="no progress messages")
     rp.set_defaults(func=_report)
-    return p
 
 
 def _common_run_flags(p: argparse.ArgumentParser) -> None:

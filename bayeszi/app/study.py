@@ -4,7 +4,9 @@ A study file is TOML in bayeszi's own schema (documented in docs/study-file.md).
 strictly: an unknown key anywhere is a :class:`~bayeszi.base.errors.BayesziError` that names the
 key, where it sits and the keys allowed there. :func:`load_study` only reads and checks the
 file itself; :meth:`Study.check` then checks the study against its data (columns, formulas,
-factor levels of the scenarios) without sampling, so a bad study fails in seconds.
+priors, factor levels of the scenarios) without sampling, so a bad study fails in seconds.
+Its candidates are :class:`bayeszi.fitting.candidates.Candidate` objects, checked and fitted
+by the same functions as :func:`bayeszi.fit_candidates`.
 
 Example
 -------
@@ -24,7 +26,7 @@ import hashlib
 import os
 import re
 import tomllib
-from collections.abc import Mapping
+from collections.abc import Iterator, Mapping
 from dataclasses import dataclass, field
 from importlib import resources
 from typing import Any
@@ -33,6 +35,7 @@ import pandas as pd
 
 from bayeszi.base.errors import BayesziError
 from bayeszi.base.spec import ModelSpec, SamplerSettings
+from bayeszi.fitting.candidates import Candidate, CheckedCandidates, check_candidates
 
 # Allowed keys, per table. Kept here so that the error messages and docs/study-file.md agree.
 TOP_KEYS = ("study", "sampler", "model", "scenario", "contrast")
@@ -95,14 +98,6 @@ def _scalar(value: Any, key: str, where: str) -> Any:
     if isinstance(value, (int, float, str)):
         return value
     raise BayesziError(f"{key!r} in {where} must be a number or a text label, got {value!r}")
-
-
-@dataclass(frozen=True)
-class Candidate:
-    """One candidate model of a study: its name and its validated :class:`ModelSpec`."""
-
-    name: str
-    spec: ModelSpec
 
 
 @dataclass(frozen=True)
@@ -199,16 +194,14 @@ class Study:
                            f"{[s.name for s in self.scenarios]}")
 
     # ------------------------------------------------------------------ checks
-    def check(self, data: pd.DataFrame) -> None:
+    def check(self, data: pd.DataFrame) -> CheckedCandidates:
         """Check every candidate and scenario against ``data`` without sampling.
 
-        Builds each candidate's design (response, formulas, exposure, groups) and encodes
-        every scenario and contrast row with it (columns present, factor levels known).
+        Builds each candidate's design and priors (response, formulas, exposure, groups;
+        each data warning shown once) and encodes every scenario and contrast row with it
+        (columns present, factor levels known). Returns the checked candidates, ready for
+        :func:`bayeszi.fitting.candidates.fit_each`.
         """
-        import warnings
-
-        from bayeszi.model.design import build_design
-
         if self.response not in data.columns:
             near = difflib.get_close_matches(self.response, [str(c) for c in data.columns], n=3)
             hint = f" Did you mean {near}?" if near else ""
@@ -217,14 +210,8 @@ class Study:
                 f"{os.path.basename(self.data_path)}; columns: {list(map(str, data.columns))[:20]}."
                 f"{hint}"
             )
-        designs = {}
-        for c in self.candidates:
-            try:
-                with warnings.catch_warnings():
-                    warnings.simplefilter("ignore")  # the fit shows data warnings once
-                    designs[c.name] = build_design(data, c.spec)
-            except BayesziError as err:
-                raise BayesziError(f"model {c.name!r}: {err}") from None
+        checked = check_candidates(data, self.candidates, noun="model")
+        designs = checked.designs
         used = sorted({c for d in designs.values() for c in d.used_columns} - {self.response})
         for s in self.scenarios:
             for col in [*s.values, *s.vary]:
@@ -240,6 +227,7 @@ class Study:
             for name, d in designs.items():
                 self._check_rows(f"{ct.scenario}' changed by contrast '{ct.name}", rows, d,
                                  s.groups, name)
+        return checked
 
     @staticmethod
     def _check_rows(label: str, rows: pd.DataFrame, design: Any, groups: str, model: str
@@ -334,22 +322,63 @@ def load_study(path: str) -> Study:
 
 
 def parse_study(raw: Mapping[str, Any], path: str) -> Study:
-    """Build a :class:`Study` from a parsed TOML mapping (``path`` anchors relative paths)."""
+    """Build a :class:`Study` from a parsed TOML mapping (``path`` anchors relative paths).
+
+    Example
+    -------
+    >>> study = parse_study({"study": {"data": "d.csv", "response": "y"},
+    ...                      "model": [{"name": "p", "family": "poisson", "counts": "x"}]},
+    ...                     "/tmp/study.toml")
+    >>> study.data_path, study.candidates[0].spec.counts
+    ('/tmp/d.csv', 'y ~ x')
+    """
     top = _strict(raw, TOP_KEYS, "the study file (top level)")
     if "study" not in top:
         raise BayesziError("the study file needs a [study] table with at least 'data' and "
                            "'response'")
     st = _strict(top["study"], STUDY_KEYS, "[study]")
     data = _text(st.get("data"), "data", "[study]", required=True)
-    folder = os.path.dirname(path)
-    data_path = os.path.normpath(os.path.join(folder, data))
     response = _text(st.get("response"), "response", "[study]", required=True)
+    assert data is not None and response is not None
     exposure = _text(st.get("exposure"), "exposure", "[study]")
     offset = _text(st.get("offset"), "offset", "[study]")
     groups = _names(st.get("groups"), "groups", "[study]")
     nested = st.get("nested", {})
     if not isinstance(nested, Mapping):
         raise BayesziError("'nested' in [study] must be a table like { reach = \"river\" }")
+    seed, interval = _seed_and_interval(st)
+    sampler_raw = _strict(top.get("sampler", {}), SAMPLER_KEYS, "[sampler]")
+    try:
+        sampler = SamplerSettings(**sampler_raw, seed=seed)
+    except BayesziError as err:
+        raise BayesziError(f"[sampler]: {err}") from None
+    cands = [_candidate(m, where, response, exposure, offset, groups, dict(nested), sampler)
+             for m, where in _tables(top.get("model"), "model", MODEL_KEYS)]
+    _unique([c.name for c in cands], "model")
+    scenarios = [_scenario(s, where, response)
+                 for s, where in _tables(top.get("scenario"), "scenario", SCENARIO_KEYS)]
+    _unique([s.name for s in scenarios], "scenario")
+    contrasts = [_contrast(c, where, [s.name for s in scenarios])
+                 for c, where in _tables(top.get("contrast"), "contrast", CONTRAST_KEYS)]
+    _unique([c.name for c in contrasts], "contrast")
+    preferred = _text(st.get("preferred"), "preferred", "[study]")
+    if preferred is not None and preferred not in [c.name for c in cands]:
+        raise BayesziError(f"'preferred' in [study] names {preferred!r}, which is not a model; "
+                           f"models: {[c.name for c in cands]}")
+    return Study(
+        path=path, data_path=os.path.normpath(os.path.join(os.path.dirname(path), data)),
+        response=response, candidates=tuple(cands),
+        title=_text(st.get("title"), "title", "[study]") or "bayeszi study",
+        summary=_text(st.get("summary"), "summary", "[study]") or "",
+        exposure=exposure, offset=offset,
+        exposure_unit=_text(st.get("exposure_unit"), "exposure_unit", "[study]"),
+        groups=groups, seed=seed, interval=float(interval), preferred=preferred,
+        sampler=sampler, scenarios=tuple(scenarios), contrasts=tuple(contrasts),
+    )
+
+
+def _seed_and_interval(st: Mapping[str, Any]) -> tuple[int | None, float]:
+    """The [study] seed (None or a whole number >= 0) and interval (strictly in (0, 1))."""
     seed = st.get("seed")
     if seed is not None and (not isinstance(seed, int) or isinstance(seed, bool) or seed < 0):
         raise BayesziError(f"'seed' in [study] must be a non-negative whole number, got {seed!r}")
@@ -358,54 +387,22 @@ def parse_study(raw: Mapping[str, Any], path: str) -> Study:
             or not 0 < interval < 1:
         raise BayesziError(f"'interval' in [study] must lie strictly between 0 and 1, got "
                            f"{interval!r}; e.g. 0.9 for 90% intervals")
-    sampler_raw = _strict(top.get("sampler", {}), SAMPLER_KEYS, "[sampler]")
-    try:
-        sampler = SamplerSettings(**sampler_raw, seed=seed)
-    except BayesziError as err:
-        raise BayesziError(f"[sampler]: {err}") from None
+    return seed, float(interval)
 
-    models = top.get("model")
-    if not models:
-        raise BayesziError("the study file names no candidate models; add at least one "
-                           "[[model]] table with name, family and counts")
-    if not isinstance(models, list):
-        raise BayesziError("write each candidate as a [[model]] table (double brackets)")
-    cands: list[Candidate] = []
-    for i, m in enumerate(models):
-        name = m.get("name") if isinstance(m, Mapping) else None
-        where = _where("model", i, name if isinstance(name, str) else None)
-        m = _strict(m, MODEL_KEYS, where)
-        cands.append(_candidate(m, where, response, exposure, offset, groups, dict(nested),
-                                sampler))
-    _unique([c.name for c in cands], "model")
 
-    scenarios: list[Scenario] = []
-    for i, s in enumerate(_list(top.get("scenario"), "scenario")):
-        name = s.get("name") if isinstance(s, Mapping) else None
-        where = _where("scenario", i, name if isinstance(name, str) else None)
-        scenarios.append(_scenario(_strict(s, SCENARIO_KEYS, where), where, response))
-    _unique([s.name for s in scenarios], "scenario")
-    contrasts: list[Contrast] = []
-    for i, c in enumerate(_list(top.get("contrast"), "contrast")):
-        name = c.get("name") if isinstance(c, Mapping) else None
-        where = _where("contrast", i, name if isinstance(name, str) else None)
-        contrasts.append(_contrast(_strict(c, CONTRAST_KEYS, where), where,
-                                   [s.name for s in scenarios]))
-    _unique([c.name for c in contrasts], "contrast")
-
-    preferred = _text(st.get("preferred"), "preferred", "[study]")
-    if preferred is not None and preferred not in [c.name for c in cands]:
-        raise BayesziError(f"'preferred' in [study] names {preferred!r}, which is not a model; "
-                           f"models: {[c.name for c in cands]}")
-    return Study(
-        path=path, data_path=data_path, response=response, candidates=tuple(cands),
-        title=_text(st.get("title"), "title", "[study]") or "bayeszi study",
-        summary=_text(st.get("summary"), "summary", "[study]") or "",
-        exposure=exposure, offset=offset,
-        exposure_unit=_text(st.get("exposure_unit"), "exposure_unit", "[study]"),
-        groups=groups, seed=seed, interval=float(interval), preferred=preferred,
-        sampler=sampler, scenarios=tuple(scenarios), contrasts=tuple(contrasts),
-    )
+def _tables(value: Any, table: str, known: tuple[str, ...]
+            ) -> Iterator[tuple[dict[str, Any], str]]:
+    """Each [[table]] in turn, checked for unknown keys, with where it sits (for messages)."""
+    if table == "model":
+        if not value:
+            raise BayesziError("the study file names no candidate models; add at least one "
+                               "[[model]] table with name, family and counts")
+        if not isinstance(value, list):
+            raise BayesziError("write each candidate as a [[model]] table (double brackets)")
+    for i, item in enumerate(_list(value, table)):
+        name = item.get("name") if isinstance(item, Mapping) else None
+        where = _where(table, i, name if isinstance(name, str) else None)
+        yield _strict(item, known, where), where
 
 
 def _list(value: Any, table: str) -> list[Any]:
@@ -545,5 +542,5 @@ def _contrast(c: dict[str, Any], where: str, scenario_names: list[str]) -> Contr
     return Contrast(name, scen, change)
 
 
-__all__ = ["Candidate", "Contrast", "Scenario", "Study", "demo_study_path", "load_study",
-           "parse_study", "read_table", "sha256_of"]
+__all__ = ["Contrast", "Scenario", "Study", "demo_study_path", "load_study", "parse_study",
+           "read_table", "sha256_of"]

@@ -6,6 +6,11 @@ zeros for a hurdle family, is reported at once and each data warning is shown on
 per candidate), then fits the candidates one after the other behind a single progress
 display. The result is a dict ``name -> FittedModel`` ready for :func:`bayeszi.compare`.
 
+The steps are public and shared with the study runner and the command line, so there is one
+of each: :class:`Candidate` (a name and a spec), :func:`check_candidates` (the pre-sampling
+check) and :func:`fit_each` (the fit-many loop, reporting to a :class:`FitProgress` such as
+:class:`ProgressDisplay`).
+
 Families without a zeros part (``poisson``, ``negbin``) are fitted once, whatever the
 number of zeros formulas.
 
@@ -28,21 +33,29 @@ import time
 import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
-from typing import IO, TYPE_CHECKING, Any
+from typing import IO, Any, Protocol
 
 import pandas as pd
 
 from bayeszi.base.errors import BayesziError, BayesziWarning
 from bayeszi.base.spec import ModelSpec
 from bayeszi.families import FAMILY_NAMES, get_family
-
-if TYPE_CHECKING:
-    from bayeszi.fitting.fitted import FittedModel
+from bayeszi.fitting import api
+from bayeszi.fitting.fitted import FittedModel
+from bayeszi.model.design import Design, build_design
+from bayeszi.model.priors import resolve
+from bayeszi.model.validate import check_frame
 
 
 @dataclass(frozen=True)
 class Candidate:
-    """One candidate: its name in the results and its spec."""
+    """One candidate model: its name in the results and its validated spec.
+
+    Example
+    -------
+    >>> Candidate("zip", api.make_spec("y ~ x", family="zip")).spec.family
+    'zip'
+    """
 
     name: str
     spec: ModelSpec
@@ -97,8 +110,6 @@ def candidate_specs(counts: str, families: str | Sequence[str] = FAMILY_NAMES,
     >>> [c.name for c in candidate_specs("y ~ x", ["poisson", "zip"], ["~ 1", "~ w"])]
     ['poisson', 'zip ~ 1', 'zip ~ w']
     """
-    from bayeszi.fitting.api import make_spec
-
     pairs = _zeros_formulas(zeros)
     seen: set[str] = set()
     unique = []
@@ -124,7 +135,7 @@ def candidate_specs(counts: str, families: str | Sequence[str] = FAMILY_NAMES,
             else:
                 name = f"{fam_name} {label if label is not None else ' '.join(formula.split())}"
             try:
-                spec = make_spec(counts, formula, fam_name, **kw)
+                spec = api.make_spec(counts, formula, fam_name, **kw)
             except BayesziError as err:
                 raise BayesziError(f"candidate {name!r}: {err}") from None
             out.append(Candidate(name, spec))
@@ -135,9 +146,19 @@ def candidate_specs(counts: str, families: str | Sequence[str] = FAMILY_NAMES,
     return out
 
 
-class _Progress:
-    """One progress display for the whole set: a line updated in place on a terminal,
-    one line per finished candidate otherwise."""
+class ProgressDisplay:
+    """One progress display for a whole set of fits: a line updated in place on a terminal,
+    one line per finished candidate otherwise. Disabled, it shows nothing.
+
+    Example
+    -------
+    >>> import io
+    >>> buf = io.StringIO()
+    >>> p = ProgressDisplay(1, True, buf)
+    >>> p.start("zip"); p.finish("zip", 3.2)
+    >>> buf.getvalue()
+    'candidate 1/1 zip: 3 s (total 0m00s)\\n'
+    """
 
     def __init__(self, total: int, enabled: bool, stream: IO[str] | None = None) -> None:
         self.total = total
@@ -157,12 +178,14 @@ class _Progress:
         return f"{s // 60}m{s % 60:02d}s"
 
     def start(self, name: str) -> None:
+        """Candidate ``name`` starts sampling."""
         if self.enabled and self.tty:
             self.stream.write(f"\rfitting candidates {self._bar()} {self.done_count}/"
                               f"{self.total}, now {name} ({self._elapsed()})\x1b[K")
             self.stream.flush()
 
-    def finish(self, name: str, seconds: float) -> None:
+    def finish(self, name: str, seconds: float, warned: Sequence[str] = ()) -> None:
+        """Candidate ``name`` is fitted after ``seconds`` (its warnings are shown elsewhere)."""
         self.done_count += 1
         if not self.enabled:
             return
@@ -178,28 +201,143 @@ class _Progress:
         self.stream.flush()
 
 
-def _validate(data: pd.DataFrame, cands: list[Candidate]) -> set[str]:
-    """Build every candidate's design and priors once before sampling; show each data
-    warning once. Returns the warning texts shown."""
-    from bayeszi.model.design import build_design
-    from bayeszi.model.priors import resolve
+class FitProgress(Protocol):
+    """What :func:`fit_each` reports to: the start and the end of each candidate's fit.
 
+    ``warned`` lists the bayeszi warnings raised while fitting that candidate.
+
+    Example
+    -------
+    >>> class Lines:
+    ...     def start(self, name): print("fitting", name)
+    ...     def finish(self, name, seconds, warned=()): print(name, "done")
+    >>> fit_each(df, check_candidates(df, cands), Lines())             # doctest: +SKIP
+    """
+
+    def start(self, name: str) -> None: ...
+
+    def finish(self, name: str, seconds: float, warned: Sequence[str] = ()) -> None: ...
+
+
+@dataclass(frozen=True)
+class CheckedCandidates:
+    """Candidates whose designs and priors were built from the data without sampling.
+
+    Made only by :func:`check_candidates`; :func:`fit_each` fits them. ``designs`` maps each
+    candidate's name to its design; ``shown`` holds the data warnings already shown (each
+    once), which the fits raise again and which are then not shown a second time.
+
+    Example
+    -------
+    >>> checked = check_candidates(df, candidate_specs("y ~ x", "zip"))   # doctest: +SKIP
+    >>> checked.designs["zip"].n == len(df)                             # doctest: +SKIP
+    True
+    """
+
+    candidates: tuple[Candidate, ...]
+    designs: Mapping[str, Design]
+    shown: frozenset[str]
+    noun: str = "candidate"
+
+
+@dataclass(frozen=True)
+class CandidateFits:
+    """What :func:`fit_each` returns: the fits and the bayeszi warnings of each, by name.
+
+    Example
+    -------
+    >>> run = fit_each(df, check_candidates(df, cands))                 # doctest: +SKIP
+    >>> list(run.fits) == list(run.warnings) == [c.name for c in cands]  # doctest: +SKIP
+    True
+    """
+
+    fits: dict[str, FittedModel]
+    warnings: dict[str, list[str]]
+
+
+def check_candidates(data: pd.DataFrame, candidates: Sequence[Candidate],
+                     noun: str = "candidate") -> CheckedCandidates:
+    """Build every candidate's design and priors before any sampling.
+
+    A problem is a :class:`BayesziError` prefixed with ``noun`` and the candidate's name
+    (``"candidate 'zip': ..."``). Each data warning is shown once, naming the candidates it
+    concerns unless it concerns all of them.
+
+    Example
+    -------
+    >>> checked = check_candidates(df, candidate_specs("y ~ x", ["poisson", "zip"]))
+    ...                                                                     # doctest: +SKIP
+    >>> sorted(checked.designs)                                             # doctest: +SKIP
+    ['poisson', 'zip']
+    """
+    designs: dict[str, Design] = {}
     seen: dict[str, tuple[type[Warning], list[str]]] = {}
-    for c in cands:
+    for c in candidates:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             try:
-                design = build_design(data, c.spec)
-                resolve(design, c.spec.priors)
+                designs[c.name] = build_design(data, c.spec)
+                resolve(designs[c.name], c.spec.priors)
             except BayesziError as err:
-                raise BayesziError(f"candidate {c.name!r}: {err}") from None
+                raise BayesziError(f"{noun} {c.name!r}: {err}") from None
         for w in caught:
-            text = str(w.message)
-            seen.setdefault(text, (w.category, []))[1].append(c.name)
+            seen.setdefault(str(w.message), (w.category, []))[1].append(c.name)
     for text, (category, names) in seen.items():
-        who = "" if len(names) == len(cands) else f" (candidate(s) {', '.join(names)})"
-        warnings.warn(text + who, category, stacklevel=3)
-    return set(seen)
+        who = "" if len(names) == len(candidates) else f" ({noun}(s) {', '.join(names)})"
+        warnings.warn(text + who, category, stacklevel=2)
+    return CheckedCandidates(tuple(candidates), designs, frozenset(seen), noun)
+
+
+def fit_each(data: pd.DataFrame, checked: CheckedCandidates,
+             progress: FitProgress | None = None) -> CandidateFits:
+    """Fit checked candidates one after the other (the one fit-many loop).
+
+    bayeszi warnings raised while fitting a candidate are collected per candidate and shown
+    prefixed with its name, except the data warnings the check showed already; other
+    warnings (about the installation, say) are shown once. A fit that fails is a
+    :class:`BayesziError` naming the candidate.
+
+    Example
+    -------
+    >>> run = fit_each(df, check_candidates(df, cands), ProgressDisplay(len(cands), True))
+    ...                                                                     # doctest: +SKIP
+    >>> run.fits["zip"], run.warnings["zip"]                                # doctest: +SKIP
+    """
+    out = CandidateFits({}, {})
+    shown = set(checked.shown)
+    for c in checked.candidates:
+        if progress is not None:
+            progress.start(c.name)
+        t0 = time.perf_counter()
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            try:
+                out.fits[c.name] = api.fit_spec(data, c.spec)
+            except BayesziError as err:
+                raise BayesziError(f"{checked.noun} {c.name!r}: {err}") from None
+        out.warnings[c.name] = _show(caught, f"{checked.noun} {c.name!r}", shown)
+        if progress is not None:
+            progress.finish(c.name, time.perf_counter() - t0, out.warnings[c.name])
+    return out
+
+
+def _show(caught: Sequence[warnings.WarningMessage], who: str, shown: set[str]) -> list[str]:
+    """Show caught warnings not shown yet; return the bayeszi ones' texts (each once)."""
+    mine: list[str] = []
+    for w in caught:
+        if issubclass(w.category, (DeprecationWarning, FutureWarning)):
+            continue
+        text = str(w.message)
+        if issubclass(w.category, BayesziWarning):
+            if text in mine:
+                continue
+            mine.append(text)
+            if text not in shown:
+                warnings.warn(f"{who}: {text}", w.category, stacklevel=3)
+        elif text not in shown:  # about the installation, not the candidate: once
+            shown.add(text)
+            warnings.warn(text, w.category, stacklevel=3)
+    return mine
 
 
 def fit_candidates(data: pd.DataFrame, counts: str,
@@ -240,33 +378,16 @@ def fit_candidates(data: pd.DataFrame, counts: str,
     >>> sorted(fits)                                                        # doctest: +SKIP
     ['poisson', 'zinb']
     """
-    from bayeszi.fitting.api import fit_spec
-    from bayeszi.model.validate import check_frame
-
     data = check_frame(data)
     cands = candidate_specs(counts, families, zeros, exposure=exposure, offset=offset,
                             groups=groups, varying=varying, nested=nested,
                             correlated=correlated, priors=priors, draws=draws, tune=tune,
                             chains=chains, cores=cores, target_accept=target_accept, seed=seed,
                             progressbar=False, sampler=sampler)
-    shown = _validate(data, cands)
+    checked = check_candidates(data, cands)
     show = sys.stderr.isatty() if progressbar is None else bool(progressbar)
-    progress = _Progress(len(cands), show)
-    out: dict[str, FittedModel] = {}
-    for c in cands:
-        progress.start(c.name)
-        t0 = time.perf_counter()
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            fitted = fit_spec(data, c.spec)
-        for w in caught:
-            text = str(w.message)
-            if text in shown or not issubclass(w.category, BayesziWarning):
-                continue
-            warnings.warn(f"candidate {c.name!r}: {text}", w.category, stacklevel=2)
-        progress.finish(c.name, time.perf_counter() - t0)
-        out[c.name] = fitted
-    return out
+    return fit_each(data, checked, ProgressDisplay(len(cands), show)).fits
 
 
-__all__ = ["Candidate", "candidate_specs", "fit_candidates"]
+__all__ = ["Candidate", "CandidateFits", "CheckedCandidates", "FitProgress", "ProgressDisplay",
+           "candidate_specs", "check_candidates", "fit_candidates", "fit_each"]

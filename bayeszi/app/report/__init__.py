@@ -2,7 +2,9 @@
 
 - :mod:`bayeszi.app.report.pipeline`: :func:`run_study` (study file to report folder) and
   :func:`report_saved` (saved fits to report folder).
-- :mod:`bayeszi.app.report.sections`: what each section computes and says.
+- :mod:`bayeszi.app.report.context`: what a report is made from, and the answers its sections
+  share (LOO, the comparison, the preferred model), computed once.
+- :mod:`bayeszi.app.report.sections`: the sections in page order, one module each.
 - :mod:`bayeszi.app.report.document` / :mod:`bayeszi.app.report.write`: the page and the files.
 - :mod:`bayeszi.app.report.output`: the output folder, written in full or not at all.
 

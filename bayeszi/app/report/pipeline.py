@@ -15,15 +15,15 @@ from __future__ import annotations
 
 import json
 import os
-import time
-import warnings
 from collections.abc import Callable, Sequence
 from typing import TYPE_CHECKING, Any
 
+from bayeszi.app.report.context import ReportInput
 from bayeszi.app.report.output import OutputFolder
-from bayeszi.app.report.sections import ReportInput, build_document
+from bayeszi.app.report.sections import build_document
 from bayeszi.app.report.write import REPORT_NAME, slug, write_document
 from bayeszi.base.errors import BayesziError
+from bayeszi.fitting.candidates import fit_each
 
 if TYPE_CHECKING:
     from bayeszi.app.study import Study
@@ -37,47 +37,35 @@ def _quiet(_: str) -> None:
     return None
 
 
-def fit_study(study: Study, data: Any, progress: Progress = _quiet
-                   ) -> tuple[dict[str, FittedModel], dict[str, list[str]]]:
-    """Fit every candidate of ``study`` in order; returns the fits and their warnings."""
-    from bayeszi.base.errors import BayesziWarning
-    from bayeszi.fitting import api as bz
+class _StudyProgress:
+    """Progress lines of a study's fits ("[1/3] fitting zinb-reach ...") for :func:`fit_each`."""
 
-    fits: dict[str, FittedModel] = {}
-    notes: dict[str, list[str]] = {}
-    n = len(study.candidates)
-    shown: set[str] = set()
-    for i, cand in enumerate(study.candidates, start=1):
-        s = cand.spec.sampler
-        progress(f"[{i}/{n}] fitting {cand.name} ({cand.spec.family}, {s.chains} chains x "
-                 f"{s.tune} tune + {s.draws} draws) ...")
-        t0 = time.perf_counter()
-        with warnings.catch_warnings(record=True) as seen:
-            warnings.simplefilter("always")
-            try:
-                fits[cand.name] = bz.fit_spec(data, cand.spec)
-            except BayesziError as err:
-                raise BayesziError(f"model {cand.name!r}: {err}") from None
-        msgs, other = [], []
-        for w in seen:
-            if issubclass(w.category, (DeprecationWarning, FutureWarning)):
-                continue
-            text = str(w.message)
-            # bayeszi's own warnings concern the model and go into the report; others
-            # (e.g. about the installation) are shown on the console only
-            into = msgs if issubclass(w.category, BayesziWarning) else other
-            if text not in into:
-                into.append(text)
-        notes[cand.name] = msgs
-        progress(f"[{i}/{n}] {cand.name} done in {time.perf_counter() - t0:.0f} s"
-                 + (f" ({len(msgs)} warning(s))" if msgs else ""))
-        for text in msgs + [t for t in other if t not in shown]:
-            progress(f"      warning: {' '.join(text.split())}")
-        shown.update(other)
-    return fits, notes
+    def __init__(self, study: Study, say: Progress) -> None:
+        self.say = say
+        self.specs = {c.name: c.spec for c in study.candidates}
+        self.position = {c.name: i for i, c in enumerate(study.candidates, start=1)}
+
+    def start(self, name: str) -> None:
+        spec = self.specs[name]
+        s = spec.sampler
+        self.say(f"[{self.position[name]}/{len(self.specs)}] fitting {name} ({spec.family}, "
+                 f"{s.chains} chains x {s.tune} tune + {s.draws} draws) ...")
+
+    def finish(self, name: str, seconds: float, warned: Sequence[str] = ()) -> None:
+        self.say(f"[{self.position[name]}/{len(self.specs)}] {name} done in {seconds:.0f} s"
+                 + (f" ({len(warned)} warning(s))" if warned else ""))
 
 
 def save_fit(fitted: FittedModel, path: str, provenance: dict[str, Any]) -> str:
+    """Save ``fitted`` to ``path`` with ``provenance`` (data hash, command, model name) in it.
+
+    :func:`load_saved` reads the provenance back for the report's footer.
+
+    Example
+    -------
+    >>> save_fit(fitted, "fits/zinb.nc", {"model": "zinb"})        # doctest: +SKIP
+    '/abs/path/fits/zinb.nc'
+    """
     fitted.idata.posterior.attrs[PROVENANCE_ATTR] = json.dumps(provenance)
     try:
         return fitted.save(path)
@@ -95,10 +83,11 @@ def run_study(study: Study, out: str, command: str = "", progress: Progress = _q
     folder = OutputFolder(out)  # fails before any work when out cannot be written
     with folder:
         data = study.load_data()
-        study.check(data)
+        checked = study.check(data)
         progress(f"{study.title}: {len(data)} records from {os.path.basename(study.data_path)}, "
                  f"{len(study.candidates)} candidate model(s)")
-        fits, notes = fit_study(study, data, progress)
+        run = fit_each(data, checked, _StudyProgress(study, progress))
+        fits, notes = run.fits, run.warnings
         provenance: dict[str, Any] = {
             "data_path": study.data_path, "data_sha256": study.data_sha256(),
             "study_path": study.path, "study_sha256": study.study_sha256(),
@@ -177,7 +166,7 @@ def report_saved(paths: Sequence[str], out: str, command: str = "", title: str |
         fits, provenance = load_saved(paths)
         provenance["command"] = command
         first = next(iter(fits.values()))
-        data = first._data  # type: ignore[attr-defined]
+        data = first.data
         seeds = {f.spec.sampler.seed for f in fits.values()}
         inp = ReportInput(
             title=title or f"bayeszi report: {', '.join(fits)}", fits=fits, data=data,

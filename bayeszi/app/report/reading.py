@@ -8,7 +8,8 @@ reminder that these are associations.
 
 Example
 -------
->>> for line in reading_lines(fitted, interval=0.9, unit="trap night"):   # doctest: +SKIP
+>>> table = fitted.coefficients(interval=0.9)                             # doctest: +SKIP
+>>> for line in reading_lines(fitted, table, 0.9, unit="trap night"):    # doctest: +SKIP
 ...     print(line)
 Each one-unit increase in water_temp: the expected crayfish per trap night (the count
 process) is multiplied by 1.08 (90% interval 1.06 to 1.09); higher.
@@ -20,6 +21,7 @@ import re
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
+import pandas as pd
 
 from bayeszi.app.report.document import format_number
 from bayeszi.families import get_family
@@ -50,15 +52,17 @@ def _direction(lo: float, hi: float, up: str, down: str) -> str:
     return "the data do not settle the direction"
 
 
-def reading_lines(f: FittedModel, interval: float = 0.9, unit: str = "record") -> list[str]:
+def reading_lines(f: FittedModel, coefficients: pd.DataFrame, interval: float = 0.9,
+                  unit: str = "record") -> list[str]:
     """Plain-language sentences about fitted model ``f``: one per effect, then the zero share,
     the overdispersion, the group spread and a reminder that associations are not causes.
 
-    ``unit`` names one unit of exposure ("trap night"), used in "per trap night".
+    ``coefficients`` is ``f.coefficients(interval=interval)``; ``unit`` names one unit of
+    exposure ("trap night"), used in "per trap night".
     """
     spec = f.spec
     fam = get_family(spec.family)
-    table = f.coefficients(interval=interval).reset_index()
+    table = coefficients.reset_index()
     lo, hi = f"{100 * (1 - interval) / 2:g}%", f"{100 * (1 + interval) / 2:g}%"
     elo, ehi = f"exp {lo}", f"exp {hi}"
     pc = f"{interval:.0%}"

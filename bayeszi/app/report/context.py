@@ -1,0 +1,200 @@
+"""What a report is made from, and the answers computed once for all its sections.
+
+:class:`ReportInput` is what the caller gives (the fits, the data, the scenarios, where
+everything came from). :func:`build_context` turns it into a :class:`ReportContext`: the
+input plus every answer that more than one section reads, computed once per report: the
+PSIS-LOO estimate of each model, the LOO comparison table, the preferred model (and why),
+each model's coefficient table and sampler problems. Sections read the context and compute
+only what is theirs alone; warnings raised on the way are collected in ``context.warnings``.
+
+Example
+-------
+>>> ctx = build_context(ReportInput(title="t", fits={"zip": m1, "zinb": m2}, data=df))
+...                                                                    # doctest: +SKIP
+>>> ctx.preferred, ctx.comparison.index[0]                             # doctest: +SKIP
+('zinb', 'zinb')
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+import pandas as pd
+
+from bayeszi.answers.comparison import LooEstimate, compare, loo
+
+if TYPE_CHECKING:
+    from bayeszi.app.study import Contrast, Scenario
+    from bayeszi.fitting.fitted import FittedModel
+
+#: Warnings left out of the report because another section already says the same.
+REDUNDANT = ("these answers rest on posterior draws with sampler problems",)
+
+
+@dataclass
+class ReportInput:
+    """Everything a report is made from.
+
+    ``fits`` maps model names to fitted models, in the order the study lists them;
+    ``data`` is the data frame they were fitted to. ``provenance`` holds the reproducibility
+    facts (``data_path``, ``data_sha256``, ``study_path``, ``study_sha256``, ``command``,
+    ``saved_fits``); ``notes`` holds warnings raised while fitting, per model.
+
+    Example
+    -------
+    >>> ReportInput(title="t", fits={"zinb": fitted}, data=df).first is fitted  # doctest: +SKIP
+    True
+    """
+
+    title: str
+    fits: Mapping[str, FittedModel]
+    data: pd.DataFrame
+    summary: str = ""
+    interval: float = 0.9
+    unit: str | None = None
+    seed: int | None = None
+    scenarios: Sequence[Scenario] = ()
+    contrasts: Sequence[Contrast] = ()
+    preferred: str | None = None
+    provenance: dict[str, Any] = field(default_factory=dict)
+    notes: dict[str, list[str]] = field(default_factory=dict)
+
+    @property
+    def first(self) -> FittedModel:
+        """The first fitted model (its spec names the response, exposure and groups)."""
+        return next(iter(self.fits.values()))
+
+
+class WarningLog:
+    """Warnings raised while the report is computed, each once, prefixed with where.
+
+    Example
+    -------
+    >>> log = WarningLog()
+    >>> log.caught("sum", lambda: warnings.warn("odd") or 1)
+    1
+    >>> log.lines
+    ['sum: odd']
+    """
+
+    def __init__(self) -> None:
+        self.lines: list[str] = []
+
+    def caught(self, where: str, fn: Callable[..., Any], *args: Any, **kwargs: Any) -> Any:
+        """Call ``fn(*args, **kwargs)`` recording its warnings (shown in the report)."""
+        with warnings.catch_warnings(record=True) as seen:
+            warnings.simplefilter("always")
+            out = fn(*args, **kwargs)
+        for w in seen:
+            if issubclass(w.category, (DeprecationWarning, FutureWarning)):
+                continue
+            if any(str(w.message).startswith(r) for r in REDUNDANT):
+                continue  # the diagnostics section states the sampler problems once
+            text = f"{where}: {w.message}"
+            if text not in self.lines:
+                self.lines.append(text)
+        return out
+
+
+@dataclass
+class ReportContext:
+    """The report's input and the answers several sections share, each computed once.
+
+    ``loo`` holds each model's PSIS-LOO estimate; ``comparison`` the LOO comparison table
+    (None with one model); ``coefficients`` and ``problems`` each model's coefficient table
+    (at the report's interval) and sampler problems; ``preferred`` the model the reading and
+    the per-model figures are about, and ``preferred_reason`` why.
+
+    Example
+    -------
+    >>> build_context(inp).loo["zinb"].elpd                            # doctest: +SKIP
+    -2403.1
+    """
+
+    inp: ReportInput
+    log: WarningLog
+    loo: dict[str, LooEstimate]
+    comparison: pd.DataFrame | None
+    preferred: str
+    preferred_reason: str
+    coefficients: dict[str, pd.DataFrame]
+    problems: dict[str, list[str]]
+
+    @property
+    def fits(self) -> Mapping[str, FittedModel]:
+        """The fitted models by name, in the study's order."""
+        return self.inp.fits
+
+    @property
+    def warnings(self) -> list[str]:
+        """Warnings raised while the report was computed (shown in the diagnostics section)."""
+        return self.log.lines
+
+    def caught(self, where: str, fn: Callable[..., Any], *args: Any, **kwargs: Any) -> Any:
+        """Call ``fn`` recording its warnings under ``where`` (see :class:`WarningLog`)."""
+        return self.log.caught(where, fn, *args, **kwargs)
+
+
+def plain(frame: pd.DataFrame) -> pd.DataFrame:
+    """A copy without ``attrs`` (arrays in attrs break pandas.concat).
+
+    >>> plain(pd.DataFrame({"a": [1]})).attrs
+    {}
+    """
+    out = frame.copy()
+    out.attrs = {}
+    return out
+
+
+def loo_answers(fits: Mapping[str, FittedModel], log: WarningLog
+                ) -> tuple[dict[str, LooEstimate], pd.DataFrame | None]:
+    """PSIS-LOO of every model, once each, and with two or more models their comparison.
+
+    With several models the estimates' own warnings are left to :func:`compare`, which
+    repeats them for every model it ranks.
+    """
+    if len(fits) < 2:
+        return {n: log.caught("LOO", loo, f, label=n) for n, f in fits.items()}, None
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ests = {n: loo(f, label=n) for n, f in fits.items()}
+    return ests, plain(log.caught("LOO comparison", compare, ests))
+
+
+def choose_preferred(inp: ReportInput, comparison: pd.DataFrame | None) -> tuple[str, str]:
+    """The preferred model and why: the study's choice, else the best by LOO, else the first.
+
+    Example
+    -------
+    >>> choose_preferred(ReportInput("t", {"a": m}, df, preferred="a"), None)  # doctest: +SKIP
+    ('a', 'the study file names it as preferred.')
+    """
+    names = list(inp.fits)
+    if inp.preferred:
+        return inp.preferred, "the study file names it as preferred."
+    if comparison is not None and len(comparison) and str(comparison.index[0]) in inp.fits:
+        best = str(comparison.index[0])
+        return best, "it has the highest expected log predictive density (LOO) of the " \
+                     f"{len(names)} candidates."
+    if len(names) == 1:
+        return names[0], "it is the only model in this report."
+    return names[0], "it is listed first in the study (no LOO comparison was available)."
+
+
+def build_context(inp: ReportInput) -> ReportContext:
+    """Compute the answers several sections share, once each (see :class:`ReportContext`)."""
+    log = WarningLog()
+    ests, comparison = loo_answers(inp.fits, log)
+    preferred, reason = choose_preferred(inp, comparison)
+    return ReportContext(
+        inp=inp, log=log, loo=ests, comparison=comparison, preferred=preferred,
+        preferred_reason=reason,
+        coefficients={n: f.coefficients(interval=inp.interval) for n, f in inp.fits.items()},
+        problems={n: f.sampler_problems() for n, f in inp.fits.items()})
+
+
+__all__ = ["REDUNDANT", "ReportContext", "ReportInput", "WarningLog", "build_context",
+           "choose_preferred", "loo_answers", "plain"]

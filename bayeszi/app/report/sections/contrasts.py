@@ -1,0 +1,78 @@
+"""The contrasts of the predictions section: each scenario row against the same row after the
+change a study's contrast names, draw by draw, per model.
+
+Example
+-------
+>>> type(contrast_blocks(ctx)[0]).__name__                             # doctest: +SKIP
+'Text'
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+import pandas as pd
+
+from bayeszi.answers.contrast import contrast
+from bayeszi.app.report.context import ReportContext, plain
+from bayeszi.app.report.document import Text
+from bayeszi.app.report.sections.common import interval_labels, table_blocks, unit
+
+if TYPE_CHECKING:
+    from bayeszi.app.study import Scenario
+
+
+def scenario_label(scn: Scenario, row: pd.Series) -> str:
+    """The varied settings of one scenario row ("water_temp = 8.0"), or "as given"."""
+    parts = [f"{k} = {row[k]}" for k in scn.vary]
+    return ", ".join(parts) if parts else "as given"
+
+
+def _tables(ctx: ReportContext) -> tuple[list[pd.DataFrame], list[str]]:
+    """Contrast tables per contrast, model and quantity; and the pairs not computed."""
+    inp = ctx.inp
+    tables, skipped = [], []
+    for ct in inp.contrasts:
+        scn = next(s for s in inp.scenarios if s.name == ct.scenario)
+        base = scn.frame(inp.first.spec.exposure)
+        for name, f in ctx.fits.items():
+            used = {c: v for c, v in ct.change.items() if c in f.design.used_columns}
+            if not used:
+                skipped.append(f"{ct.name} for {name} (the model does not use "
+                               f"{', '.join(ct.change)})")
+                continue
+            mode = scn.groups if f.design.groups else "typical"
+            for what in ("mean", "p_zero"):
+                t = ctx.caught(f"contrast '{ct.name}', model {name}", contrast, f,
+                               base, set_to=used, what=what, groups=mode,
+                               interval=inp.interval, seed=inp.seed)
+                t = plain(t).reset_index(drop=True)
+                t.insert(0, "setting", [scenario_label(scn, r) for _, r in base.iterrows()])
+                t.insert(0, "model", name)
+                t.insert(0, "contrast", ct.name)
+                tables.append(t)
+    return tables, skipped
+
+
+def contrast_blocks(ctx: ReportContext) -> list:
+    """The contrasts' introduction, table and the note on contrasts not computed."""
+    tables, skipped = _tables(ctx)
+    blocks: list = [Text(
+        "Contrasts compare each scenario row with the same row after the change the study "
+        "names, draw by draw, with the same group effect in both. 'base' and 'scenario' are "
+        f"posterior means (E[Y] per {unit(ctx.inp)} or P(Y = 0)); the ratio is scenario / base.")]
+    if tables:
+        lo, hi = interval_labels(ctx.inp.interval)
+        blocks += table_blocks("contrasts", pd.concat(tables, ignore_index=True),
+                               "Contrasts (differences with their intervals are in the CSV "
+                               "file)",
+                               columns=["contrast", "model", "setting", "quantity", "base",
+                                        "scenario", "ratio (median)", f"ratio {lo}",
+                                        f"ratio {hi}", "P(ratio > 1)"])
+    if skipped:
+        blocks.append(Text("Not computed (ratio 1 by construction): " + "; ".join(skipped)
+                           + ".", "note"))
+    return blocks
+
+
+__all__ = ["contrast_blocks", "scenario_label"]

@@ -1,0 +1,38 @@
+"""The rootograms section: observed against expected frequency of each count, per model.
+
+Example
+-------
+>>> section_rootograms(ctx).blocks[1].name                             # doctest: +SKIP
+'count_frequencies_zinb'
+"""
+
+from __future__ import annotations
+
+from bayeszi.answers.checks import count_frequencies
+from bayeszi.app.report.context import ReportContext, plain
+from bayeszi.app.report.document import Figure, Section, Text
+from bayeszi.app.report.sections.common import interval_labels, table_blocks
+from bayeszi.plots.checkplots import rootogram_figure
+
+INTRO = ("A hanging rootogram (Tukey) hangs the observed frequency of each count from the "
+         "model's expected frequency, both on a square-root scale: bars ending above zero "
+         "mean fewer records with that count than expected, below zero more.")
+
+
+def section_rootograms(ctx: ReportContext) -> Section:
+    """Observed against expected frequency of each count (hanging rootograms)."""
+    lo, hi = interval_labels(ctx.inp.interval)
+    blocks: list = [Text(INTRO)]
+    for name, f in ctx.fits.items():
+        raw = ctx.caught(f"rootogram of {name}", count_frequencies, f,
+                         interval=ctx.inp.interval)
+        blocks += table_blocks(f"count_frequencies_{name}", plain(raw),
+                               f"Model {name}: observed and expected number of records per "
+                               "count", index=True, columns=["count", "observed", "expected",
+                                                             lo, hi])
+        blocks.append(Figure(f"rootogram_{name}", rootogram_figure(raw),
+                             f"Model {name}: hanging rootogram."))
+    return Section("rootograms", "Rootograms", blocks)
+
+
+__all__ = ["section_rootograms"]
