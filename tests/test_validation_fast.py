@@ -35,7 +35,7 @@ def _data(family: str, n: int = 90, n_groups: int = 6, seed: int = 4):
 @pytest.mark.parametrize("family", ["poisson", "zinb", "hurdle-negbin"])
 def test_fit_prior_is_the_simulation_prior(family):
     """SBC is exact only if bayeszi fits under the prior the truth was drawn from. bayeszi's
-    convention (bayeszi/priors.py): a slope prior is per unit of the input and is carried to
+    convention (bayeszi/model/priors.py): a slope prior is per unit of the input and is carried to
     the internal scale by the input's scale; an intercept prior applies to the centred
     intercept, the predictor's centre being the input's mean in the fitted data."""
     df, truth = _data(family)

@@ -7,7 +7,7 @@ observed rate and zero share), so here every prior is given explicitly through
 ``bayeszi.fit(priors=...)``; :class:`SimPrior` holds them and :func:`draw_truth` draws from
 the same distributions.
 
-Two facts about bayeszi's prior conventions matter (see bayeszi/priors.py):
+Two facts about bayeszi's prior conventions matter (see bayeszi/model/priors.py):
 
 - a slope prior is per unit of the predictor as written in the formula (bayeszi carries it to
   its internal scale exactly);
