@@ -483,7 +483,7 @@ def _observed_statistics(y: np.ndarray) -> dict[str, float]:
             "maximum": float(y.max())}
 
 
-def _statistic_rows(reps: pd.DataFrame, names: Sequence[str], interval: float,
+def _statistic_rows(reps: pd.DataFrame, statistics: Sequence[str], interval: float,
                     flag: float) -> pd.DataFrame:
     iv = options.interval_bounds(interval)
     lo_name, hi_name = iv.names
@@ -499,7 +499,7 @@ def _statistic_rows(reps: pd.DataFrame, names: Sequence[str], interval: float,
         "zero share": ("more zeros than the model predicts", "fewer zeros than the model predicts"),
     }
     rows = []
-    for name in names:
+    for name in statistics:
         vals = reps[name].to_numpy(dtype=np.float64)
         finite = vals[np.isfinite(vals)]
         obs = observed[name]

@@ -64,9 +64,9 @@ def _check_args(fitted: FitRecord, interval: float, part: str | None,
     if part is not None and part not in parts:
         raise BayesziError(f"part must be one of {parts} for family {fitted.spec.family!r} "
                            f"(or None for all), got {part!r}")
-    names = [g.name for g in fitted.design.groups]
-    if group is not None and group not in names:
-        raise BayesziError(f"group must be one of the grouping columns {names} (or None for "
+    columns = [g.name for g in fitted.design.groups]
+    if group is not None and group not in columns:
+        raise BayesziError(f"group must be one of the grouping columns {columns} (or None for "
                            f"all), got {group!r}")
     parts = [part] if part is not None else parts
     groups = [g for g in fitted.design.groups if group is None or g.name == group]

@@ -189,10 +189,10 @@ def quantity_label(fitted: FitRecord, what: str, k: int | None = None) -> str:
 
 def groups_label(fitted: FitRecord, mode: str, n_average: int) -> str:
     """How group effects entered, as shown in the ``groups`` column."""
-    names = [g.name for g in fitted.design.groups]
-    if not names:
+    columns = [g.name for g in fitted.design.groups]
+    if not columns:
         return "no groups in model"
-    s = ", ".join(names)
+    s = ", ".join(columns)
     return {"known": f"known {s}", "new": f"new {s}",
             "average": f"average over {s} ({n_average} draws each)",
             "typical": f"typical {s} (effect 0)"}[mode]
