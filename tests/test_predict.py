@@ -45,8 +45,9 @@ GEARS = ["a", "b", "c"]
 
 # ================================================================= hand-built fitted models
 def _clean_diag(n: int, divergences: int = 0) -> Diagnostics:
+    """Diagnostics without problems (two chains: one chain is a problem of its own)."""
     return Diagnostics(table=pd.DataFrame(columns=["r_hat", "ess_bulk", "ess_tail"]),
-                       divergences=divergences, draws=n, chains=1)
+                       divergences=divergences, draws=n, chains=2)
 
 
 def hand_fit(family: str, n_draws: int = 20, seed: int = 5, site_sd: float | None = None,
@@ -249,9 +250,7 @@ def test_unseen_factor_level_names_known_levels():
 
 def test_sampler_problems_are_warned_and_kept():
     m, _ = hand_fit("poisson")
-    # two chains, so that the divergences are the only problem (and the one warned about)
-    m = dataclasses.replace(m, sampling=dataclasses.replace(_clean_diag(20, divergences=3),
-                                                            chains=2))
+    m = dataclasses.replace(m, sampling=_clean_diag(20, divergences=3))
     with pytest.warns(bz.BayesziWarning, match="3 divergent"):
         table = m.predict(m.data.head(2))
     assert "3 divergent" in table.attrs["sampler_problems"][0]
