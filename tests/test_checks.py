@@ -369,13 +369,15 @@ def test_bad_settings_get_clear_errors(zip_zip):
         zip_zip.zero_check(by=pd.Series(["a", "b"], name="g"))
     with pytest.raises(bz.BayesziError, match="kmax"):
         zip_zip.count_frequencies(kmax=-1)
-    with pytest.raises(bz.BayesziError, match="interval"):
+    with pytest.raises(bz.BayesziError, match="interval must lie strictly between 0 and 1"):
         zip_zip.count_frequencies(interval=1.5)
-    with pytest.raises(bz.BayesziError, match="draws"):
+    with pytest.raises(bz.BayesziError, match="draws must be a whole number >= 1 or None"):
         zip_zip.dispersion_check(draws=0)
+    with pytest.raises(bz.BayesziError, match="draws=801 but the fit holds 800"):
+        zip_zip.zero_check(draws=801)        # more than the fit holds: refused, not "all"
     with pytest.raises(bz.BayesziError, match="method"):
         zip_zip.residuals(method="pearson")
-    with pytest.raises(bz.BayesziError, match="seed"):
+    with pytest.raises(bz.BayesziError, match="seed must be a whole number >= 0"):
         zip_zip.max_count_check(seed="abc")
     with pytest.raises(bz.BayesziError, match="flag"):
         checks.zero_check(zip_zip, flag=0.7)

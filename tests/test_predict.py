@@ -29,6 +29,7 @@ from simulate import simulate
 import bayeszi as bz
 import bayeszi.answers.predict
 from bayeszi.answers.predict import plan_chunks
+from bayeszi.base import options
 from bayeszi.engine.fit import add_user_scale
 from bayeszi.families import get_family
 from bayeszi.fitting.fitted import FittedModel
@@ -44,8 +45,9 @@ GEARS = ["a", "b", "c"]
 
 # ================================================================= hand-built fitted models
 def _clean_diag(n: int, divergences: int = 0) -> Diagnostics:
+    """Diagnostics without problems (two chains: one chain is a problem of its own)."""
     return Diagnostics(table=pd.DataFrame(columns=["r_hat", "ess_bulk", "ess_tail"]),
-                       divergences=divergences, draws=n, chains=1)
+                       divergences=divergences, draws=n, chains=2)
 
 
 def hand_fit(family: str, n_draws: int = 20, seed: int = 5, site_sd: float | None = None,
@@ -498,3 +500,68 @@ def test_plain_families_have_no_zeros_part_probability():
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         m.predict(m.data.head(2), what="p_zero")
+
+
+# ================================================================= one wording per option
+#: every answer method of a fitted model, with the shared options it takes
+ANSWERS = {
+    "coefficients": (lambda m, **kw: m.coefficients(**kw), ("interval",)),
+    "group_effects": (lambda m, **kw: m.group_effects(**kw), ("interval",)),
+    "zero_check": (lambda m, **kw: m.zero_check(**kw), ("interval", "draws", "seed")),
+    "count_frequencies": (lambda m, **kw: m.count_frequencies(**kw), ("interval", "draws")),
+    "dispersion_check": (lambda m, **kw: m.dispersion_check(**kw),
+                         ("interval", "draws", "seed")),
+    "max_count_check": (lambda m, **kw: m.max_count_check(**kw),
+                        ("interval", "draws", "seed")),
+    "residuals": (lambda m, **kw: m.residuals(**kw), ("draws", "seed")),
+    "zero_sources": (lambda m, **kw: m.zero_sources(**kw), ("interval", "draws")),
+    "predict": (lambda m, **kw: m.predict(m.data.head(3), **kw),
+                ("interval", "draws", "seed", "groups")),
+    "prediction_draws": (lambda m, **kw: m.prediction_draws(m.data.head(3), **kw),
+                         ("draws", "seed", "groups")),
+    "count_distribution": (lambda m, **kw: m.count_distribution(m.data.head(3), **kw),
+                           ("draws", "seed", "groups")),
+    "contrast": (lambda m, **kw: m.contrast(shift={"x1": 0.5}, **kw),
+                 ("interval", "draws", "seed", "groups")),
+    "average_comparison": (lambda m, **kw: m.average_comparison("x1", **kw),
+                           ("interval", "draws", "seed", "groups")),
+}
+BAD = {"interval": 1.5, "draws": 10**9, "seed": -1, "groups": "fresh"}
+
+
+def _message(check, *args) -> str:
+    with pytest.raises(bz.BayesziError) as err:
+        check(*args)
+    return str(err.value)
+
+
+@pytest.mark.parametrize("option", list(BAD))
+def test_every_answer_words_a_bad_option_the_same_way(option):
+    m, _ = hand_fit("zinb")
+    expected = {"interval": lambda: _message(options.interval_bounds, BAD["interval"]),
+                "draws": lambda: _message(options.draw_subset, BAD["draws"], m.n_draws),
+                "seed": lambda: _message(options.rng, BAD["seed"]),
+                "groups": lambda: _message(options.check_group_mode, BAD["groups"])}[option]()
+    if option == "draws":   # more than the fit holds is an error, never "all of them"
+        assert "the fit holds 20 posterior draws" in expected
+    asked = [name for name, (_, takes) in ANSWERS.items() if option in takes]
+    assert len(asked) >= 5
+    for name in asked:
+        call = ANSWERS[name][0]
+        with pytest.raises(bz.BayesziError) as err:
+            call(m, **{option: BAD[option]})
+        assert str(err.value) == expected, name
+
+
+def test_a_generator_seed_is_used_as_it_is():
+    m, _ = hand_fit("zinb")
+    rows = m.data.head(4)
+    by_int = m.prediction_draws(rows, what="new_count", groups="new", seed=7)
+    by_gen = m.prediction_draws(rows, what="new_count", groups="new",
+                                seed=np.random.default_rng(7))
+    np.testing.assert_array_equal(by_int.values, by_gen.values)
+    gen = np.random.default_rng(7)
+    first = m.residuals(seed=gen)["PIT"].to_numpy()
+    second = m.residuals(seed=gen)["PIT"].to_numpy()   # the generator has moved on
+    assert not np.array_equal(first, second)
+    np.testing.assert_array_equal(first, m.residuals(seed=7)["PIT"].to_numpy())

@@ -36,6 +36,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from bayeszi.base import names, options
 from bayeszi.base.errors import BayesziError, BayesziWarning
 from bayeszi.engine.draws import LinearPredictors, fitted_rows, linear_predictors, n_draws
 from bayeszi.engine.record import FitRecord
@@ -88,47 +89,21 @@ def model_label(family: str) -> str:
     >>> model_label("zip")
     'zip: zeros part models P(extra zero); counts part models the Poisson mean'
     """
-    fam = get_family(family)
-    law = "negative binomial" if fam.has_dispersion else "Poisson"
-    if fam.zeros_kind == "inflation":
-        return f"{family}: zeros part models P(extra zero); counts part models the {law} mean"
-    if fam.zeros_kind == "hurdle":
-        return (f"{family}: zeros part models P(Y = 0); counts part models the "
-                f"zero-truncated {law} for Y > 0")
-    return f"{family}: counts part only ({law} mean), no zeros part"
-
-
-def _interval(interval: float) -> tuple[float, float, str, str]:
-    """(lower q, upper q, lower name, upper name) of a central interval."""
-    if not isinstance(interval, (int, float)) or not 0 < interval < 1:
-        raise BayesziError(f"interval must lie in (0, 1), got {interval!r}; e.g. interval=0.9")
-    lo, hi = (1 - interval) / 2, 1 - (1 - interval) / 2
-    return lo, hi, f"{100 * lo:g}%", f"{100 * hi:g}%"
+    law = "negative binomial" if get_family(family).has_dispersion else "Poisson"
+    kind = names.zero_mechanism(family)
+    if kind is None:
+        return f"{family}: counts part only ({law} mean), no zeros part"
+    counts = f"the {law} mean" if kind == "inflation" else f"the zero-truncated {law} for Y > 0"
+    return f"{family}: zeros part models {names.zeros_label(family)}; counts part models {counts}"
 
 
 def _draw_index(fitted: FitRecord, draws: int | None) -> np.ndarray | None:
-    """Evenly spaced subset of ``draws`` posterior draws (None: all of them)."""
-    total = n_draws(fitted)
-    if draws is None:
-        return None
-    if isinstance(draws, bool) or not isinstance(draws, (int, np.integer)) or draws < 1:
-        raise BayesziError(f"draws must be a positive whole number or None, got {draws!r}")
-    if draws >= total:
-        return None
-    return np.unique(np.linspace(0, total - 1, int(draws)).round().astype(np.int64))
+    """The draws used (:func:`bayeszi.base.options.draw_subset`; None: all of them)."""
+    return options.draw_subset(draws, n_draws(fitted))
 
 
 def _n_used(fitted: FitRecord, index: np.ndarray | None) -> int:
     return n_draws(fitted) if index is None else len(index)
-
-
-def _rng(seed: int | np.random.Generator | None) -> np.random.Generator:
-    try:
-        return np.random.default_rng(seed)
-    except (TypeError, ValueError) as err:
-        raise BayesziError(
-            f"seed must be a whole number, a numpy Generator or None, got {seed!r}"
-        ) from err
 
 
 def _chunks(n_rows: int, n_draws_used: int, per_row: int,
@@ -385,14 +360,15 @@ def count_frequencies(fitted: FitRecord, kmax: int | None = None, interval: floa
     >>> tab = count_frequencies(m)                               # doctest: +SKIP
     >>> tab.loc["0", ["observed", "expected"]]                   # doctest: +SKIP
     """
-    lo_q, hi_q, lo_name, hi_name = _interval(interval)
+    iv = options.interval_bounds(interval)
+    lo_name, hi_name = iv.names
     freq = expected_frequency_draws(fitted, kmax, draws)
     K = freq.shape[1] - 2
     y = fitted.design.y
     observed = np.bincount(np.minimum(y, K + 1), minlength=K + 2)[: K + 2]
     vals = freq.to_numpy()
     expected = vals.mean(axis=0)
-    lo, hi = np.quantile(vals, [lo_q, hi_q], axis=0)
+    lo, hi = np.quantile(vals, [iv.lower, iv.upper], axis=0)
     table = pd.DataFrame({
         "k": np.arange(K + 2),
         "observed": observed.astype(np.int64),
@@ -426,12 +402,12 @@ class _Replicates:
     expected_zeros_by: dict[str, np.ndarray]  # (S, levels)
 
 
-def _replicate(fitted: FitRecord, draws: int | None, seed: int | np.random.Generator | None,
+def _replicate(fitted: FitRecord, draws: int | None, seed: options.Seed,
                groupings: Sequence[_Grouping] = (), *,
                max_floats: int = MAX_FLOATS) -> _Replicates:
     """One replicated data set per posterior draw (``family.random``), reduced to statistics."""
     fam = _family(fitted)
-    rng = _rng(seed)
+    rng = options.rng(seed)
     index = _draw_index(fitted, draws)
     S = _n_used(fitted, index)
     rows = fitted_rows(fitted)
@@ -470,7 +446,7 @@ def _variance(total: np.ndarray, sumsq: np.ndarray, n: int) -> np.ndarray:
 
 
 def replicated_statistics(fitted: FitRecord, draws: int | None = None,
-                          seed: int | np.random.Generator | None = 0) -> pd.DataFrame:
+                          seed: options.Seed = 0) -> pd.DataFrame:
     """Summary statistics of one replicated data set per posterior draw.
 
     Each row is a data set drawn from the model (``family.random``) at one posterior draw,
@@ -507,9 +483,10 @@ def _observed_statistics(y: np.ndarray) -> dict[str, float]:
             "maximum": float(y.max())}
 
 
-def _statistic_rows(reps: pd.DataFrame, names: Sequence[str], interval: float,
+def _statistic_rows(reps: pd.DataFrame, statistics: Sequence[str], interval: float,
                     flag: float) -> pd.DataFrame:
-    lo_q, hi_q, lo_name, hi_name = _interval(interval)
+    iv = options.interval_bounds(interval)
+    lo_name, hi_name = iv.names
     observed = reps.attrs["observed"]
     wording = {
         "mean": ("observed mean higher than the model predicts",
@@ -522,14 +499,14 @@ def _statistic_rows(reps: pd.DataFrame, names: Sequence[str], interval: float,
         "zero share": ("more zeros than the model predicts", "fewer zeros than the model predicts"),
     }
     rows = []
-    for name in names:
+    for name in statistics:
         vals = reps[name].to_numpy(dtype=np.float64)
         finite = vals[np.isfinite(vals)]
         obs = observed[name]
         if finite.size == 0 or not np.isfinite(obs):
             lo = hi = mean = tail = float("nan")
         else:
-            lo, hi = np.quantile(finite, [lo_q, hi_q])
+            lo, hi = np.quantile(finite, [iv.lower, iv.upper])
             mean = float(finite.mean())
             tail = _tail_prob(finite, obs)
         rows.append({"statistic": name, "observed": obs, "replicated mean": mean,
@@ -542,7 +519,7 @@ def _statistic_rows(reps: pd.DataFrame, names: Sequence[str], interval: float,
 
 
 def dispersion_check(fitted: FitRecord, interval: float = 0.9, draws: int | None = None,
-                     seed: int | np.random.Generator | None = 0,
+                     seed: options.Seed = 0,
                      flag: float = FLAG) -> pd.DataFrame:
     """Mean, variance and variance-to-mean ratio of the data against replicated data sets.
 
@@ -556,13 +533,13 @@ def dispersion_check(fitted: FitRecord, interval: float = 0.9, draws: int | None
     >>> dispersion_check(m).loc["variance / mean", "tail prob"]    # doctest: +SKIP
     """
     flag = _check_flag(flag)
-    _interval(interval)
+    options.interval_bounds(interval)
     reps = replicated_statistics(fitted, draws, seed)
     return _statistic_rows(reps, ["mean", "variance", "variance / mean"], interval, flag)
 
 
 def max_count_check(fitted: FitRecord, interval: float = 0.9, draws: int | None = None,
-                    seed: int | np.random.Generator | None = 0,
+                    seed: options.Seed = 0,
                     flag: float = FLAG) -> pd.DataFrame:
     """Largest observed count against the largest count of replicated data sets.
 
@@ -575,14 +552,14 @@ def max_count_check(fitted: FitRecord, interval: float = 0.9, draws: int | None 
     >>> max_count_check(m)                                         # doctest: +SKIP
     """
     flag = _check_flag(flag)
-    _interval(interval)
+    options.interval_bounds(interval)
     reps = replicated_statistics(fitted, draws, seed)
     return _statistic_rows(reps, ["maximum"], interval, flag)
 
 
 def zero_check(fitted: FitRecord, by: ByArg = None,
                interval: float = 0.9, draws: int | None = None,
-               seed: int | np.random.Generator | None = 0, flag: float = FLAG
+               seed: options.Seed = 0, flag: float = FLAG
                ) -> pd.DataFrame:
     """Observed share of zeros against the model, overall and per level of ``by``.
 
@@ -606,31 +583,18 @@ def zero_check(fitted: FitRecord, by: ByArg = None,
     >>> tab[tab["verdict"].str.startswith("more")]               # doctest: +SKIP
     """
     flag = _check_flag(flag)
-    lo_q, hi_q, lo_name, hi_name = _interval(interval)
+    iv = options.interval_bounds(interval)
     groupings = _groupings(fitted, by)
     rep = _replicate(fitted, draws, seed, groupings)
     y = fitted.design.y
     is_zero = y == 0
-
-    def row(group: str, level: str, records: int, observed: int, reps: np.ndarray,
-            expected: np.ndarray) -> dict:
-        share = reps / records
-        lo, hi = np.quantile(share, [lo_q, hi_q])
-        tail = _tail_prob(reps, observed)
-        return {"group": group, "level": level, "records": records,
-                "observed zeros": observed, "observed share": observed / records,
-                "expected share": float(np.mean(expected) / records),
-                f"replicated {lo_name}": lo, f"replicated {hi_name}": hi, "tail prob": tail,
-                "verdict": _verdict(tail, flag, "more zeros than the model predicts",
-                                    "fewer zeros than the model predicts")}
-
-    rows = [row("all records", "", int(y.size), int(is_zero.sum()), rep.zeros,
-                rep.expected_zeros)]
+    rows = [_zero_row(iv, flag, "all records", "", int(y.size), int(is_zero.sum()), rep.zeros,
+                      rep.expected_zeros)]
     for g in groupings:
         records = np.bincount(g.codes, minlength=len(g.levels))
         obs = np.bincount(g.codes, weights=is_zero, minlength=len(g.levels)).astype(np.int64)
-        block = [row(g.name, lv, int(records[j]), int(obs[j]), rep.zeros_by[g.name][:, j],
-                     rep.expected_zeros_by[g.name][:, j])
+        block = [_zero_row(iv, flag, g.name, lv, int(records[j]), int(obs[j]),
+                           rep.zeros_by[g.name][:, j], rep.expected_zeros_by[g.name][:, j])
                  for j, lv in enumerate(g.levels) if records[j] > 0]
         block.sort(key=lambda r: (r["tail prob"], r["level"]))
         rows.extend(block)
@@ -640,6 +604,20 @@ def zero_check(fitted: FitRecord, by: ByArg = None,
                        replicated_share=tuple((rep.zeros / y.size).tolist()),
                        draws=int(rep.zeros.size), seed=seed)
     return table
+
+
+def _zero_row(iv: options.Interval, flag: float, group: str, level: str, records: int,
+              observed: int, reps: np.ndarray, expected: np.ndarray) -> dict:
+    """One row of :func:`zero_check`: a set of records, its zeros and their replicates."""
+    lo_name, hi_name = iv.names
+    lo, hi = np.quantile(reps / records, [iv.lower, iv.upper])
+    tail = _tail_prob(reps, observed)
+    return {"group": group, "level": level, "records": records,
+            "observed zeros": observed, "observed share": observed / records,
+            "expected share": float(np.mean(expected) / records),
+            f"replicated {lo_name}": lo, f"replicated {hi_name}": hi, "tail prob": tail,
+            "verdict": _verdict(tail, flag, "more zeros than the model predicts",
+                                "fewer zeros than the model predicts")}
 
 
 # =============================================================================================
@@ -661,7 +639,7 @@ def _relative_efficiency(fitted: FitRecord) -> float:
 
 
 def residuals(fitted: FitRecord, method: str = "posterior",
-              seed: int | np.random.Generator | None = 0,
+              seed: options.Seed = 0,
               draws: int | None = None) -> pd.DataFrame:
     """Randomized quantile residuals (Dunn & Smyth 1996) of the fitted records.
 
@@ -691,17 +669,40 @@ def residuals(fitted: FitRecord, method: str = "posterior",
     """
     if method not in RESIDUAL_METHODS:
         raise BayesziError(f"method must be one of {RESIDUAL_METHODS}, got {method!r}")
-    rng = _rng(seed)
-    fam = _family(fitted)
+    rng = options.rng(seed)
     index = _draw_index(fitted, draws)
+    cdf = _predictive_cdf(fitted, method, index)
+    y = fitted.design.y
+    pit, f_low, f_high, resid = _randomize(cdf.s_low, cdf.s_high, rng)
+    table = pd.DataFrame({"y": y, "expected count": cdf.mean, "PIT low": f_low,
+                          "PIT high": f_high, "PIT": pit, "residual": resid},
+                         index=fitted.design.index)
+    if method == "loo":
+        table["pareto k"] = cdf.pareto_k
+        _warn_pareto(fitted, cdf.pareto_k)
+    table.attrs.update(method=method, family=fitted.spec.family, seed=seed,
+                       draws=_n_used(fitted, index))
+    return table
+
+
+@dataclass
+class _PredictiveCdf:
+    """Per record: P(Y >= y + 1), P(Y >= y), the mean E[Y] and (LOO only) Pareto k."""
+
+    s_low: np.ndarray
+    s_high: np.ndarray
+    mean: np.ndarray
+    pareto_k: np.ndarray
+
+
+def _predictive_cdf(fitted: FitRecord, method: str, index: np.ndarray | None) -> _PredictiveCdf:
+    """The posterior (or leave-one-out) predictive CDF at each record's y and y - 1."""
+    fam = _family(fitted)
     S = _n_used(fitted, index)
     rows = fitted_rows(fitted)
     y = fitted.design.y
     n = rows.n
-    s_low = np.empty(n)    # P(Y >= y + 1) = 1 - F(y)
-    s_high = np.empty(n)   # P(Y >= y)     = 1 - F(y - 1)
-    mean = np.empty(n)
-    pareto_k = np.full(n, np.nan)
+    out = _PredictiveCdf(np.empty(n), np.empty(n), np.empty(n), np.full(n, np.nan))
     reff = _relative_efficiency(fitted) if method == "loo" else 1.0
     for sl in _chunks(n, S, 8):
         lp = _predictors(fitted, rows, sl, index)
@@ -714,23 +715,33 @@ def residuals(fitted: FitRecord, method: str = "posterior",
         sf_hi = sf_lo + np.exp(loglik)
         mu = np.broadcast_to(fam.mean(lp.counts, lp.zeros, lp.log_alpha), shape)
         if method == "posterior":
-            s_high[sl] = sf_hi.mean(axis=0)
-            s_low[sl] = sf_lo.mean(axis=0)
-            mean[sl] = mu.mean(axis=0)
+            out.s_high[sl] = sf_hi.mean(axis=0)
+            out.s_low[sl] = sf_lo.mean(axis=0)
+            out.mean[sl] = mu.mean(axis=0)
         else:
-            import arviz as az
+            w, out.pareto_k[sl] = _loo_weights(loglik, reff)  # (rows, S), rows sum to 1
+            out.s_high[sl] = np.einsum("rs,sr->r", w, sf_hi)
+            out.s_low[sl] = np.einsum("rs,sr->r", w, sf_lo)
+            out.mean[sl] = np.einsum("rs,sr->r", w, mu)
+    return out
 
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore")
-                lw, k = az.psislw(-loglik.T, reff)
-            w = np.exp(lw)  # (rows, S), each row sums to 1
-            s_high[sl] = np.einsum("rs,sr->r", w, sf_hi)
-            s_low[sl] = np.einsum("rs,sr->r", w, sf_lo)
-            mean[sl] = np.einsum("rs,sr->r", w, mu)
-            pareto_k[sl] = np.asarray(k)
+
+def _loo_weights(loglik: np.ndarray, reff: float) -> tuple[np.ndarray, np.ndarray]:
+    """Pareto-smoothed leave-one-out weights (rows, draws) and Pareto k per row."""
+    import arviz as az
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        lw, k = az.psislw(-loglik.T, reff)
+    return np.exp(lw), np.asarray(k)
+
+
+def _randomize(s_low: np.ndarray, s_high: np.ndarray, rng: np.random.Generator
+               ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """(PIT, F(y - 1), F(y), residual) from the survival probabilities, one uniform each."""
     s_high = np.clip(s_high, 0.0, 1.0)
     s_low = np.clip(np.minimum(s_low, s_high), 0.0, 1.0)
-    u01 = rng.random(n)
+    u01 = rng.random(s_high.size)
     v = s_low + u01 * (s_high - s_low)         # 1 - u, accurate when u is near 1
     f_low = 1.0 - s_high
     f_high = 1.0 - s_low
@@ -739,21 +750,19 @@ def residuals(fitted: FitRecord, method: str = "posterior",
     resid = np.where(upper_tail, stats.norm.isf(np.maximum(v, 1e-300)),
                      stats.norm.ppf(np.maximum(u, _U_FLOOR)))
     pit = np.clip(np.where(upper_tail, 1.0 - v, u), f_low, f_high)
-    table = pd.DataFrame({"y": y, "expected count": mean, "PIT low": f_low, "PIT high": f_high,
-                          "PIT": pit, "residual": resid}, index=fitted.design.index)
-    if method == "loo":
-        table["pareto k"] = pareto_k
-        bad = np.flatnonzero(pareto_k > PARETO_K_LIMIT)
-        if bad.size:
-            shown = ", ".join(str(fitted.design.index[i]) for i in bad[:8])
-            more = f" and {bad.size - 8} more" if bad.size > 8 else ""
-            warnings.warn(
-                f"leave-one-out residuals: {bad.size} record(s) have Pareto k above "
-                f"{PARETO_K_LIMIT} (rows {shown}{more}); their LOO-PIT values are unreliable. "
-                "Look at these records, or use method='posterior'",
-                BayesziWarning, stacklevel=2)
-    table.attrs.update(method=method, family=fitted.spec.family, seed=seed, draws=S)
-    return table
+    return pit, f_low, f_high, resid
+
+
+def _warn_pareto(fitted: FitRecord, pareto_k: np.ndarray) -> None:
+    bad = np.flatnonzero(pareto_k > PARETO_K_LIMIT)
+    if bad.size:
+        shown = ", ".join(str(fitted.design.index[i]) for i in bad[:8])
+        more = f" and {bad.size - 8} more" if bad.size > 8 else ""
+        warnings.warn(
+            f"leave-one-out residuals: {bad.size} record(s) have Pareto k above "
+            f"{PARETO_K_LIMIT} (rows {shown}{more}); their LOO-PIT values are unreliable. "
+            "Look at these records, or use method='posterior'",
+            BayesziWarning, stacklevel=3)
 
 
 # =============================================================================================
@@ -766,11 +775,10 @@ _SOURCE_COLUMN = "P(zero from zeros part)"
 def _source_note(fam: Family) -> str:
     if fam.zeros_kind == "inflation":
         return ("zero-inflated: probability that this zero is an extra zero (zeros part, "
-                "P(extra zero)) rather than a count-process zero")
+                f"{names.zeros_label(fam.name)}) rather than a count-process zero")
     if fam.zeros_kind == "hurdle":
-        return ("hurdle: every zero comes from the zeros part, which models P(Y = 0) "
-                "directly; the counts part only describes Y > 0")
-    return "no zeros part: every zero comes from the count process"
+        return f"hurdle: {names.zeros_origin(fam.name)}; the counts part only describes Y > 0"
+    return f"no zeros part: {names.zeros_origin(fam.name)}"
 
 
 def zero_sources(fitted: FitRecord, by: ByArg = None,
@@ -793,61 +801,87 @@ def zero_sources(fitted: FitRecord, by: ByArg = None,
     -------
     >>> zero_sources(m, by="site").head()                          # doctest: +SKIP
     """
-    lo_q, hi_q, lo_name, hi_name = _interval(interval)
-    fam = _family(fitted)
-    note = _source_note(fam)
-    y = fitted.design.y
-    zero_rows = np.flatnonzero(y == 0)
+    iv = options.interval_bounds(interval)
+    note = _source_note(_family(fitted))
+    zero_rows = np.flatnonzero(fitted.design.y == 0)
     index = _draw_index(fitted, draws)
-    S = _n_used(fitted, index)
     groupings = _groupings(fitted, by) if by is not None else []
-    rows = fitted_rows(fitted)
-    nz = zero_rows.size
-    mean = np.zeros(nz)
-    lo = np.zeros(nz)
-    hi = np.zeros(nz)
-    sums = {g.name: np.zeros((S, len(g.levels))) for g in groupings}
-    if fam.zeros_kind is None or fam.zeros_kind == "hurdle":
-        value = 1.0 if fam.zeros_kind == "hurdle" else 0.0
-        mean[:], lo[:], hi[:] = value, value, value
-        for g in groupings:
-            counts = np.bincount(g.codes[zero_rows], minlength=len(g.levels))
-            sums[g.name][:] = value * counts
-    else:
-        for sl in _chunks(nz, S, 6):
-            pick = zero_rows[sl]
-            lp = _predictors(fitted, rows, pick, index)
-            prob = fam.prob_extra_zero_given_zero(lp.counts, lp.zeros, lp.log_alpha)
-            prob = np.broadcast_to(prob, (S, pick.size))
-            mean[sl] = prob.mean(axis=0)
-            lo[sl], hi[sl] = np.quantile(prob, [lo_q, hi_q], axis=0)
-            for g in groupings:
-                codes = g.codes[pick]
-                onehot = np.zeros((pick.size, len(g.levels)))
-                onehot[np.arange(pick.size), codes] = 1.0
-                sums[g.name] += prob @ onehot
+    src = _zero_source_draws(fitted, zero_rows, index, groupings, iv)
     if by is None or (isinstance(by, (list, tuple)) and len(by) == 0):
-        table = pd.DataFrame({_SOURCE_COLUMN: mean, lo_name: lo, hi_name: hi},
-                             index=fitted.design.index[zero_rows])
-        for g in fitted.design.groups:
-            table.insert(0, g.name, [g.levels[c] for c in g.codes[zero_rows]])
-        table["note"] = note
+        table = _sources_per_zero(fitted, zero_rows, src, iv, note)
     else:
-        out = []
-        for g in groupings:
-            records = np.bincount(g.codes, minlength=len(g.levels))
-            zeros = np.bincount(g.codes[zero_rows], minlength=len(g.levels))
-            s = sums[g.name]
-            qlo, qhi = np.quantile(s, [lo_q, hi_q], axis=0)
-            for j, lv in enumerate(g.levels):
-                if records[j] == 0:
-                    continue
-                exp_extra = float(s[:, j].mean())
-                out.append({"group": g.name, "level": lv, "records": int(records[j]),
-                            "observed zeros": int(zeros[j]), "expected extra zeros": exp_extra,
-                            lo_name: float(qlo[j]), hi_name: float(qhi[j]),
-                            "share extra": exp_extra / zeros[j] if zeros[j] else float("nan"),
-                            "note": note})
-        table = pd.DataFrame(out)
+        table = _sources_per_level(fitted, zero_rows, groupings, src, iv, note)
     table.attrs.update(interval=interval, family=fitted.spec.family, message=note)
     return table
+
+
+@dataclass
+class _ZeroSources:
+    """Per observed zero: posterior mean and interval of P(extra zero | Y = 0); per ``by``
+    column, the per-draw expected number of extra zeros of each level (draws, levels)."""
+
+    mean: np.ndarray
+    lo: np.ndarray
+    hi: np.ndarray
+    sums: dict[str, np.ndarray]
+
+
+def _zero_source_draws(fitted: FitRecord, zero_rows: np.ndarray, index: np.ndarray | None,
+                       groupings: Sequence[_Grouping], iv: options.Interval) -> _ZeroSources:
+    fam = _family(fitted)
+    S = _n_used(fitted, index)
+    nz = zero_rows.size
+    out = _ZeroSources(np.zeros(nz), np.zeros(nz), np.zeros(nz),
+                       {g.name: np.zeros((S, len(g.levels))) for g in groupings})
+    if fam.zeros_kind is None or fam.zeros_kind == "hurdle":
+        value = 1.0 if fam.zeros_kind == "hurdle" else 0.0
+        out.mean[:], out.lo[:], out.hi[:] = value, value, value
+        for g in groupings:
+            out.sums[g.name][:] = value * np.bincount(g.codes[zero_rows], minlength=len(g.levels))
+        return out
+    rows = fitted_rows(fitted)
+    for sl in _chunks(nz, S, 6):
+        pick = zero_rows[sl]
+        lp = _predictors(fitted, rows, pick, index)
+        prob = fam.prob_extra_zero_given_zero(lp.counts, lp.zeros, lp.log_alpha)
+        prob = np.broadcast_to(prob, (S, pick.size))
+        out.mean[sl] = prob.mean(axis=0)
+        out.lo[sl], out.hi[sl] = np.quantile(prob, [iv.lower, iv.upper], axis=0)
+        for g in groupings:
+            onehot = np.zeros((pick.size, len(g.levels)))
+            onehot[np.arange(pick.size), g.codes[pick]] = 1.0
+            out.sums[g.name] += prob @ onehot
+    return out
+
+
+def _sources_per_zero(fitted: FitRecord, zero_rows: np.ndarray, src: _ZeroSources,
+                      iv: options.Interval, note: str) -> pd.DataFrame:
+    lo_name, hi_name = iv.names
+    table = pd.DataFrame({_SOURCE_COLUMN: src.mean, lo_name: src.lo, hi_name: src.hi},
+                         index=fitted.design.index[zero_rows])
+    for g in fitted.design.groups:
+        table.insert(0, g.name, [g.levels[c] for c in g.codes[zero_rows]])
+    table["note"] = note
+    return table
+
+
+def _sources_per_level(fitted: FitRecord, zero_rows: np.ndarray,
+                       groupings: Sequence[_Grouping], src: _ZeroSources,
+                       iv: options.Interval, note: str) -> pd.DataFrame:
+    lo_name, hi_name = iv.names
+    out = []
+    for g in groupings:
+        records = np.bincount(g.codes, minlength=len(g.levels))
+        zeros = np.bincount(g.codes[zero_rows], minlength=len(g.levels))
+        s = src.sums[g.name]
+        qlo, qhi = np.quantile(s, [iv.lower, iv.upper], axis=0)
+        for j, lv in enumerate(g.levels):
+            if records[j] == 0:
+                continue
+            exp_extra = float(s[:, j].mean())
+            out.append({"group": g.name, "level": lv, "records": int(records[j]),
+                        "observed zeros": int(zeros[j]), "expected extra zeros": exp_extra,
+                        lo_name: float(qlo[j]), hi_name: float(qhi[j]),
+                        "share extra": exp_extra / zeros[j] if zeros[j] else float("nan"),
+                        "note": note})
+    return pd.DataFrame(out)

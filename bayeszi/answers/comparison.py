@@ -517,10 +517,43 @@ def compare(models: Mapping[str, FitRecord | LooEstimate], exact_refits: bool = 
     >>> table = compare({"poisson": m1, "zinb": m2})        # doctest: +SKIP
     >>> table.loc["poisson", "diff_in_se"] < -2             # doctest: +SKIP
     """
+    fits, given = _fits_of(models)
+    check_same_data(fits)
+    k_threshold = _check_threshold(k_threshold)
+    ests = {name: g if (g := given.get(name)) is not None and g.k_threshold == k_threshold
+            else _psis(m, k_threshold, name) for name, m in fits.items()}
+    if exact_refits:
+        for name, est in ests.items():
+            _check_refit_budget(est, max_refits, name)
+        ests = {name: _refine(est, refit_settings) for name, est in ests.items()}
+    for name, est in ests.items():
+        _warn_flagged(est, name)
+    troubled = {name: _sampler_flag(m) for name, m in fits.items()}
+    bad = {n: t for n, t in troubled.items() if t != "ok"}
+    if bad:
+        warnings.warn("compared fits with sampler trouble (their LOO values share it): "
+                      + "; ".join(f"{n}: {t}" for n, t in bad.items()),
+                      BayesziWarning, stacklevel=2)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        az_table = az.compare({n: e.elpd_data for n, e in ests.items()}, ic="loo",
+                              method="stacking", scale="log")
+    order = list(az_table.index)
+    best_i = ests[order[0]].pointwise["elpd_i"].to_numpy()
+    rows = [_ranked_row(name, rank, ests[name], best_i, name == order[0],
+                        float(az_table.loc[name, "weight"]), troubled[name], k_threshold)
+            for rank, name in enumerate(order, start=1)]
+    table = pd.DataFrame(rows).set_index("model")
+    table.attrs.update({"k_threshold": k_threshold, "n_rows": len(best_i), "scale": "log",
+                        "weights": "stacking"})
+    return table
+
+
+def _fits_of(models: object) -> tuple[dict[str, FitRecord], dict[str, LooEstimate]]:
+    """The fits to compare by name, and the LOO estimates given for some of them."""
     if not isinstance(models, Mapping) or len(models) < 2:
         raise BayesziError("compare() needs a dict of at least two named fits, e.g. "
                            "{'zip': fit_a, 'zinb': fit_b}; for one fit use fitted.loo()")
-
     fits: dict[str, FitRecord] = {}
     given: dict[str, LooEstimate] = {}
     for name, value in models.items():
@@ -534,57 +567,28 @@ def compare(models: Mapping[str, FitRecord | LooEstimate], exact_refits: bool = 
                                "model; pass the results of bayeszi.fit")
     if len(fits) < len(models):
         raise BayesziError("compare(): two models share a name once turned into text; rename")
-    check_same_data(fits)
-    k_threshold = _check_threshold(k_threshold)
-    ests: dict[str, LooEstimate] = {}
-    for name, m in fits.items():
-        g = given.get(name)
-        ests[name] = g if g is not None and g.k_threshold == k_threshold \
-            else _psis(m, k_threshold, name)
-    if exact_refits:
-        for name, est in ests.items():
-            _check_refit_budget(est, max_refits, name)
-        ests = {name: _refine(est, refit_settings) for name, est in ests.items()}
-    for name, est in ests.items():
-        _warn_flagged(est, name)
-    troubled = {name: _sampler_flag(m) for name, m in fits.items()}
-    bad = {n: t for n, t in troubled.items() if t != "ok"}
-    if bad:
-        warnings.warn("compared fits with sampler trouble (their LOO values share it): "
-                      + "; ".join(f"{n}: {t}" for n, t in bad.items()),
-                      BayesziWarning, stacklevel=2)
+    return fits, given
 
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        az_table = az.compare({n: e.elpd_data for n, e in ests.items()}, ic="loo",
-                              method="stacking", scale="log")
-    order = list(az_table.index)
-    best = order[0]
-    best_i = ests[best].pointwise["elpd_i"].to_numpy()
-    n = len(best_i)
-    rows = []
-    for rank, name in enumerate(order, start=1):
-        est = ests[name]
-        diff_i = est.pointwise["elpd_i"].to_numpy() - best_i
-        diff = float(diff_i.sum())
-        diff_se = float(np.sqrt(n * np.var(diff_i)))
-        counts = est.k_counts()
-        k = est.pointwise["pareto_k"].to_numpy()
-        n_exact = len(est.exact_rows)
-        rows.append({
-            "model": name, "rank": rank, "family": est.fitted.spec.family,
-            "elpd_loo": est.elpd, "se": est.se, "elpd_diff": diff, "diff_se": diff_se,
-            "diff_in_se": diff / diff_se if name != best and diff_se > 0 else np.nan,
-            "p_loo": est.p_loo, "weight": float(az_table.loc[name, "weight"]),
-            "k_good": counts["good"], "k_ok": counts["ok"], "k_bad": counts["bad"],
-            "bad_k_rows": _labels(list(est.pointwise.index[k > k_threshold])),
-            "exact_rows": n_exact, "values": "PSIS + exact" if n_exact else PSIS,
-            "sampler": troubled[name],
-        })
-    table = pd.DataFrame(rows).set_index("model")
-    table.attrs.update({"k_threshold": k_threshold, "n_rows": n, "scale": "log",
-                        "weights": "stacking"})
-    return table
+
+def _ranked_row(name: str, rank: int, est: LooEstimate, best_i: np.ndarray, is_best: bool,
+                weight: float, sampler: str, k_threshold: float) -> dict[str, Any]:
+    """One row of :func:`compare`: a model's LOO against the best model's pointwise values."""
+    diff_i = est.pointwise["elpd_i"].to_numpy() - best_i
+    diff = float(diff_i.sum())
+    diff_se = float(np.sqrt(len(best_i) * np.var(diff_i)))
+    counts = est.k_counts()
+    k = est.pointwise["pareto_k"].to_numpy()
+    n_exact = len(est.exact_rows)
+    return {
+        "model": name, "rank": rank, "family": est.fitted.spec.family,
+        "elpd_loo": est.elpd, "se": est.se, "elpd_diff": diff, "diff_se": diff_se,
+        "diff_in_se": diff / diff_se if not is_best and diff_se > 0 else np.nan,
+        "p_loo": est.p_loo, "weight": weight,
+        "k_good": counts["good"], "k_ok": counts["ok"], "k_bad": counts["bad"],
+        "bad_k_rows": _labels(list(est.pointwise.index[k > k_threshold])),
+        "exact_rows": n_exact, "values": "PSIS + exact" if n_exact else PSIS,
+        "sampler": sampler,
+    }
 
 
 __all__ = ["K_BAD", "K_GOOD", "LooEstimate", "RefitWrapper", "check_same_data", "compare",

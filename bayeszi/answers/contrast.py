@@ -30,17 +30,18 @@ import pandas as pd
 from bayeszi.answers.predict import (
     QUANTITIES,
     Rows,
+    Setup,
     check_what,
     concat_rows,
     evaluate,
     groups_label,
-    interval_names,
     is_own_label,
     make_setup,
     prepare_rows,
     quantity_label,
     sampler_note,
 )
+from bayeszi.base import options
 from bayeszi.base.errors import BayesziError
 from bayeszi.engine.record import FitRecord
 
@@ -120,7 +121,7 @@ def contrast(fitted: FitRecord, base: pd.DataFrame | None = None,
              set_to: Mapping[str, Any] | None = None, what: str = "mean",
              groups: str = "known", interval: float = 0.9, combine: str | None = None,
              k: int | None = None, exposure: float | None = None, n_average: int = 30,
-             draws: int | None = None, seed: int | None = None) -> pd.DataFrame:
+             draws: int | None = None, seed: options.Seed = None) -> pd.DataFrame:
     """Ratio and difference of a quantity between a scenario and a base, with intervals.
 
     Parameters
@@ -145,68 +146,91 @@ def contrast(fitted: FitRecord, base: pd.DataFrame | None = None,
     -------
     >>> m.contrast(set_to={"barrier": 1}, what="p_nonzero", combine="mean")  # doctest: +SKIP
     """
-    if what not in CONTRAST_QUANTITIES:
-        if what == "new_count":
-            raise BayesziError("contrasts compare expected quantities; what='new_count' is a "
-                               "random count. Use what='mean' (or 'p_zero', ...)")
+    w = _contrast_what(fitted, what, k, groups, combine)
+    iv = options.interval_bounds(interval)
+    setup = make_setup(fitted, groups, k, draws, seed, n_average)
+    base_df, scenario_df, change = _scenarios(fitted, base, scenario, shift, set_to)
+    ra = prepare_rows(fitted, None if base is None else base_df, groups, exposure, tag="a")
+    rb = prepare_rows(fitted, scenario_df, groups, exposure, tag="b")
+    na, nb = ra.encoded.n, rb.encoded.n
+    if combine is None and na != nb:
+        raise BayesziError(f"base has {na} rows and scenario {nb}; a row-by-row contrast needs "
+                           "as many rows in each. Pass combine='sum' (totals) or "
+                           "combine='mean' (averages over rows)")
+    _merge_labels(ra, rb, na == nb)
+    rows = concat_rows([ra, rb])
+    probs = sampler_note(fitted)
+    label = {"quantity": quantity_label(fitted, w, k),
+             "groups": groups_label(fitted, groups, setup.n_average), "change": change}
+    if combine is None:
+        out = _row_by_row(setup, rows, w, na, nb, iv)
+        table = _table(out, label, iv, ra.index)
+    else:
+        out = _combined(setup, rows, w, na, nb, combine, iv)
+        name = f"{combine} over rows ({na} base, {nb} scenario)"
+        table = _table(out, label, iv, pd.Index([name]))
+    table.attrs["sampler_problems"] = probs
+    table.attrs["draws"] = setup.n_draws
+    return table
+
+
+def _contrast_what(fitted: FitRecord, what: str, k: int | None, groups: str,
+                   combine: str | None) -> str:
+    """The quantity a contrast compares, refusing random counts and unknown ``combine``."""
+    if what == "new_count":
+        raise BayesziError("contrasts compare expected quantities; what='new_count' is a "
+                           "random count. Use what='mean' (or 'p_zero', ...)")
     whats = check_what(fitted, what, k, groups, allow=CONTRAST_QUANTITIES)
     if combine not in COMBINE:
         raise BayesziError(f"combine must be None (row by row), 'sum' or 'mean', got "
                            f"{combine!r}")
-    lo, hi, lo_name, hi_name = interval_names(interval)
-    setup = make_setup(fitted, groups, k, draws, seed, n_average)
+    return whats[0]
+
+
+def _scenarios(fitted: FitRecord, base: pd.DataFrame | None, scenario: pd.DataFrame | None,
+               shift: Mapping[str, Any] | None, set_to: Mapping[str, Any] | None
+               ) -> tuple[pd.DataFrame, pd.DataFrame, str]:
+    """The base rows, the scenario rows and a description of the change."""
     base_df = _fitted_frame(fitted) if base is None else base
     if scenario is not None and (shift is not None or set_to is not None):
         raise BayesziError("give either scenario= (a data frame) or shift=/set_to= (changes to "
                            "the base), not both")
-    if scenario is None:
-        if shift is None and set_to is None:
-            raise BayesziError("nothing to compare: pass scenario=<data frame>, or "
-                               "shift={'column': amount} / set_to={'column': value}")
-        scenario_df, change = apply_change(fitted, base_df, shift, set_to)
-    else:
-        scenario_df, change = scenario, "scenario rows vs base rows"
-    ra = prepare_rows(fitted, None if base is None else base_df, groups, exposure, tag="a")
-    rb = prepare_rows(fitted, scenario_df, groups, exposure, tag="b")
-    na, nb = ra.encoded.n, rb.encoded.n
-    paired = na == nb
-    if combine is None and not paired:
-        raise BayesziError(f"base has {na} rows and scenario {nb}; a row-by-row contrast needs "
-                           "as many rows in each. Pass combine='sum' (totals) or "
-                           "combine='mean' (averages over rows)")
-    _merge_labels(ra, rb, paired)
-    rows = concat_rows([ra, rb])
-    probs = sampler_note(fitted)
-    w = whats[0]
-    label = {"quantity": quantity_label(fitted, w, k),
-             "groups": groups_label(fitted, groups, setup.n_average), "change": change}
+    if scenario is not None:
+        return base_df, scenario, "scenario rows vs base rows"
+    if shift is None and set_to is None:
+        raise BayesziError("nothing to compare: pass scenario=<data frame>, or "
+                           "shift={'column': amount} / set_to={'column': value}")
+    scenario_df, change = apply_change(fitted, base_df, shift, set_to)
+    return base_df, scenario_df, change
 
-    if combine is None:
-        out = np.empty((10, na))
 
-        def consume(units: np.ndarray, parts: list[dict[str, np.ndarray]]) -> None:
-            out[:, units] = _compare(parts[0][w], parts[1][w], lo, hi)
+def _row_by_row(setup: Setup, rows: Rows, w: str, na: int, nb: int,
+                iv: options.Interval) -> np.ndarray:
+    """Summaries (10, rows) of the paired base rows ``0..na-1`` and scenario rows after."""
+    out = np.empty((10, na))
 
-        evaluate(setup, rows, whats, [np.arange(na), na + np.arange(nb)], consume)
-        table = _table(out, label, lo_name, hi_name, ra.index)
-    else:
-        tot = np.zeros((2, setup.n_draws))
+    def consume(units: np.ndarray, parts: list[dict[str, np.ndarray]]) -> None:
+        out[:, units] = _compare(parts[0][w], parts[1][w], iv.lower, iv.upper)
 
-        def consume_all(units: np.ndarray, parts: list[dict[str, np.ndarray]]) -> None:
-            v = parts[0][w]
-            in_a = units < na
-            tot[0] += v[:, in_a].sum(axis=1)
-            tot[1] += v[:, ~in_a].sum(axis=1)
+    evaluate(setup, rows, [w], [np.arange(na), na + np.arange(nb)], consume)
+    return out
 
-        evaluate(setup, rows, whats, [np.arange(na + nb)], consume_all)
-        if combine == "mean":
-            tot /= np.array([[na], [nb]])
-        out = _compare(tot[0][:, None], tot[1][:, None], lo, hi)
-        name = f"{combine} over rows ({na} base, {nb} scenario)"
-        table = _table(out, label, lo_name, hi_name, pd.Index([name]))
-    table.attrs["sampler_problems"] = probs
-    table.attrs["draws"] = setup.n_draws
-    return table
+
+def _combined(setup: Setup, rows: Rows, w: str, na: int, nb: int, combine: str,
+              iv: options.Interval) -> np.ndarray:
+    """Summaries (10, 1) of the base rows' and the scenario rows' sum (or mean) per draw."""
+    tot = np.zeros((2, setup.n_draws))
+
+    def consume_all(units: np.ndarray, parts: list[dict[str, np.ndarray]]) -> None:
+        v = parts[0][w]
+        in_a = units < na
+        tot[0] += v[:, in_a].sum(axis=1)
+        tot[1] += v[:, ~in_a].sum(axis=1)
+
+    evaluate(setup, rows, [w], [np.arange(na + nb)], consume_all)
+    if combine == "mean":
+        tot /= np.array([[na], [nb]])
+    return _compare(tot[0][:, None], tot[1][:, None], iv.lower, iv.upper)
 
 
 def _compare(a: np.ndarray, b: np.ndarray, lo: float, hi: float) -> np.ndarray:
@@ -226,8 +250,9 @@ def _compare(a: np.ndarray, b: np.ndarray, lo: float, hi: float) -> np.ndarray:
     return out
 
 
-def _table(out: np.ndarray, label: dict[str, str], lo_name: str, hi_name: str,
+def _table(out: np.ndarray, label: dict[str, str], iv: options.Interval,
            index: pd.Index) -> pd.DataFrame:
+    lo_name, hi_name = iv.names
     cols = ["base", "scenario", "difference", "difference sd", f"difference {lo_name}",
             f"difference {hi_name}", "ratio (median)", f"ratio {lo_name}", f"ratio {hi_name}",
             "P(ratio > 1)"]
@@ -243,7 +268,7 @@ def average_comparison(fitted: FitRecord, input: str, data: pd.DataFrame | None 
                        levels: tuple[str, str] | None = None, pairs: int = 10_000,
                        k: int | None = None, exposure: float | None = None,
                        n_average: int = 30, draws: int | None = None,
-                       seed: int | None = None) -> pd.DataFrame:
+                       seed: options.Seed = None) -> pd.DataFrame:
     """Average predictive comparison of ``input`` (Gelman & Pardoe 2007), with intervals.
 
     Numeric input u (0/1 flags included): over pairs of rows (i, j), the change of the
@@ -269,19 +294,11 @@ def average_comparison(fitted: FitRecord, input: str, data: pd.DataFrame | None 
     """
     whats = check_what(fitted, what, k, groups, allow=CONTRAST_QUANTITIES)
     w = whats[0]
-    lo, hi, lo_name, hi_name = interval_names(interval)
+    iv = options.interval_bounds(interval)
     setup = make_setup(fitted, groups, k, draws, seed, n_average)
-    if isinstance(pairs, bool) or not isinstance(pairs, int | np.integer) or pairs < 1:
-        raise BayesziError(f"pairs must be a whole number >= 1, got {pairs!r}; e.g. 10000")
+    pairs = options.check_whole(pairs, "pairs", example=10000)
     df = _fitted_frame(fitted) if data is None else data
-    used = _inputs(fitted)
-    group_cols = list(fitted.spec.groups) + list(fitted.spec.nested.values())
-    if input not in used or input in group_cols:
-        choices = [c for c in used if c not in group_cols]
-        raise BayesziError(f"input {input!r} is not a predictor of the model; choose one of "
-                           f"{choices}")
-    if input not in df.columns:
-        raise BayesziError(f"input {input!r} is not a column of the data; add it")
+    used, group_cols = _check_input(fitted, input, df)
     categorical = input in fitted.design.levels or not pd.api.types.is_numeric_dtype(df[input])
     probs = sampler_note(fitted)
     base_label = {"input": input, "quantity": quantity_label(fitted, w, k),
@@ -293,20 +310,39 @@ def average_comparison(fitted: FitRecord, input: str, data: pd.DataFrame | None 
             raise BayesziError(f"levels= is for category inputs; {input!r} is numeric")
         rows = [_numeric_apc(fitted, setup, df, input, used, group_cols, w, groups, exposure,
                              pairs)]
-    records = []
-    for comparison, per_draw, n_pairs in rows:
-        qs = np.quantile(per_draw, [lo, hi])
-        records.append({**base_label, "comparison": comparison, "mean": per_draw.mean(),
-                        "sd": per_draw.std(ddof=1) if len(per_draw) > 1 else np.nan,
-                        lo_name: qs[0], hi_name: qs[1], "P(> 0)": (per_draw > 0).mean(),
-                        "pairs": n_pairs})
-    table = pd.DataFrame(records)
+    table = pd.DataFrame([_apc_record(base_label, comparison, per_draw, n_pairs, iv)
+                          for comparison, per_draw, n_pairs in rows])
     table.attrs["sampler_problems"] = probs
     table.attrs["draws"] = setup.n_draws
     return table
 
 
-def _paired_diffs(fitted: FitRecord, setup: Any, base: pd.DataFrame,
+def _check_input(fitted: FitRecord, input: str, df: pd.DataFrame) -> tuple[list[str], list[str]]:
+    """The model's inputs and grouping columns, refusing an ``input`` that is neither a
+    predictor of the model nor a column of ``df``."""
+    used = _inputs(fitted)
+    group_cols = list(fitted.spec.groups) + list(fitted.spec.nested.values())
+    if input not in used or input in group_cols:
+        choices = [c for c in used if c not in group_cols]
+        raise BayesziError(f"input {input!r} is not a predictor of the model; choose one of "
+                           f"{choices}")
+    if input not in df.columns:
+        raise BayesziError(f"input {input!r} is not a column of the data; add it")
+    return used, group_cols
+
+
+def _apc_record(base_label: dict[str, str], comparison: str, per_draw: np.ndarray,
+                n_pairs: int, iv: options.Interval) -> dict[str, Any]:
+    """One row of :func:`average_comparison`: the summaries of one comparison's draws."""
+    lo_name, hi_name = iv.names
+    qs = np.quantile(per_draw, [iv.lower, iv.upper])
+    return {**base_label, "comparison": comparison, "mean": per_draw.mean(),
+            "sd": per_draw.std(ddof=1) if len(per_draw) > 1 else np.nan,
+            lo_name: qs[0], hi_name: qs[1], "P(> 0)": (per_draw > 0).mean(),
+            "pairs": n_pairs}
+
+
+def _paired_diffs(fitted: FitRecord, setup: Setup, base: pd.DataFrame,
                   scenario: pd.DataFrame, w: str, groups: str, exposure: float | None,
                   weight: np.ndarray) -> np.ndarray:
     """Per draw: sum over rows of weight * (q(scenario) - q(base))."""
@@ -324,7 +360,7 @@ def _paired_diffs(fitted: FitRecord, setup: Any, base: pd.DataFrame,
     return acc
 
 
-def _numeric_apc(fitted: FitRecord, setup: Any, df: pd.DataFrame, input: str,
+def _numeric_apc(fitted: FitRecord, setup: Setup, df: pd.DataFrame, input: str,
                  used: list[str], group_cols: list[str], w: str, groups: str,
                  exposure: float | None, pairs: int) -> tuple[str, np.ndarray, int]:
     u = df[input].to_numpy(dtype=float)
@@ -373,7 +409,7 @@ def _other_inputs(df: pd.DataFrame, cols: list[str], fitted: FitRecord) -> np.nd
     return np.hstack(blocks) if blocks else np.empty((len(df), 0))
 
 
-def _level_comparisons(fitted: FitRecord, setup: Any, df: pd.DataFrame, input: str,
+def _level_comparisons(fitted: FitRecord, setup: Setup, df: pd.DataFrame, input: str,
                        levels: tuple[str, str] | None, w: str, groups: str,
                        exposure: float | None) -> list[tuple[str, np.ndarray, int]]:
     known = fitted.design.levels.get(input, sorted(set(df[input].astype(str))))

@@ -33,17 +33,13 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from bayeszi.base import names, options
 from bayeszi.base.errors import BayesziError
+from bayeszi.engine.draws import stacked
 from bayeszi.engine.record import FitRecord
-from bayeszi.families import get_family
 
-PARTS = ("counts", "zeros")
+PARTS = names.PARTS
 INDEX = ["group", "level", "part", "effect"]
-
-
-def _zeros_what(family: str) -> str:
-    kind = get_family(family).zeros_kind
-    return "P(extra zero)" if kind == "inflation" else "P(Y = 0)"
 
 
 def _exp_label(fitted: FitRecord, part: str, effect: str) -> str:
@@ -51,7 +47,7 @@ def _exp_label(fitted: FitRecord, part: str, effect: str) -> str:
         if effect == "intercept":
             return "rate ratio to a typical group"
         return f"factor on the rate ratio per unit of {effect}"
-    what = _zeros_what(fitted.spec.family)
+    what = names.zeros_odds_label(fitted.spec.family)
     if effect == "intercept":
         return f"odds ratio of {what} to a typical group"
     return f"factor on the odds ratio of {what} per unit of {effect}"
@@ -63,24 +59,18 @@ def _check_args(fitted: FitRecord, interval: float, part: str | None,
         raise BayesziError(
             "this model has no group effects; fit it with groups='your_site_column' to get them"
         )
-    if not isinstance(interval, (int, float)) or not 0 < interval < 1:
-        raise BayesziError(f"interval must lie in (0, 1), got {interval!r}; e.g. 0.9")
-    parts = [p for p in PARTS if f"{p}_term" in fitted.idata.posterior.coords]
+    options.interval_bounds(interval)
+    parts = [p for p in PARTS if names.term_dim(p) in fitted.idata.posterior.coords]
     if part is not None and part not in parts:
         raise BayesziError(f"part must be one of {parts} for family {fitted.spec.family!r} "
                            f"(or None for all), got {part!r}")
-    names = [g.name for g in fitted.design.groups]
-    if group is not None and group not in names:
-        raise BayesziError(f"group must be one of the grouping columns {names} (or None for "
+    columns = [g.name for g in fitted.design.groups]
+    if group is not None and group not in columns:
+        raise BayesziError(f"group must be one of the grouping columns {columns} (or None for "
                            f"all), got {group!r}")
     parts = [part] if part is not None else parts
     groups = [g for g in fitted.design.groups if group is None or g.name == group]
     return parts, groups
-
-
-def _stack(fitted: FitRecord, name: str) -> np.ndarray:
-    v = fitted.idata.posterior[name].values
-    return v.reshape((-1,) + v.shape[2:])
 
 
 def _batches(fitted: FitRecord, parts: list[str], groups: list):
@@ -89,19 +79,19 @@ def _batches(fitted: FitRecord, parts: list[str], groups: list):
     post = fitted.idata.posterior
     for g in groups:
         for part in parts:
-            name = f"{part}_effect_{g.name}"
+            name = names.effect(part, g.name)
             if name in post:
-                keys = [f"{name}[{lv}]" for lv in g.levels]
-                yield g, part, "intercept", _stack(fitted, name), \
-                    _stack(fitted, f"{part}_sd_{g.name}"), keys
-            sname = f"{part}_slope_{g.name}"
+                keys = [names.summary_key(name, lv) for lv in g.levels]
+                yield g, part, "intercept", stacked(fitted, name), \
+                    stacked(fitted, names.group_sd(part, g.name)), keys
+            sname = names.slope(part, g.name)
             if sname in post:
                 pdes = fitted.design.counts if part == "counts" else fitted.design.zeros
-                slopes = _stack(fitted, sname)
-                sds = _stack(fitted, f"{part}_slope_sd_{g.name}")
+                slopes = stacked(fitted, sname)
+                sds = stacked(fitted, names.slope_sd(part, g.name))
                 for k, t in enumerate(fitted.spec.varying.get(part, ())):
                     scale = pdes.scale[pdes.terms.index(t)]
-                    keys = [f"{sname}[{lv}, {t}]" for lv in g.levels]
+                    keys = [names.summary_key(sname, lv, t) for lv in g.levels]
                     yield g, part, t, slopes[:, :, k] / scale, sds[:, k] / scale, keys
 
 
@@ -153,8 +143,9 @@ def group_effects(fitted: FitRecord, interval: float = 0.9, part: str | None = N
     >>> t.xs("intercept", level="effect").sort_values("mean")  # doctest: +SKIP
     """
     parts, groups = _check_args(fitted, interval, part, group)
-    lo_q, hi_q = (1 - interval) / 2, 1 - (1 - interval) / 2
-    lo_name, hi_name = f"{100 * lo_q:g}%", f"{100 * hi_q:g}%"
+    iv = options.interval_bounds(interval)
+    lo_q, hi_q = iv.lower, iv.upper
+    lo_name, hi_name = iv.names
     table = fitted.sampling.table
     th = fitted.sampling.thresholds
     frames = []
@@ -200,19 +191,20 @@ def pooling_summary(fitted: FitRecord, interval: float = 0.9) -> pd.DataFrame:
     >>> pooling_summary(fitted)[["sd", "pooling"]]     # doctest: +SKIP
     """
     parts, groups = _check_args(fitted, interval, None, None)
-    lo_q, hi_q = (1 - interval) / 2, 1 - (1 - interval) / 2
+    iv = options.interval_bounds(interval)
+    lo_name, hi_name = iv.names
     rows = []
     for g, prt, effect, draws, sd, _ in _batches(fitted, parts, groups):
         n = g.counts_per_level
         lam = level_pooling(draws, sd)
         order = np.argsort(n, kind="stable")
         q = max(1, len(n) // 4)
-        lo, hi = np.quantile(sd, [lo_q, hi_q])
+        lo, hi = np.quantile(sd, [iv.lower, iv.upper])
         rows.append({
             "group": g.name, "part": prt, "effect": effect, "levels": len(g.levels),
             "records min": int(n.min()), "records median": float(np.median(n)),
             "records max": int(n.max()),
-            "sd": float(sd.mean()), f"sd {100 * lo_q:g}%": lo, f"sd {100 * hi_q:g}%": hi,
+            "sd": float(sd.mean()), f"sd {lo_name}": lo, f"sd {hi_name}": hi,
             "pooling": batch_pooling(draws),
             "pooling, fewest records": float(lam[order[:q]].mean()),
             "pooling, most records": float(lam[order[-q:]].mean()),

@@ -37,7 +37,7 @@ from __future__ import annotations
 import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -45,12 +45,13 @@ from scipy import special as sc
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
-from bayeszi.base.errors import BayesziError
-from bayeszi.engine.draws import fitted_rows, linear_predictors, n_draws
+from bayeszi.base import names, options
+from bayeszi.base.errors import BayesziError, BayesziWarning
+from bayeszi.engine.draws import LinearPredictors, fitted_rows, linear_predictors, n_draws
 from bayeszi.engine.record import FitRecord
 from bayeszi.families import Family, get_family
 from bayeszi.model import validate as V
-from bayeszi.model.design import EncodedRows, _group_labels
+from bayeszi.model.design import EncodedRows
 
 if TYPE_CHECKING:
     import xarray as xr
@@ -60,7 +61,8 @@ __all__ = ["QUANTITIES", "GROUP_MODES", "predict", "prediction_draws", "count_di
 
 QUANTITIES: tuple[str, ...] = ("mean", "rate", "p_zero", "p_zeros_part", "p_nonzero",
                                "count_part_mean", "at_least", "new_count")
-GROUP_MODES: tuple[str, ...] = ("known", "new", "average", "typical")
+#: the group modes (:data:`bayeszi.base.options.GROUP_MODES`), in order
+GROUP_MODES: tuple[str, ...] = tuple(options.GROUP_MODES)
 #: values per (draws x rows) block: 2**16 float64 values are 512 KiB per array, small enough
 #: to stay in the CPU cache through the chain of NumPy steps (measured 2-3x faster here than
 #: 1 MiB or 8 MiB blocks; benchmarks/bench_predict.py).
@@ -84,36 +86,22 @@ class Setup:
 
 
 def make_setup(fitted: FitRecord, groups: str, k: int | None, draws: int | None,
-               seed: int | None, n_average: int) -> Setup:
+               seed: options.Seed, n_average: int) -> Setup:
     """Validate the shared options and bundle them (used by predictions and contrasts)."""
-    if groups not in GROUP_MODES:
-        raise BayesziError(f"groups must be one of {list(GROUP_MODES)}, got {groups!r}: 'known' "
-                           "for the fitted groups, 'new' for new ones, 'average' to average over "
-                           "the group distribution, 'typical' for group effects of 0")
-    if not _is_int(n_average) or n_average < 1:
-        raise BayesziError(f"n_average must be a whole number >= 1, got {n_average!r}; e.g. 30")
-    if seed is not None and (not _is_int(seed) or seed < 0):
-        raise BayesziError(f"seed must be a non-negative whole number or None, got {seed!r}")
+    groups = options.check_group_mode(groups)
+    n_average = options.check_whole(n_average, "n_average", example=30)
+    rng = options.rng(seed)
     total = n_draws(fitted)
-    draw_ids = np.arange(total)
-    if draws is not None:
-        if not _is_int(draws) or draws < 1:
-            raise BayesziError(f"draws must be a whole number >= 1 or None, got {draws!r}")
-        if draws > total:
-            raise BayesziError(f"draws={draws} but the fit holds {total} posterior draws; pass "
-                               f"draws=None to use them all or a number up to {total}")
-        draw_ids = np.unique(np.round(np.linspace(0, total - 1, draws)).astype(np.int64))
+    subset = options.draw_subset(draws, total)
+    draw_ids = np.arange(total) if subset is None else subset
+    if subset is not None:
         fitted = thinned(fitted, draw_ids)
-        if draws == 1:
-            import warnings
-
-            from bayeszi.base.errors import BayesziWarning
-
-            warnings.warn("draws=1: a single posterior draw has no spread, so the sd column is "
-                          "empty (NaN) and both interval bounds equal the mean; use draws=2 or "
-                          "more for uncertainty", BayesziWarning, stacklevel=3)
+    if draws == 1:
+        warnings.warn("draws=1: a single posterior draw has no spread, so the sd column is "
+                      "empty (NaN) and both interval bounds equal the mean; use draws=2 or "
+                      "more for uncertainty", BayesziWarning, stacklevel=3)
     return Setup(fitted, get_family(fitted.spec.family), groups, k, draw_ids, len(draw_ids),
-                 int(n_average), np.random.default_rng(seed))
+                 n_average, rng)
 
 
 def thinned(fitted: FitRecord, draw_ids: np.ndarray) -> FitRecord:
@@ -134,7 +122,7 @@ def thinned(fitted: FitRecord, draw_ids: np.ndarray) -> FitRecord:
     return out
 
 
-def _is_int(x: Any) -> bool:
+def _is_int(x: object) -> bool:
     return isinstance(x, int | np.integer) and not isinstance(x, bool)
 
 
@@ -157,7 +145,7 @@ def check_what(fitted: FitRecord, what: str | Sequence[str], k: int | None, grou
             raise BayesziError(f"unknown quantity what={w!r}{hint}; choose from {list(allow)}")
         if w == "p_zeros_part" and fam.zeros_kind is None:
             raise BayesziError(f"family {fam.name!r} has no zeros part, so there is no "
-                               "zeros-part probability; ask for what='p_zero' (P(Y = 0))")
+                               f"zeros-part probability; ask for what='p_zero' ({names.PROB_ZERO})")
         if w == "new_count" and groups == "average":
             raise BayesziError("a new count averaged over groups is a new count at a new group: "
                                "use groups='new' with what='new_count'")
@@ -172,16 +160,6 @@ def check_what(fitted: FitRecord, what: str | Sequence[str], k: int | None, grou
     return whats
 
 
-def interval_names(interval: float) -> tuple[float, float, str, str]:
-    """Quantile levels and column names of a central ``interval`` (e.g. 0.9 -> 5%, 95%)."""
-    if isinstance(interval, bool) or not isinstance(interval, float | int) \
-            or not 0 < interval < 1:
-        raise BayesziError(f"interval must lie strictly between 0 and 1, got {interval!r}; "
-                           "e.g. 0.9 for a central 90% interval")
-    lo, hi = (1 - interval) / 2, 1 - (1 - interval) / 2
-    return lo, hi, f"{100 * lo:g}%", f"{100 * hi:g}%"
-
-
 def quantity_label(fitted: FitRecord, what: str, k: int | None = None) -> str:
     """The plain-language name of a quantity for this fit's family, as shown in tables."""
     fam = get_family(fitted.spec.family)
@@ -193,10 +171,9 @@ def quantity_label(fitted: FitRecord, what: str, k: int | None = None) -> str:
         return (f"E[Y] per unit of {effort}" if effort
                 else "E[Y] per unit exposure (no exposure in the model: equals E[Y])")
     if what == "p_zero":
-        return "P(Y = 0)"
+        return names.PROB_ZERO
     if what == "p_zeros_part":
-        return ("P(extra zero), zeros part" if fam.zeros_kind == "inflation"
-                else "P(Y = 0), zeros part (hurdle)")
+        return names.zeros_part_label(fam.name)
     if what == "p_nonzero":
         return "P(Y > 0), encounter probability"
     if what == "count_part_mean":
@@ -212,10 +189,10 @@ def quantity_label(fitted: FitRecord, what: str, k: int | None = None) -> str:
 
 def groups_label(fitted: FitRecord, mode: str, n_average: int) -> str:
     """How group effects entered, as shown in the ``groups`` column."""
-    names = [g.name for g in fitted.design.groups]
-    if not names:
+    columns = [g.name for g in fitted.design.groups]
+    if not columns:
         return "no groups in model"
-    s = ", ".join(names)
+    s = ", ".join(columns)
     return {"known": f"known {s}", "new": f"new {s}",
             "average": f"average over {s} ({n_average} draws each)",
             "typical": f"typical {s} (effect 0)"}[mode]
@@ -278,9 +255,8 @@ def prepare_rows(fitted: FitRecord, data: pd.DataFrame | None, groups: str,
         labels = {}
         for g in d.groups:
             outer = spec.nested.get(g.name)
-            if g.name in data.columns and (outer is None or outer in data.columns):
-                labels[g.name] = np.asarray(_group_labels(data, g.name, spec.nested),
-                                            dtype=object)
+            if g.name in enc.group_labels and (outer is None or outer in data.columns):
+                labels[g.name] = np.asarray(enc.group_labels[g.name], dtype=object)
             else:
                 labels[g.name] = own_labels(len(data), tag)
         if groups == "known":
@@ -308,21 +284,12 @@ def _check_known(fitted: FitRecord, data: pd.DataFrame, enc: EncodedRows,
                  labels: dict[str, np.ndarray]) -> None:
     for g in fitted.design.groups:
         if g.name not in data.columns:
-            raise BayesziError(
-                f"known-group predictions need the grouping column {g.name!r} in the data; add "
-                f"it, or ask for groups='new' (new {g.name} levels), groups='average' (averaged "
-                f"over the {g.name} distribution) or groups='typical' (effect 0)"
-            )
+            raise options.missing_group_column(g.name)
         bad = enc.group_codes[g.name] < 0
         if bad.any():
             unseen = sorted(set(labels[g.name][bad]))
-            more = f" (and {len(g.levels) - 20} more)" if len(g.levels) > 20 else ""
-            raise BayesziError(
-                f"grouping column {g.name!r} has level(s) {unseen[:10]} at row(s) "
-                f"{V._rows(data.index, bad)} that were not in the fitted data, so they have no "
-                f"estimated effect; known levels: {g.levels[:20]}{more}. Use groups='new' to "
-                f"predict for them as new {g.name} levels"
-            )
+            raise options.unseen_levels(g.name, unseen, V.rows_text(data.index, bad),
+                                        list(g.levels))
 
 
 def take_rows(enc: EncodedRows, idx: np.ndarray) -> EncodedRows:
@@ -380,7 +347,7 @@ def plan_chunks(n_units: int, target: int, links: Sequence[np.ndarray] = ()) -> 
     return np.split(order, cuts)
 
 
-def _linear(setup: Setup, enc: EncodedRows, ids: dict[str, np.ndarray]):
+def _linear(setup: Setup, enc: EncodedRows, ids: dict[str, np.ndarray]) -> LinearPredictors:
     mode = setup.mode
     if mode == "known":
         return linear_predictors(setup.fitted, enc, "known", setup.rng)
@@ -389,7 +356,7 @@ def _linear(setup: Setup, enc: EncodedRows, ids: dict[str, np.ndarray]):
     return linear_predictors(setup.fitted, replace(enc, group_codes=ids), "new", setup.rng)
 
 
-def quantity(setup: Setup, what: str, lp: Any, log_offset: np.ndarray,
+def quantity(setup: Setup, what: str, lp: LinearPredictors, log_offset: np.ndarray,
              memo: dict[str, np.ndarray] | None = None) -> np.ndarray:
     """One quantity per draw and row, shape (draws, rows), from linear predictors ``lp``.
 
@@ -486,7 +453,7 @@ def summarise(v: np.ndarray, lo: float, hi: float, integer: bool = False) -> np.
 def predict(fitted: FitRecord, data: pd.DataFrame | None = None,
             what: str | Sequence[str] = "mean", groups: str = "known", interval: float = 0.9,
             *, k: int | None = None, exposure: float | None = None, n_average: int = 30,
-            draws: int | None = None, seed: int | None = None) -> pd.DataFrame:
+            draws: int | None = None, seed: options.Seed = None) -> pd.DataFrame:
     """Posterior summaries of a quantity for each row of ``data`` (None: the fitted rows).
 
     Parameters
@@ -501,8 +468,10 @@ def predict(fitted: FitRecord, data: pd.DataFrame | None = None,
         with an offset column it sets offset = log(exposure)); ``exposure=1`` predicts per
         unit of effort. Needed when the data lack the exposure column.
     n_average : new-group draws per posterior draw for ``groups="average"``.
-    draws : use this many posterior draws, evenly spaced (None: all).
-    seed : seeds the random parts (new groups, averages, new counts).
+    draws : use this many posterior draws, evenly spaced (None: all; more than the fit holds
+        is an error).
+    seed : seeds the random parts (new groups, averages, new counts): a whole number >= 0,
+        a NumPy Generator (used as it is) or None.
 
     Returns
     -------
@@ -515,7 +484,7 @@ def predict(fitted: FitRecord, data: pd.DataFrame | None = None,
     >>> m.predict(new_df, what=["mean", "p_zero"], groups="new", seed=1)   # doctest: +SKIP
     """
     whats = check_what(fitted, what, k, groups)
-    lo, hi, lo_name, hi_name = interval_names(interval)
+    iv = options.interval_bounds(interval)
     setup = make_setup(fitted, groups, k, draws, seed, n_average)
     rows = prepare_rows(fitted, data, groups, exposure)
     probs = sampler_note(fitted)
@@ -524,10 +493,12 @@ def predict(fitted: FitRecord, data: pd.DataFrame | None = None,
 
     def consume(units: np.ndarray, parts: list[dict[str, np.ndarray]]) -> None:
         for w in whats:
-            out[w][:, units] = summarise(parts[0][w], lo, hi, integer=w == "new_count")
+            out[w][:, units] = summarise(parts[0][w], iv.lower, iv.upper,
+                                         integer=w == "new_count")
 
     evaluate(setup, rows, whats, [np.arange(n)], consume)
     glabel = groups_label(fitted, groups, setup.n_average)
+    lo_name, hi_name = iv.names
     frames = [pd.DataFrame({"quantity": quantity_label(fitted, w, k), "groups": glabel,
                             "mean": out[w][0], "sd": out[w][1], lo_name: out[w][2],
                             hi_name: out[w][3]}, index=rows.index) for w in whats]
@@ -540,7 +511,7 @@ def predict(fitted: FitRecord, data: pd.DataFrame | None = None,
 def prediction_draws(fitted: FitRecord, data: pd.DataFrame | None = None,
                      what: str = "mean", groups: str = "known", *, k: int | None = None,
                      exposure: float | None = None, n_average: int = 30,
-                     draws: int | None = None, seed: int | None = None) -> xr.DataArray:
+                     draws: int | None = None, seed: options.Seed = None) -> xr.DataArray:
     """The draws behind :func:`predict` as an ``xarray.DataArray`` with dims (draw, row).
 
     Memory is draws x rows x 8 bytes (4,000 draws x 10,000 rows: 320 MB); use ``draws=``
@@ -582,7 +553,7 @@ def prediction_draws(fitted: FitRecord, data: pd.DataFrame | None = None,
 def count_distribution(fitted: FitRecord, data: pd.DataFrame | None = None, kmax: int = 10,
                        groups: str = "known", *, exposure: float | None = None,
                        n_average: int = 30, draws: int | None = None,
-                       seed: int | None = None) -> pd.DataFrame:
+                       seed: options.Seed = None) -> pd.DataFrame:
     """Posterior predictive P(Y = 0), ..., P(Y = kmax) and P(Y > kmax) for each row.
 
     Closed forms (the family's pmf) averaged over posterior draws, so no simulation noise
@@ -592,8 +563,7 @@ def count_distribution(fitted: FitRecord, data: pd.DataFrame | None = None, kmax
     -------
     >>> m.count_distribution(new_df, kmax=5, groups="new", seed=1)      # doctest: +SKIP
     """
-    if not _is_int(kmax) or kmax < 0:
-        raise BayesziError(f"kmax must be a whole number >= 0, got {kmax!r}; e.g. kmax=10")
+    kmax = options.check_whole(kmax, "kmax", least=0, example=10)
     setup = make_setup(fitted, groups, None, draws, seed, n_average)
     rows = prepare_rows(fitted, data, groups, exposure)
     probs = sampler_note(fitted)

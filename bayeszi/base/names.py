@@ -46,10 +46,13 @@ ZERO_MECHANISMS: dict[str, str | None] = {
 #: the two parts of every model
 PARTS: tuple[str, str] = ("counts", "zeros")
 
+#: the probability of a zero count, whatever made it
+PROB_ZERO = "P(Y = 0)"
+
 #: what the zeros part's probability is, per zero mechanism
 ZEROS_LABELS: dict[str | None, str] = {
     "inflation": "P(extra zero)",
-    "hurdle": "P(Y = 0)",
+    "hurdle": PROB_ZERO,
     None: "",
 }
 
@@ -84,6 +87,45 @@ def zeros_meaning(family: str) -> str:
     return "no zeros part"
 
 
+def zeros_part_label(family: str) -> str:
+    """How tables name the zeros-part probability of a family with a zeros part.
+
+    Example
+    -------
+    >>> zeros_part_label("zinb"), zeros_part_label("hurdle-negbin")
+    ('P(extra zero), zeros part', 'P(Y = 0), zeros part (hurdle)')
+    """
+    kind = zero_mechanism(family)
+    tail = " (hurdle)" if kind == "hurdle" else ""
+    return f"{ZEROS_LABELS[kind]}, zeros part{tail}"
+
+
+def zeros_odds_label(family: str) -> str:
+    """What the zeros part's odds are odds of: ``P(extra zero)`` or ``P(Y = 0)``.
+
+    Unlike :func:`zeros_label` it never returns ``""`` (a family without a zeros part is
+    named like a hurdle: the odds of a zero), for labels that exist only with a zeros part.
+    """
+    return ZEROS_LABELS["inflation" if zero_mechanism(family) == "inflation" else "hurdle"]
+
+
+def zeros_origin(family: str | None) -> str:
+    """Where a family's zeros come from, in one phrase (for check notes and figures);
+    ``None`` (no family known) reads as a family without a zeros part.
+
+    Example
+    -------
+    >>> zeros_origin("hurdle-poisson")
+    'every zero comes from the zeros part, which models P(Y = 0) directly'
+    """
+    kind = zero_mechanism(family) if family is not None else None
+    if kind == "inflation":
+        return "zeros come from both parts (extra zeros and count-process zeros)"
+    if kind == "hurdle":
+        return f"every zero comes from the zeros part, which models {PROB_ZERO} directly"
+    return "every zero comes from the count process"
+
+
 # ------------------------------------------------------------------ posterior variables
 def coef(part: str) -> str:
     """User-scale coefficients of a part (``counts_coef``)."""
@@ -93,6 +135,12 @@ def coef(part: str) -> str:
 def std_coef(part: str) -> str:
     """Coefficients on the internal (centred, scaled) scale, as sampled."""
     return f"{part}_std_coef"
+
+
+def std_coef_raw(part: str, j: int) -> str:
+    """The ``j``-th coefficient sampled on its own (priors of mixed kinds), stacked into
+    :func:`std_coef`."""
+    return f"{part}_std_coef_{j}"
 
 
 def term_dim(part: str) -> str:
@@ -113,6 +161,26 @@ def group_sd(part: str, group: str) -> str:
 def group_raw(part: str, group: str) -> str:
     """Standardised (non-centred) intercept effects of a group in a part."""
     return f"{part}_z_{group}"
+
+
+def effect(part: str, group: str) -> str:
+    """Intercept effects of a group's levels in a part (log-rate or logit shift)."""
+    return f"{part}_effect_{group}"
+
+
+def level(part: str, group: str) -> str:
+    """Centred intercepts of a group's data-rich levels in a part (sampled centred)."""
+    return f"{part}_level_{group}"
+
+
+def centred_dim(part: str, group: str) -> str:
+    """The coordinate naming a group's levels whose intercepts are sampled centred."""
+    return f"{part}_{group}_centred"
+
+
+def noncentred_dim(part: str, group: str) -> str:
+    """The coordinate naming a group's levels whose intercepts are sampled non-centred."""
+    return f"{part}_{group}_noncentred"
 
 
 def slope_sd(part: str, group: str) -> str:
@@ -142,3 +210,40 @@ def corr_raw(group: str) -> str:
 
 DISPERSION = "dispersion"
 """The negative binomial's overdispersion alpha."""
+
+DISPERSION_SQRT = "dispersion_sqrt"
+"""sqrt(alpha), the variable the dispersion prior is put on."""
+
+#: the response's variable (observed data and pointwise log-likelihood)
+RESPONSE = "y"
+
+#: name beginnings of sampled helper variables whose meaning lies in another variable:
+#: standardised (non-centred) effects, centred levels and the Beta behind a correlation
+RAW_PREFIXES: tuple[str, ...] = tuple(
+    f(part, "") for part in PARTS for f in (group_raw, slope_raw, level)) + (corr_raw(""),)
+
+
+def is_raw(name: str) -> bool:
+    """Whether posterior variable ``name`` is a sampled helper, not a quantity to report
+    or diagnose: a standardised effect, a centred level, the Beta behind a correlation, or
+    coefficients on the internal scale (their user-scale twins are reported).
+
+    Example
+    -------
+    >>> is_raw("counts_z_reach"), is_raw("counts_effect_reach"), is_raw("zeros_std_coef")
+    (True, False, True)
+    """
+    std = std_coef("")
+    return name.startswith(RAW_PREFIXES) or "_chol" in name or name.endswith(std) \
+        or f"{std}_" in name
+
+
+def summary_key(name: str, *coords: object) -> str:
+    """The row label of a variable's element in the diagnostics table (``name[a, b]``).
+
+    Example
+    -------
+    >>> summary_key("counts_coef", "depth"), summary_key("dispersion")
+    ('counts_coef[depth]', 'dispersion')
+    """
+    return f"{name}[{', '.join(map(str, coords))}]" if coords else name

@@ -35,6 +35,10 @@ GROUP_MODES: dict[str, str] = {
 }
 
 
+#: what ``seed`` accepts (see :func:`rng`)
+Seed = int | np.random.Generator | None
+
+
 @dataclass(frozen=True)
 class Interval:
     """A central interval: its lower and upper probabilities and their column names."""
@@ -101,3 +105,31 @@ def check_whole(value: object, name: str, least: int = 1, example: int | None = 
         tip = f"; e.g. {name}={example}" if example is not None else ""
         raise BayesziError(f"{name} must be a whole number >= {least}, got {value!r}{tip}")
     return int(value)
+
+
+def missing_group_column(group: str) -> BayesziError:
+    """The one wording for known-group answers asked of rows that lack a grouping column.
+
+    Example
+    -------
+    >>> str(missing_group_column("reach")).split(";")[0]
+    "known-group predictions need the grouping column 'reach' in the data"
+    """
+    return BayesziError(
+        f"known-group predictions need the grouping column {group!r} in the data; add "
+        f"it, or ask for groups='new' (new {group} levels), groups='average' (averaged "
+        f"over the {group} distribution) or groups='typical' (effect 0)"
+    )
+
+
+def unseen_levels(group: str, unseen: list, rows: str, known: list[str]) -> BayesziError:
+    """The one wording for known-group answers asked of levels the fit has not seen.
+
+    ``unseen`` are the new labels, ``rows`` says where they are, ``known`` the fitted levels.
+    """
+    more = f" (and {len(known) - 20} more)" if len(known) > 20 else ""
+    return BayesziError(
+        f"grouping column {group!r} has level(s) {unseen[:10]} at row(s) {rows} that were "
+        f"not in the fitted data, so they have no estimated effect; known levels: "
+        f"{known[:20]}{more}. Use groups='new' to predict for them as new {group} levels"
+    )

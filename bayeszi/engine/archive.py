@@ -32,6 +32,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from bayeszi.base import names
 from bayeszi.base.errors import BayesziError, BayesziWarning
 from bayeszi.base.spec import ModelSpec
 from bayeszi.base.version import __version__
@@ -276,8 +277,9 @@ def _check_consistent(fitted: FitRecord, path: str, version: str) -> None:
     """The rebuilt design must match the stored draws (terms, groups, rows)."""
     post = fitted.idata.posterior
     problems = []
-    for part, pdes in (("counts", fitted.design.counts), ("zeros", fitted.design.zeros)):
-        coord = f"{part}_term"
+    for part, pdes in zip(names.PARTS, (fitted.design.counts, fitted.design.zeros),
+                          strict=True):
+        coord = names.term_dim(part)
         if pdes is None:
             continue
         stored = [str(t) for t in post.coords[coord].values] if coord in post.coords else None
@@ -288,8 +290,8 @@ def _check_consistent(fitted: FitRecord, path: str, version: str) -> None:
         if stored != g.levels:
             problems.append(f"levels of {g.name!r} differ")
     obs = fitted.idata.get("observed_data")
-    if obs is not None and "y" in obs and not np.array_equal(
-            np.asarray(obs["y"].values).reshape(-1), fitted.design.y):
+    if obs is not None and names.RESPONSE in obs and not np.array_equal(
+            np.asarray(obs[names.RESPONSE].values).reshape(-1), fitted.design.y):
         problems.append("the stored counts differ from the stored data")
     if problems:
         raise BayesziError(

@@ -20,7 +20,7 @@ from bayeszi.answers import comparison as loo_answers
 from bayeszi.answers import contrast as contrast_answers
 from bayeszi.answers import groups as group_answers
 from bayeszi.answers import predict as predict_answers
-from bayeszi.base.errors import BayesziError
+from bayeszi.base import names, options
 from bayeszi.engine import archive
 from bayeszi.engine.record import FitRecord
 from bayeszi.families import get_family
@@ -29,10 +29,9 @@ from bayeszi.plots import checkplots
 
 
 def _label(part: str, family: str, term: str) -> str:
-    fam = get_family(family)
     if part == "counts":
         return "base rate" if term == "Intercept" else "rate ratio"
-    what = "P(extra zero)" if fam.zeros_kind == "inflation" else "P(Y = 0)"
+    what = names.zeros_odds_label(family)
     return f"base odds of {what}" if term == "Intercept" else f"odds ratio of {what}"
 
 
@@ -67,53 +66,24 @@ class FittedModel(FitRecord):
         its bounds, R-hat, bulk and tail ESS and a flag. Group sds (and correlations) and the
         NB dispersion are listed too, without an exp scale.
         """
-        if not 0 < interval < 1:
-            raise BayesziError(f"interval must lie in (0, 1), got {interval!r}; e.g. 0.9")
-        lo_q, hi_q = (1 - interval) / 2, 1 - (1 - interval) / 2
-        lo_name, hi_name = f"{100 * lo_q:g}%", f"{100 * hi_q:g}%"
-        diag = self.sampling.table
+        iv = options.interval_bounds(interval)
+        rows: list[dict] = []
+        add = _RowAdder(rows, iv, self.sampling.table)
         post = self.idata.posterior
-        rows = []
-
-        def add(part: str, term: str, draws: np.ndarray, key: str, scale: str | None) -> None:
-            d = np.asarray(draws).reshape(-1)
-            lo, hi = np.quantile(d, [lo_q, hi_q])
-            row = {"part": part, "term": term, "mean": d.mean(), "sd": d.std(ddof=1),
-                   lo_name: lo, hi_name: hi, "exp scale": scale or "",
-                   "exp(mean)": np.nan, f"exp {lo_name}": np.nan, f"exp {hi_name}": np.nan}
-            if scale:
-                e = np.exp(d)
-                row["exp(mean)"] = float(e.mean())
-                row[f"exp {lo_name}"], row[f"exp {hi_name}"] = np.exp([lo, hi])
-            if key in diag.index:
-                row.update(diag.loc[key, ["r_hat", "ess_bulk", "ess_tail"]].to_dict())
-            rows.append(row)
-
         for part, pdes in (("counts", self.design.counts), ("zeros", self.design.zeros)):
             if pdes is None:
                 continue
-            var = post[f"{part}_coef"]
+            var = post[names.coef(part)]
             for term in pdes.terms:
-                add(part, term, var.sel({f"{part}_term": term}).values,
-                    f"{part}_coef[{term}]", _label(part, self.spec.family, term))
-        if "dispersion" in post:
-            add("counts", "dispersion (alpha)", post["dispersion"].values, "dispersion", None)
+                add(part, term, var.sel({names.term_dim(part): term}).values,
+                    names.summary_key(names.coef(part), term),
+                    _label(part, self.spec.family, term))
+        if names.DISPERSION in post:
+            add("counts", "dispersion (alpha)", post[names.DISPERSION].values, names.DISPERSION,
+                None)
         if groups:
             for g in self.design.groups:
-                for part in ("counts", "zeros"):
-                    name = f"{part}_sd_{g.name}"
-                    if name in post:
-                        add(part, f"sd({g.name})", post[name].values, name, None)
-                    sname = f"{part}_slope_sd_{g.name}"
-                    if sname in post:
-                        pdes = self.design.counts if part == "counts" else self.design.zeros
-                        for t in self.spec.varying.get(part, ()):
-                            j = pdes.terms.index(t)
-                            v = post[sname].sel({f"{part}_slope_term": t}).values / pdes.scale[j]
-                            add(part, f"sd({g.name}: {t})", v, f"{sname}[{t}]", None)
-                if f"corr_{g.name}" in post:
-                    add("both", f"corr({g.name})", post[f"corr_{g.name}"].values,
-                        f"corr_{g.name}", None)
+                _group_rows(self, add, g.name)
         table = pd.DataFrame(rows)
         th = self.sampling.thresholds
         table["flag"] = [_flag_for(r, th) for r in table.to_dict("records")]
@@ -153,7 +123,7 @@ class FittedModel(FitRecord):
     # (posterior predictive check methods go here; the work is done in bayeszi/checks.py
     # and the figures in bayeszi/checkplots.py)
     def zero_check(self, by: str | list | pd.Series | None = None, interval: float = 0.9,
-                   draws: int | None = None, seed: int | None = 0) -> pd.DataFrame:
+                   draws: int | None = None, seed: options.Seed = 0) -> pd.DataFrame:
         """Observed share of zeros against replicated data, overall and per group.
 
         ``by=None`` checks the fit's grouping columns; name a column the model uses, pass
@@ -167,7 +137,7 @@ class FittedModel(FitRecord):
         return check_answers.zero_check(self, by=by, interval=interval, draws=draws, seed=seed)
 
     def zero_check_plot(self, by: str | list | pd.Series | None = None, interval: float = 0.9,
-                        draws: int | None = None, seed: int | None = 0):
+                        draws: int | None = None, seed: options.Seed = 0):
         """Figure of :meth:`zero_check`: replicated zero share and the levels of one group.
 
         Example
@@ -201,7 +171,7 @@ class FittedModel(FitRecord):
                                                        draws=draws), ax=ax)
 
     def dispersion_check(self, interval: float = 0.9, draws: int | None = None,
-                         seed: int | None = 0) -> pd.DataFrame:
+                         seed: options.Seed = 0) -> pd.DataFrame:
         """Mean, variance and variance/mean of the data against replicated data sets.
 
         Example
@@ -211,7 +181,7 @@ class FittedModel(FitRecord):
         return check_answers.dispersion_check(self, interval=interval, draws=draws, seed=seed)
 
     def max_count_check(self, interval: float = 0.9, draws: int | None = None,
-                        seed: int | None = 0) -> pd.DataFrame:
+                        seed: options.Seed = 0) -> pd.DataFrame:
         """Largest observed count against the largest counts of replicated data sets.
 
         Example
@@ -220,7 +190,7 @@ class FittedModel(FitRecord):
         """
         return check_answers.max_count_check(self, interval=interval, draws=draws, seed=seed)
 
-    def replicated_statistics_plot(self, draws: int | None = None, seed: int | None = 0):
+    def replicated_statistics_plot(self, draws: int | None = None, seed: options.Seed = 0):
         """Figure: zero share, variance/mean and largest count of replicated data sets.
 
         Example
@@ -230,7 +200,7 @@ class FittedModel(FitRecord):
         stats = check_answers.replicated_statistics(self, draws=draws, seed=seed)
         return checkplots.statistics_figure(stats)
 
-    def residuals(self, method: str = "posterior", seed: int | None = 0,
+    def residuals(self, method: str = "posterior", seed: options.Seed = 0,
                   draws: int | None = None) -> pd.DataFrame:
         """Randomized quantile residuals (Dunn & Smyth 1996), one per fitted record.
 
@@ -243,7 +213,7 @@ class FittedModel(FitRecord):
         """
         return check_answers.residuals(self, method=method, seed=seed, draws=draws)
 
-    def residual_plots(self, method: str = "posterior", seed: int | None = 0,
+    def residual_plots(self, method: str = "posterior", seed: options.Seed = 0,
                        draws: int | None = None):
         """Figure: QQ plot and residual-versus-expected plot of :meth:`residuals`.
 
@@ -289,7 +259,7 @@ class FittedModel(FitRecord):
     def predict(self, data: pd.DataFrame | None = None, what: str | list[str] = "mean",
                 groups: str = "known", interval: float = 0.9, *, k: int | None = None,
                 exposure: float | None = None, n_average: int = 30,
-                draws: int | None = None, seed: int | None = None) -> pd.DataFrame:
+                draws: int | None = None, seed: options.Seed = None) -> pd.DataFrame:
         """Posterior mean, sd and interval of a quantity per row (see docs/predict.md).
 
         ``what``: mean, rate, p_zero, p_zeros_part, p_nonzero, count_part_mean, at_least
@@ -305,7 +275,7 @@ class FittedModel(FitRecord):
     def prediction_draws(self, data: pd.DataFrame | None = None, what: str = "mean",
                          groups: str = "known", *, k: int | None = None,
                          exposure: float | None = None, n_average: int = 30,
-                         draws: int | None = None, seed: int | None = None) -> Any:
+                         draws: int | None = None, seed: options.Seed = None) -> Any:
         """The draws behind :meth:`predict` as an xarray.DataArray (draw x row).
 
         Example
@@ -318,7 +288,7 @@ class FittedModel(FitRecord):
     def count_distribution(self, data: pd.DataFrame | None = None, kmax: int = 10,
                            groups: str = "known", *, exposure: float | None = None,
                            n_average: int = 30, draws: int | None = None,
-                           seed: int | None = None) -> pd.DataFrame:
+                           seed: options.Seed = None) -> pd.DataFrame:
         """Posterior predictive P(Y = 0..kmax) and P(Y > kmax) per row.
 
         Example
@@ -333,7 +303,7 @@ class FittedModel(FitRecord):
                  what: str = "mean", groups: str = "known", interval: float = 0.9,
                  combine: str | None = None, k: int | None = None,
                  exposure: float | None = None, n_average: int = 30,
-                 draws: int | None = None, seed: int | None = None) -> pd.DataFrame:
+                 draws: int | None = None, seed: options.Seed = None) -> pd.DataFrame:
         """Ratio and difference of a quantity, scenario vs base, with P(ratio > 1).
 
         Example
@@ -350,7 +320,7 @@ class FittedModel(FitRecord):
                            levels: tuple[str, str] | None = None, pairs: int = 10_000,
                            k: int | None = None, exposure: float | None = None,
                            n_average: int = 30, draws: int | None = None,
-                           seed: int | None = None) -> pd.DataFrame:
+                           seed: options.Seed = None) -> pd.DataFrame:
         """Average predictive comparison of one input (Gelman & Pardoe 2007).
 
         Example
@@ -366,6 +336,49 @@ class FittedModel(FitRecord):
     def save(self, path: str) -> str:
         """Write the fit to one netCDF file (draws, spec, design data); returns the path."""
         return archive.save(self, path)
+
+
+class _RowAdder:
+    """Appends one coefficient-table row per call: summaries of the draws, the exp scale
+    when ``scale`` names it, and the diagnostics of ``key``."""
+
+    def __init__(self, rows: list[dict], iv: options.Interval, diag: pd.DataFrame) -> None:
+        self.rows, self.iv, self.diag = rows, iv, diag
+
+    def __call__(self, part: str, term: str, draws: np.ndarray, key: str,
+                 scale: str | None) -> None:
+        lo_name, hi_name = self.iv.names
+        d = np.asarray(draws).reshape(-1)
+        lo, hi = np.quantile(d, [self.iv.lower, self.iv.upper])
+        row = {"part": part, "term": term, "mean": d.mean(), "sd": d.std(ddof=1),
+               lo_name: lo, hi_name: hi, "exp scale": scale or "",
+               "exp(mean)": np.nan, f"exp {lo_name}": np.nan, f"exp {hi_name}": np.nan}
+        if scale:
+            e = np.exp(d)
+            row["exp(mean)"] = float(e.mean())
+            row[f"exp {lo_name}"], row[f"exp {hi_name}"] = np.exp([lo, hi])
+        if key in self.diag.index:
+            row.update(self.diag.loc[key, ["r_hat", "ess_bulk", "ess_tail"]].to_dict())
+        self.rows.append(row)
+
+
+def _group_rows(m: FitRecord, add: _RowAdder, group: str) -> None:
+    """The coefficient-table rows of one grouping column: sds (and correlation)."""
+    post = m.idata.posterior
+    for part in names.PARTS:
+        name = names.group_sd(part, group)
+        if name in post:
+            add(part, f"sd({group})", post[name].values, name, None)
+        sname = names.slope_sd(part, group)
+        if sname in post:
+            pdes = m.design.counts if part == "counts" else m.design.zeros
+            for t in m.spec.varying.get(part, ()):
+                j = pdes.terms.index(t)
+                v = post[sname].sel({names.slope_term_dim(part): t}).values / pdes.scale[j]
+                add(part, f"sd({group}: {t})", v, names.summary_key(sname, t), None)
+    if names.corr(group) in post:
+        add("both", f"corr({group})", post[names.corr(group)].values, names.corr(group),
+            None)
 
 
 def _flag_for(row: dict, th: Any) -> str:
@@ -389,10 +402,8 @@ def format_fit(m: FittedModel) -> str:
         + (f" + log({m.spec.exposure})" if m.spec.exposure else "")
         + (f" + {m.spec.offset} (offset)" if m.spec.offset else ""),
     ]
-    if fam.zeros_kind == "inflation":
-        lines.append(f"  zeros part: logit P(extra zero) ~ {m.spec.zeros_rhs}")
-    elif fam.zeros_kind == "hurdle":
-        lines.append(f"  zeros part: logit P(Y = 0) ~ {m.spec.zeros_rhs}")
+    if fam.zeros_kind is not None:
+        lines.append(f"  zeros part: logit {names.zeros_label(fam.name)} ~ {m.spec.zeros_rhs}")
     if m.design.groups:
         lines.append("  groups: " + ", ".join(
             f"{g.name} ({len(g.levels)} levels)" for g in m.design.groups))

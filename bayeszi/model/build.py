@@ -28,6 +28,7 @@ import numpy as np
 import pymc as pm
 import pytensor.tensor as pt
 
+from bayeszi.base import names
 from bayeszi.families import get_family
 from bayeszi.model.design import Design, GroupDesign, PartDesign
 from bayeszi.model.patterns import Likelihood, find_patterns, pattern_logp, pattern_random
@@ -63,15 +64,15 @@ def _dist(name: str, p: Prior, dims: str | tuple[str, ...] | None = None,
 
 
 def _coefficients(part: str, pdes: PartDesign, priors: dict[str, Prior]):
-    name = f"{part}_std_coef"
-    dims = f"{part}_term"
+    name = names.std_coef(part)
+    dims = names.term_dim(part)
     plist = [priors[t] for t in pdes.terms]
     if all(p.dist == "normal" for p in plist):
         mu = np.array([p.a for p in plist])
         sd = np.array([p.b for p in plist])
         return pm.Normal(name, mu=mu, sigma=sd, dims=dims)
     # Mixed families of priors: one raw variable per term, stacked.
-    raws = [_dist(f"{part}_std_coef_{j}", p) for j, p in enumerate(plist)]
+    raws = [_dist(names.std_coef_raw(part, j), p) for j, p in enumerate(plist)]
     return pm.Deterministic(name, pt.stack(raws), dims=dims)
 
 
@@ -84,14 +85,14 @@ def _correlated_intercepts(g: GroupDesign, priors: PriorSet):
     like the z's). The effects are ``sd_c z_c`` and ``sd_z (rho z_c + sqrt(1 - rho^2) z_z)``
     with independent standard normal z's: correlation rho, sds sd_c and sd_z.
     """
-    sd_c = _dist(f"counts_sd_{g.name}", priors.group_sd["counts"])
-    sd_z = _dist(f"zeros_sd_{g.name}", priors.group_sd["zeros"])
-    half = pm.Beta(f"z_corr_{g.name}", alpha=priors.lkj_eta, beta=priors.lkj_eta)
-    rho = pm.Deterministic(f"corr_{g.name}", 2.0 * half - 1.0)
-    zc = pm.Normal(f"counts_z_{g.name}", 0.0, 1.0, dims=g.name)
-    zz = pm.Normal(f"zeros_z_{g.name}", 0.0, 1.0, dims=g.name)
-    ec = pm.Deterministic(f"counts_effect_{g.name}", sd_c * zc, dims=g.name)
-    ez = pm.Deterministic(f"zeros_effect_{g.name}",
+    sd_c = _dist(names.group_sd("counts", g.name), priors.group_sd["counts"])
+    sd_z = _dist(names.group_sd("zeros", g.name), priors.group_sd["zeros"])
+    half = pm.Beta(names.corr_raw(g.name), alpha=priors.lkj_eta, beta=priors.lkj_eta)
+    rho = pm.Deterministic(names.corr(g.name), 2.0 * half - 1.0)
+    zc = pm.Normal(names.group_raw("counts", g.name), 0.0, 1.0, dims=g.name)
+    zz = pm.Normal(names.group_raw("zeros", g.name), 0.0, 1.0, dims=g.name)
+    ec = pm.Deterministic(names.effect("counts", g.name), sd_c * zc, dims=g.name)
+    ez = pm.Deterministic(names.effect("zeros", g.name),
                           sd_z * (rho * zc + pt.sqrt(1.0 - rho**2) * zz), dims=g.name)
     return ec, ez
 
@@ -102,10 +103,10 @@ def _slopes(part: str, pdes: PartDesign, terms: tuple[str, ...], g: GroupDesign,
     linear predictor gains ``sum_t slope[group, t] * x_std[:, t]``."""
     idx = [pdes.terms.index(t) for t in terms]
     Xs = pt.as_tensor_variable(pdes.X_std[:, idx])
-    dims = (g.name, f"{part}_slope_term")
-    sd = _dist(f"{part}_slope_sd_{g.name}", prior, dims=f"{part}_slope_term")
-    z = pm.Normal(f"{part}_slope_z_{g.name}", 0.0, 1.0, dims=dims)
-    slope = pm.Deterministic(f"{part}_slope_{g.name}", z * sd, dims=dims)
+    dims = (g.name, names.slope_term_dim(part))
+    sd = _dist(names.slope_sd(part, g.name), prior, dims=names.slope_term_dim(part))
+    z = pm.Normal(names.slope_raw(part, g.name), 0.0, 1.0, dims=dims)
+    slope = pm.Deterministic(names.slope(part, g.name), z * sd, dims=dims)
     return pt.sum(slope[codes] * Xs, axis=1)
 
 
@@ -160,25 +161,30 @@ def centred_levels(design: Design, part: str = "counts") -> dict[str, np.ndarray
             or pdes.intercept is None or len(design.groups[0].levels) < 3:
         return {}
     g = design.groups[0]
-    J = len(g.levels)
-    y = design.y.astype(float)
-    n = np.bincount(g.codes, minlength=J).astype(float)
-    if part == "counts":
-        e = np.exp(design.log_offset)
-        total = np.bincount(g.codes, weights=y, minlength=J) + 0.5
-        m = total / np.bincount(g.codes, weights=e, minlength=J)
-        est = np.log(m)
-        var = (np.bincount(g.codes, weights=(y - m[g.codes] * e) ** 2, minlength=J)
-               + 0.5) / total**2
-    else:
-        p = (np.bincount(g.codes, weights=(y == 0).astype(float), minlength=J) + 0.5) / (n + 1)
-        est = np.log(p / (1 - p))
-        var = ZEROS_DILUTION / ((n + 1) * p * (1 - p))
+    n = np.bincount(g.codes, minlength=len(g.levels)).astype(float)
+    est, var = _level_moments(design, g, part, n)
     between = float(np.var(est, ddof=1) - np.mean(var))
     if not between > 0:
         return {}
     mask = (var < between / CENTRE_MARGIN) & (n >= CENTRE_MIN_RECORDS)
     return {g.name: mask} if mask.any() else {}
+
+
+def _level_moments(design: Design, g: GroupDesign, part: str, n: np.ndarray
+                   ) -> tuple[np.ndarray, np.ndarray]:
+    """Per level of ``g``: a crude intercept of ``part`` and its sampling variance, by
+    moments and without covariates (see :func:`centred_levels`); ``n`` records per level."""
+    J = len(g.levels)
+    y = design.y.astype(float)
+    if part == "counts":
+        e = np.exp(design.log_offset)
+        total = np.bincount(g.codes, weights=y, minlength=J) + 0.5
+        m = total / np.bincount(g.codes, weights=e, minlength=J)
+        var = (np.bincount(g.codes, weights=(y - m[g.codes] * e) ** 2, minlength=J)
+               + 0.5) / total**2
+        return np.log(m), var
+    p = (np.bincount(g.codes, weights=(y == 0).astype(float), minlength=J) + 0.5) / (n + 1)
+    return np.log(p / (1 - p)), ZEROS_DILUTION / ((n + 1) * p * (1 - p))
 
 
 def group_level_columns(pdes: PartDesign, g: GroupDesign) -> tuple[np.ndarray, np.ndarray]:
@@ -212,17 +218,18 @@ def _intercepts(part: str, g: GroupDesign, sd, centre, centred: np.ndarray | Non
     with ``centre`` (one value per level) the part's intercept plus its group-level
     predictors (:func:`group_level_columns`)."""
     if centred is None:
-        z = pm.Normal(f"{part}_z_{g.name}", 0.0, 1.0, dims=g.name)
-        return pm.Deterministic(f"{part}_effect_{g.name}", sd * z, dims=g.name)
+        z = pm.Normal(names.group_raw(part, g.name), 0.0, 1.0, dims=g.name)
+        return pm.Deterministic(names.effect(part, g.name), sd * z, dims=g.name)
     rich, poor = np.flatnonzero(centred), np.flatnonzero(~centred)
-    level = pm.Normal(f"{part}_level_{g.name}", centre[rich], sd,
-                      dims=f"{part}_{g.name}_centred")
+    level = pm.Normal(names.level(part, g.name), centre[rich], sd,
+                      dims=names.centred_dim(part, g.name))
     eff = pt.zeros(len(g.levels))
     eff = pt.set_subtensor(eff[rich], level - centre[rich])
     if poor.size:
-        z = pm.Normal(f"{part}_z_{g.name}", 0.0, 1.0, dims=f"{part}_{g.name}_noncentred")
+        z = pm.Normal(names.group_raw(part, g.name), 0.0, 1.0,
+                      dims=names.noncentred_dim(part, g.name))
         eff = pt.set_subtensor(eff[poor], sd * z)
-    return pm.Deterministic(f"{part}_effect_{g.name}", eff, dims=g.name)
+    return pm.Deterministic(names.effect(part, g.name), eff, dims=g.name)
 
 
 def _group_terms(design: Design, priors: PriorSet, g: GroupDesign, eta_c, eta_z,
@@ -243,7 +250,7 @@ def _group_terms(design: Design, priors: PriorSet, g: GroupDesign, eta_c, eta_z,
         eta_z = eta_z + ez[codes]
     else:
         for part in parts:
-            sd = _dist(f"{part}_sd_{g.name}", priors.group_sd[part])
+            sd = _dist(names.group_sd(part, g.name), priors.group_sd[part])
             mask = (centred or {}).get(part)
             eff = _intercepts(part, g, sd, (centres or {}).get(part), mask)
             if part == "counts":
@@ -278,22 +285,22 @@ def build_model(design: Design, priors: PriorSet) -> BuiltModel:
     """Return the PyMC model of ``design`` under ``priors`` (see module example)."""
     spec = design.spec
     fam = get_family(spec.family)
-    coords: dict[str, list[str]] = {"counts_term": design.counts.terms,
+    coords: dict[str, list[str]] = {names.term_dim("counts"): design.counts.terms,
                                     "obs": [str(i) for i in range(design.n)]}
     if design.zeros is not None:
-        coords["zeros_term"] = design.zeros.terms
+        coords[names.term_dim("zeros")] = design.zeros.terms
     for g in design.groups:
         coords[g.name] = g.levels
     for part, terms in spec.varying.items():
-        coords[f"{part}_slope_term"] = list(terms)
+        coords[names.slope_term_dim(part)] = list(terms)
     # which levels get centred intercepts: decided on the records, before pooling
     centred = {part: centred_levels(design, part) for part in ("counts", "zeros")}
     for part, masks in centred.items():
         for name, mask in masks.items():
             levels = np.asarray(coords[name], dtype=object)
-            coords[f"{part}_{name}_centred"] = list(levels[mask])
+            coords[names.centred_dim(part, name)] = list(levels[mask])
             if not mask.all():
-                coords[f"{part}_{name}_noncentred"] = list(levels[~mask])
+                coords[names.noncentred_dim(part, name)] = list(levels[~mask])
     # Everything below works on patterns of identical records (see bayeszi/patterns.py):
     # one row per distinct record when records repeat, else one per record, zeros first.
     patterns = find_patterns(design)
@@ -315,9 +322,9 @@ def build_model(design: Design, priors: PriorSet) -> BuiltModel:
             centres = {part: _level_centre(*coefs[part], g) for part in masks}
             eta_c, eta_z = _group_terms(design, priors, g, eta_c, eta_z, centres, masks)
         if fam.has_dispersion:
-            sqrt_alpha = _dist("dispersion_sqrt", priors.dispersion)
+            sqrt_alpha = _dist(names.DISPERSION_SQRT, priors.dispersion)
             log_alpha = 2.0 * pt.log(sqrt_alpha)
-            pm.Deterministic("dispersion", sqrt_alpha**2)
+            pm.Deterministic(names.DISPERSION, sqrt_alpha**2)
         else:
             log_alpha = pt.as_tensor_variable(np.zeros(1))
 
@@ -325,7 +332,7 @@ def build_model(design: Design, priors: PriorSet) -> BuiltModel:
         # The density sums each pattern once, weighted by its records; the pointwise
         # log-likelihood per record is computed after sampling, in NumPy
         # (bayeszi.engine.pointwise.pattern_log_likelihood, called by bayeszi.engine.fit).
-        pm.CustomDist("y", eta_c, eta_z, log_alpha,
+        pm.CustomDist(names.RESPONSE, eta_c, eta_z, log_alpha,
                       logp=pattern_logp(fam.name, patterns),
                       random=pattern_random(fam.name, patterns),
                       observed=design.y[patterns.inverse], dims="obs", dtype="int64")

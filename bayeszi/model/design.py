@@ -29,6 +29,7 @@ import pandas as pd
 from formulaic import Formula, model_matrix
 from formulaic.errors import FormulaicError
 
+from bayeszi.base import names
 from bayeszi.base.errors import BayesziError
 from bayeszi.base.spec import ModelSpec
 from bayeszi.families import get_family
@@ -200,7 +201,7 @@ def _warn_far_outside(data: pd.DataFrame, ranges: dict[str, tuple[float, float]]
         out = (v < lo - width) | (v > hi + width)
         if out.any():
             far.append(f"{col!r} (fitted range {lo:.4g} to {hi:.4g}; e.g. {v[out][0]:.4g} at "
-                       f"row(s) {V._rows(data.index, out)})")
+                       f"row(s) {V.rows_text(data.index, out)})")
     if far:
         warnings.warn(
             "new values far outside the range of the fitted data in " + "; ".join(far)
@@ -279,7 +280,7 @@ def _part(part: str, rhs: str, data: pd.DataFrame) -> PartDesign:
         cols = [t for t, ok in zip(terms, np.all(np.isfinite(X), axis=0), strict=True) if not ok]
         raise BayesziError(
             f"{part} formula '~ {rhs}' gives non-finite values in term(s) {cols} at row(s) "
-            f"{V._rows(data.index, bad)} (e.g. log of zero); transform the data first"
+            f"{V.rows_text(data.index, bad)} (e.g. log of zero); transform the data first"
         )
     intercept = terms.index("Intercept") if "Intercept" in terms else None
     center = np.zeros(X.shape[1])
@@ -350,8 +351,8 @@ def _check_group_labels(data: pd.DataFrame, columns: list[str]) -> None:
         if bad.any():
             raise BayesziError(
                 f"grouping column {c!r} has {int(bad.sum())} missing or blank label(s), first at "
-                f"row(s) {V._rows(data.index, bad)}; a record without a group cannot share in its "
-                "group's effect. Drop those rows, or give them a label of their own (e.g. "
+                f"row(s) {V.rows_text(data.index, bad)}; a record without a group cannot share "
+                "in its group's effect. Drop those rows, or give them a label of their own (e.g. "
                 "'unknown'), which the model then treats as one more group"
             )
 
@@ -543,7 +544,7 @@ def _check_separation(y: np.ndarray, counts: PartDesign, zeros: PartDesign | Non
     zero = y == 0
     notes = []
     if zeros is not None and 0 < zero.sum() < len(y):
-        what = "P(Y = 0)" if zeros_kind == "hurdle" else "P(extra zero)"
+        what = names.ZEROS_LABELS["hurdle" if zeros_kind == "hurdle" else "inflation"]
         for j, term in enumerate(zeros.terms):
             if j == zeros.intercept:
                 continue

@@ -21,6 +21,7 @@ import arviz as az
 import numpy as np
 import pandas as pd
 
+from bayeszi.base import names as var_names
 from bayeszi.base.errors import BayesziWarning
 
 
@@ -32,23 +33,17 @@ class Thresholds:
     ess: float = 400.0
 
 
-#: Name prefixes of the raw variables bayeszi.model.build samples for group effects (standard
-#: normals, correlation transforms, centred levels); their effects are diagnosed instead.
-_RAW_PREFIXES = tuple(f"{part}_{kind}_" for part in ("counts", "zeros")
-                      for kind in ("z", "slope_z", "level")) + ("z_",)
-
-
 def parameter_names(idata: az.InferenceData) -> list[str]:
-    """The posterior variables worth diagnosing (skips raw non-centred z's and centred
-    levels, whose effects are diagnosed instead)."""
-    names = []
+    """The posterior variables worth diagnosing: all but the raw variables the model samples
+    for group effects and coefficients (:func:`bayeszi.base.names.is_raw`: standard normals,
+    correlation transforms, centred levels, internal-scale coefficients), whose effects and
+    user-scale coefficients are diagnosed instead."""
+    out = []
     for v in map(str, idata.posterior.data_vars):
         # by prefix: a grouping column's own name (say 'zone_z_1') must not hide its effects
-        if v.startswith(_RAW_PREFIXES) or "_chol" in v or v.endswith("_std_coef") \
-                or "_std_coef_" in v:
-            continue
-        names.append(v)
-    return names
+        if not var_names.is_raw(v):
+            out.append(v)
+    return out
 
 
 @dataclass(frozen=True)

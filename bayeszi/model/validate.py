@@ -16,10 +16,18 @@ from collections.abc import Iterable, Sequence
 import numpy as np
 import pandas as pd
 
+from bayeszi.base import names
 from bayeszi.base.errors import BayesziError, BayesziWarning
 
 
-def _rows(index: pd.Index, mask: np.ndarray, most: int = 5) -> str:
+def rows_text(index: pd.Index, mask: np.ndarray, most: int = 5) -> str:
+    """The row labels where ``mask`` holds, at most ``most`` of them, for messages.
+
+    Example
+    -------
+    >>> rows_text(pd.Index(list("abcdefg")), np.array([1, 0, 1, 1, 1, 1, 1, 1][:7], bool))
+    'a, c, d, e, f and 1 more'
+    """
     labels = list(index[np.asarray(mask)][:most])
     more = int(np.sum(mask)) - len(labels)
     text = ", ".join(str(v) for v in labels)
@@ -88,8 +96,8 @@ def check_kinds(data: pd.DataFrame, columns: Sequence[str], role: str) -> None:
             if odd.any():
                 raise BayesziError(
                     f"column {c!r} ({role}) holds lists, tuples, dicts or bytes in its cells, "
-                    f"first at row(s) {_rows(data.index, odd)}; each cell must be one number or "
-                    "one text label"
+                    f"first at row(s) {rows_text(data.index, odd)}; each cell must be one number "
+                    "or one text label"
                 )
 
 
@@ -103,7 +111,7 @@ def check_finite(data: pd.DataFrame, columns: Sequence[str], role: str) -> None:
         if bad.any():
             raise BayesziError(
                 f"column {c!r} ({role}) has {int(bad.sum())} missing or infinite value(s), "
-                f"first at row(s) {_rows(data.index, bad)}; drop or fill those rows first"
+                f"first at row(s) {rows_text(data.index, bad)}; drop or fill those rows first"
             )
 
 
@@ -131,13 +139,13 @@ def check_response(data: pd.DataFrame, column: str, zeros_kind: str | None) -> n
     if neg.any():
         raise BayesziError(
             f"response column {column!r} has negative values at row(s) "
-            f"{_rows(data.index, neg)}; counts must be 0, 1, 2, ..."
+            f"{rows_text(data.index, neg)}; counts must be 0, 1, 2, ..."
         )
     frac = y != np.round(y)
     if frac.any():
         raise BayesziError(
             f"response column {column!r} has non-integer values at row(s) "
-            f"{_rows(data.index, frac)}; counts must be whole numbers (if these are rates, "
+            f"{rows_text(data.index, frac)}; counts must be whole numbers (if these are rates, "
             "give the raw counts and put the effort in exposure=)"
         )
     if y.max() > 2**53:
@@ -155,7 +163,7 @@ def check_response(data: pd.DataFrame, column: str, zeros_kind: str | None) -> n
         if zeros_kind == "hurdle":
             raise BayesziError(
                 f"response column {column!r} has no zeros, so a hurdle family cannot estimate "
-                "P(Y = 0); use 'poisson' or 'negbin' instead"
+                f"{names.PROB_ZERO}; use 'poisson' or 'negbin' instead"
             )
         if zeros_kind == "inflation":
             warnings.warn(
@@ -181,7 +189,8 @@ def check_exposure(data: pd.DataFrame, column: str) -> np.ndarray:
     if bad.any():
         raise BayesziError(
             f"exposure column {column!r} has missing, zero or negative values at row(s) "
-            f"{_rows(data.index, bad)}; effort must be positive. Drop those rows or fix the effort"
+            f"{rows_text(data.index, bad)}; effort must be positive. Drop those rows or fix the "
+            "effort"
         )
     return e
 
@@ -197,7 +206,7 @@ def check_offset(data: pd.DataFrame, column: str) -> np.ndarray:
     if bad.any():
         raise BayesziError(
             f"offset column {column!r} has missing or infinite values at row(s) "
-            f"{_rows(data.index, bad)}; an offset is a log effort, so a zero effort gives -inf: "
-            "drop those rows"
+            f"{rows_text(data.index, bad)}; an offset is a log effort, so a zero effort gives "
+            "-inf: drop those rows"
         )
     return o

@@ -21,7 +21,8 @@ from matplotlib.figure import Figure
 from scipy import stats
 
 from bayeszi.answers.checks import model_label
-from bayeszi.families import get_family
+from bayeszi.base import names, options
+from bayeszi.base.errors import BayesziError
 
 __all__ = [
     "residual_figure",
@@ -81,7 +82,7 @@ def rootogram_figure(table: pd.DataFrame, ax: Axes | None = None) -> Figure:
     if ax is None:
         fig = _new_figure(7.5, 4.6)
         ax = fig.add_subplot(1, 1, 1)
-        kind = get_family(family).zeros_kind if family else None
+        kind = names.zero_mechanism(family) if family else None
         source = "combine both parts" if kind else "come from the counts part"
         _subtitle(fig, family, f"expected frequencies {source}; bars hang from the "
                                "expected curve")
@@ -117,8 +118,7 @@ def rootogram_figure(table: pd.DataFrame, ax: Axes | None = None) -> Figure:
 
 
 def _interval_names(interval: float) -> tuple[str, str]:
-    lo, hi = (1 - interval) / 2, 1 - (1 - interval) / 2
-    return f"{100 * lo:g}%", f"{100 * hi:g}%"
+    return options.interval_bounds(interval).names
 
 
 # =============================================================================================
@@ -200,13 +200,13 @@ def statistics_figure(reps: pd.DataFrame,
 
 
 def _zeros_origin(family: str | None) -> str:
-    kind = get_family(family).zeros_kind if family else None
+    kind = names.zero_mechanism(family) if family else None
+    origin = names.zeros_origin(family or None)
     if kind == "inflation":
-        return ("zeros come from both parts (extra zeros and count-process zeros); "
-                "the check compares all zeros with the model")
+        return f"{origin}; the check compares all zeros with the model"
     if kind == "hurdle":
-        return "every zero comes from the zeros part, which models P(Y = 0) directly"
-    return "every zero comes from the count process (no zeros part)"
+        return origin
+    return f"{origin} (no zeros part)"
 
 
 def zero_check_figure(table: pd.DataFrame, group: str | None = None) -> Figure:
@@ -223,9 +223,6 @@ def zero_check_figure(table: pd.DataFrame, group: str | None = None) -> Figure:
     -------
     >>> fig = zero_check_figure(zero_check(m, by="site"))           # doctest: +SKIP
     """
-    interval = table.attrs.get("interval", 0.9)
-    lo_name, hi_name = _interval_names(interval)
-    lo_col, hi_col = f"replicated {lo_name}", f"replicated {hi_name}"
     groups = [g for g in dict.fromkeys(table["group"]) if g != "all records"]
     if group is None and groups:
         group = groups[0]
@@ -244,15 +241,22 @@ def zero_check_figure(table: pd.DataFrame, group: str | None = None) -> Figure:
     if not two:
         return fig
     if group not in groups:
-        from bayeszi.base.errors import BayesziError
-
         raise BayesziError(f"group {group!r} is not in the zero-check table; it has {groups}")
+    _levels_panel(fig.add_subplot(1, 2, 2), table, group)
+    return fig
+
+
+def _levels_panel(ax: Axes, table: pd.DataFrame, group: str) -> None:
+    """Per level of ``group`` (at most :data:`MAX_LEVELS_SHOWN`, the most extreme): the
+    replicated interval, the expected share and the observed share."""
+    interval = table.attrs.get("interval", 0.9)
+    lo_name, hi_name = _interval_names(interval)
+    lo_col, hi_col = f"replicated {lo_name}", f"replicated {hi_name}"
     part = table[table["group"] == group].copy()
     n_levels = len(part)
     part = part.assign(_extreme=np.abs(part["tail prob"] - 0.5))
     part = part.nlargest(MAX_LEVELS_SHOWN, "_extreme") if n_levels > MAX_LEVELS_SHOWN else part
     part = part.sort_values("observed share")
-    ax = fig.add_subplot(1, 2, 2)
     yy = np.arange(len(part))
     ax.hlines(yy, part[lo_col], part[hi_col], color="#b8b8b8", linewidth=3.0,
               label=f"{interval:.0%} of replicated data sets")
@@ -269,7 +273,6 @@ def zero_check_figure(table: pd.DataFrame, group: str | None = None) -> Figure:
     ax.legend(fontsize=7, frameon=False, loc="upper center", bbox_to_anchor=(0.5, -0.12),
               ncols=2)
     ax.grid(axis="x", color="#e5e5e5", linewidth=0.5)
-    return fig
 
 
 # =============================================================================================

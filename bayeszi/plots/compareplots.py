@@ -21,6 +21,7 @@ from pathlib import Path
 import matplotlib.pyplot as plt
 import numpy as np
 import pandas as pd
+from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 
 from bayeszi.base.errors import BayesziError
@@ -48,6 +49,24 @@ def plot_comparison(table: pd.DataFrame, title: str | None = None,
     -------
     >>> fig = plot_comparison(bayeszi.compare(fits))    # doctest: +SKIP
     """
+    _check_table(table)
+    t = table.sort_values("elpd_diff", ascending=False)
+    n = len(t)
+    ypos = np.arange(n)[::-1]
+    fig, (ax, axw) = plt.subplots(1, 2, figsize=(8.5, 1.3 + 0.5 * n), sharey=True,
+                                  layout="constrained",
+                                  gridspec_kw={"width_ratios": [3.2, 1.0]})
+    _elpd_panel(ax, t, ypos, table.attrs.get("k_threshold", 0.7))
+    _weight_panel(axw, t, ypos)
+    head = title or (f"Predictive accuracy by PSIS-LOO ({table.attrs.get('n_rows', '?')} rows;"
+                     " higher is better)")
+    fig.suptitle(head, fontsize=10.5, color=INK, x=0.02, ha="left")
+    if path is not None:
+        _save(fig, Path(path), dpi)
+    return fig
+
+
+def _check_table(table: object) -> None:
     if not isinstance(table, pd.DataFrame):
         raise BayesziError("plot_comparison() draws the DataFrame returned by bayeszi.compare()")
     missing = [c for c in _NEEDED if c not in table.columns]
@@ -56,12 +75,10 @@ def plot_comparison(table: pd.DataFrame, title: str | None = None,
                            "by bayeszi.compare() unchanged")
     if len(table) < 2:
         raise BayesziError("plot_comparison() needs at least two models")
-    t = table.sort_values("elpd_diff", ascending=False)
-    n = len(t)
-    ypos = np.arange(n)[::-1]
-    fig, (ax, axw) = plt.subplots(1, 2, figsize=(8.5, 1.3 + 0.5 * n), sharey=True,
-                                  layout="constrained",
-                                  gridspec_kw={"width_ratios": [3.2, 1.0]})
+
+
+def _elpd_panel(ax: Axes, t: pd.DataFrame, ypos: np.ndarray, k_threshold: float) -> None:
+    """Per model: the elpd difference to the best with 1 and 2 se bars, and notes."""
     for yv, (_, row) in zip(ypos, t.iterrows(), strict=True):
         d, s = float(row["elpd_diff"]), float(row["diff_se"])
         open_ = _unresolved(row) > 0
@@ -72,7 +89,7 @@ def plot_comparison(table: pd.DataFrame, title: str | None = None,
                 markerfacecolor="white" if open_ else colour, markeredgewidth=1.8, zorder=3)
         notes = []
         if open_:
-            notes.append(f"k > {table.attrs.get('k_threshold', 0.7):g}: {_unresolved(row)} rows")
+            notes.append(f"k > {k_threshold:g}: {_unresolved(row)} rows")
         if row["sampler"] != "ok":
             notes.append(f"sampler: {row['sampler']}")
         if int(row["exact_rows"]):
@@ -91,6 +108,10 @@ def plot_comparison(table: pd.DataFrame, title: str | None = None,
         ax.spines[side].set_visible(False)
     ax.grid(axis="x", color="#e6e6e6", lw=0.6)
     ax.set_axisbelow(True)
+
+
+def _weight_panel(axw: Axes, t: pd.DataFrame, ypos: np.ndarray) -> None:
+    """Stacking weights as horizontal bars, each with its value."""
     w = t["weight"].to_numpy(dtype=float)
     axw.barh(ypos, w, height=0.5, color=INK, alpha=0.85)
     for yv, wv in zip(ypos, w, strict=True):
@@ -103,12 +124,6 @@ def plot_comparison(table: pd.DataFrame, title: str | None = None,
     for side in ("top", "right", "left"):
         axw.spines[side].set_visible(False)
     axw.tick_params(left=False)
-    head = title or (f"Predictive accuracy by PSIS-LOO ({table.attrs.get('n_rows', '?')} rows;"
-                     " higher is better)")
-    fig.suptitle(head, fontsize=10.5, color=INK, x=0.02, ha="left")
-    if path is not None:
-        _save(fig, Path(path), dpi)
-    return fig
 
 
 def _save(fig: Figure, path: Path, dpi: int) -> None:
