@@ -157,9 +157,9 @@ def _predict(args: argparse.Namespace) -> int:
 
 def _report(args: argparse.Namespace) -> int:
     from bayeszi.app.report import report_saved
+    from bayeszi.base.options import interval_bounds
 
-    if not 0 < args.interval < 1:
-        raise BayesziError(f"--interval must lie strictly between 0 and 1, got {args.interval}")
+    interval_bounds(args.interval, name="--interval")
     dest = report_saved(args.saved, args.out, command=args.command_line, title=args.title,
                         interval=args.interval, progress=args.console)
     print(os.path.join(dest, "report.html"))

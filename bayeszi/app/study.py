@@ -34,6 +34,7 @@ from typing import Any
 import pandas as pd
 
 from bayeszi.base.errors import BayesziError
+from bayeszi.base.options import GROUP_MODES, check_group_mode
 from bayeszi.base.spec import ModelSpec, SamplerSettings
 from bayeszi.fitting.candidates import Candidate, CheckedCandidates, check_candidates
 
@@ -47,7 +48,7 @@ MODEL_KEYS = ("name", "family", "counts", "zeros", "groups", "varying", "nested"
 MODEL_SAMPLER_KEYS = ("draws", "tune", "target_accept")
 SCENARIO_KEYS = ("name", "values", "vary", "groups")
 CONTRAST_KEYS = ("name", "scenario", "change")
-SCENARIO_GROUPS = ("new", "known", "average", "typical")
+SCENARIO_GROUPS = tuple(GROUP_MODES)
 _NAME = re.compile(r"^[A-Za-z0-9][^\x00-\x1f/\\]{0,79}$")
 
 
@@ -107,7 +108,8 @@ class Scenario:
     ``values`` fixes columns to one value each; ``vary`` gives one column a list of values
     (one prediction row per value). ``groups`` says which group effects to use: ``"new"`` a
     group not in the data (drawn from the population), ``"known"`` the group named in
-    ``values`` or ``"none"`` the population centre.
+    ``values``, ``"average"`` the average over new groups, ``"typical"`` the population
+    centre (group effects of 0); see :data:`bayeszi.base.options.GROUP_MODES`.
     """
 
     name: str
@@ -522,9 +524,10 @@ def _scenario(s: dict[str, Any], where: str, response: str) -> Scenario:
     if not values and not vary_t:
         raise BayesziError(f"{where} sets no predictor values; add values = {{ ... }}")
     groups = s.get("groups", "new")
-    if groups not in SCENARIO_GROUPS:
-        raise BayesziError(f"'groups' in {where} must be one of {', '.join(SCENARIO_GROUPS)}, "
-                           f"got {groups!r}")
+    try:
+        check_group_mode(groups)
+    except BayesziError as err:
+        raise BayesziError(f"{where}: {err}") from None
     return Scenario(name, values, vary_t, groups)
 
 

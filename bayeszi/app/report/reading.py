@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 
 from bayeszi.app.report.document import format_number
+from bayeszi.base import names
 from bayeszi.families import get_family
 
 if TYPE_CHECKING:
@@ -88,7 +89,7 @@ def reading_lines(f: FittedModel, coefficients: pd.DataFrame, interval: float = 
                        f"{F_(r[ehi])}); {d}.")
         share = _mean_zeros_part(f)
         if share is not None:
-            what = "P(extra zero)" if fam.zeros_kind == "inflation" else "P(Y = 0)"
+            what = names.zeros_label(fam.name)
             out.append(f"Averaged over the records, the zeros part puts {what} at "
                        f"{100 * share:.1f}%.")
     disp = table[table["term"] == "dispersion (alpha)"]

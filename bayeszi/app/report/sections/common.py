@@ -18,7 +18,7 @@ import pandas as pd
 from bayeszi.app.report.context import ReportInput
 from bayeszi.app.report.document import Table, Text
 from bayeszi.app.report.write import slug
-from bayeszi.families import get_family
+from bayeszi.base import names
 
 #: Most rows of a long table shown in the page (all rows are in its CSV file).
 SHOWN_ROWS = 25
@@ -44,12 +44,7 @@ def interval_labels(interval: float) -> tuple[str, str]:
 
 def zeros_label(family: str) -> str:
     """What the zeros part of ``family`` models, or ``"none"``."""
-    kind = get_family(family).zeros_kind
-    if kind == "inflation":
-        return "P(extra zero)"
-    if kind == "hurdle":
-        return "P(Y = 0)"
-    return "none"
+    return names.zeros_label(family) or "none"
 
 
 def unit(inp: ReportInput) -> str:
