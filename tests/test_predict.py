@@ -28,7 +28,7 @@ from simulate import simulate
 
 import bayeszi as bz
 import bayeszi.answers.predict
-from bayeszi.answers.predict import plan_chunks
+from bayeszi.answers.evaluation import plan_chunks
 from bayeszi.base import options
 from bayeszi.engine.fit import add_user_scale
 from bayeszi.families import get_family

@@ -27,7 +27,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from bayeszi.answers.predict import (
+from bayeszi.answers.evaluation import (
     QUANTITIES,
     Rows,
     Setup,
@@ -64,7 +64,7 @@ def _inputs(fitted: FitRecord) -> list[str]:
     return [c for c in fitted.design.used_columns if c != fitted.spec.response]
 
 
-def apply_change(fitted: FitRecord, base: pd.DataFrame, shift: Mapping[str, Any] | None,
+def _apply_change(fitted: FitRecord, base: pd.DataFrame, shift: Mapping[str, Any] | None,
                  set_to: Mapping[str, Any] | None) -> tuple[pd.DataFrame, str]:
     """The base rows with ``shift`` added and ``set_to`` values set; and a description."""
     out = base.copy()
@@ -200,7 +200,7 @@ def _scenarios(fitted: FitRecord, base: pd.DataFrame | None, scenario: pd.DataFr
     if shift is None and set_to is None:
         raise BayesziError("nothing to compare: pass scenario=<data frame>, or "
                            "shift={'column': amount} / set_to={'column': value}")
-    scenario_df, change = apply_change(fitted, base_df, shift, set_to)
+    scenario_df, change = _apply_change(fitted, base_df, shift, set_to)
     return base_df, scenario_df, change
 
 

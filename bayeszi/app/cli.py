@@ -27,6 +27,8 @@ from typing import Any, NoReturn
 
 from bayeszi.base.errors import BayesziError
 
+__all__ = ["build_parser", "main"]
+
 DEMO_OUT = "bayeszi-demo"
 
 

@@ -42,6 +42,9 @@ import numpy as np
 import xarray as xr
 from scipy.special import logsumexp
 
+__all__ = ["LOO_CHUNK", "RECORD_LIMIT_BYTES", "loo", "n_records", "record_values",
+           "relative_efficiency", "store", "stored_per"]
+
 #: Store per record while chains x draws x records float64 values take at most this many
 #: bytes (512 MiB: 2 chains x 1,000 draws x 33,500 records); per pattern above it.
 RECORD_LIMIT_BYTES = 2**29
