@@ -235,6 +235,17 @@ def test_poisson_fit_to_zinb_data_misses_spread_and_maximum(zinb_poisson):
     assert mx.loc["maximum", "observed"] == zinb_poisson.design.y.max()
 
 
+def test_checks_from_one_set_of_replicates_equal_the_separate_checks(zip_zip):
+    """The report draws replicates once and checks several statistics on them: the tables
+    equal those of dispersion_check and max_count_check with the same seed."""
+    reps = checks.replicated_statistics(zip_zip, seed=7)
+    pd.testing.assert_frame_equal(
+        checks.statistics_check(reps, ["mean", "variance", "variance / mean"], 0.8),
+        zip_zip.dispersion_check(interval=0.8, seed=7))
+    pd.testing.assert_frame_equal(checks.statistics_check(reps, ["maximum"]),
+                                  zip_zip.max_count_check(seed=7))
+
+
 def test_correct_model_reproduces_spread(zip_zip):
     disp = zip_zip.dispersion_check(seed=5)
     # correct model: not extreme (Meng 1994, see module docstring)

@@ -50,6 +50,7 @@ __all__ = [
     "dispersion_check",
     "expected_frequency_draws",
     "max_count_check",
+    "statistics_check",
     "model_label",
     "replicated_statistics",
     "residuals",
@@ -483,8 +484,20 @@ def _observed_statistics(y: np.ndarray) -> dict[str, float]:
             "maximum": float(y.max())}
 
 
-def _statistic_rows(reps: pd.DataFrame, statistics: Sequence[str], interval: float,
-                    flag: float) -> pd.DataFrame:
+def statistics_check(reps: pd.DataFrame, statistics: Sequence[str], interval: float = 0.9,
+                     flag: float = FLAG) -> pd.DataFrame:
+    """The check table of ``statistics`` from replicates already drawn.
+
+    ``reps`` is the table of :func:`replicated_statistics`; :func:`dispersion_check` is this
+    with ``["mean", "variance", "variance / mean"]`` and :func:`max_count_check` with
+    ``["maximum"]``. Use it to check several statistics against one set of replicates.
+
+    Example
+    -------
+    >>> reps = replicated_statistics(m, seed=1)                    # doctest: +SKIP
+    >>> statistics_check(reps, ["zero share", "maximum"])         # doctest: +SKIP
+    """
+    flag = _check_flag(flag)
     iv = options.interval_bounds(interval)
     lo_name, hi_name = iv.names
     observed = reps.attrs["observed"]
@@ -535,7 +548,7 @@ def dispersion_check(fitted: FitRecord, interval: float = 0.9, draws: int | None
     flag = _check_flag(flag)
     options.interval_bounds(interval)
     reps = replicated_statistics(fitted, draws, seed)
-    return _statistic_rows(reps, ["mean", "variance", "variance / mean"], interval, flag)
+    return statistics_check(reps, ["mean", "variance", "variance / mean"], interval, flag)
 
 
 def max_count_check(fitted: FitRecord, interval: float = 0.9, draws: int | None = None,
@@ -554,7 +567,7 @@ def max_count_check(fitted: FitRecord, interval: float = 0.9, draws: int | None 
     flag = _check_flag(flag)
     options.interval_bounds(interval)
     reps = replicated_statistics(fitted, draws, seed)
-    return _statistic_rows(reps, ["maximum"], interval, flag)
+    return statistics_check(reps, ["maximum"], interval, flag)
 
 
 def zero_check(fitted: FitRecord, by: ByArg = None,
