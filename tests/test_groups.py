@@ -261,7 +261,7 @@ def test_true_group_sds_inside_95_percent_intervals(cached_fit):
     for part in ("counts", "zeros"):
         row = table.loc[(part, "sd(reach)")]
         assert row["2.5%"] < SD[part] < row["97.5%"], (part, row[["2.5%", "97.5%"]])
-    assert m.diagnostics()["divergences"] == 0
+    assert m.diagnostics().divergences == 0
 
 
 def test_sparsely_visited_reaches_shrink_more(cached_fit):
@@ -452,8 +452,8 @@ def test_demo_fits_with_groups_without_divergences():
     m = bz.fit(df, groups="reach", seed=1, **DEMO)  # default sampler settings
     took = time.perf_counter() - t0
     print(f"demo with groups: sampling {m.timing['sample_s']:.1f} s, total {took:.1f} s, "
-          f"divergences {m.diagnostics()['divergences']}")
-    assert m.diagnostics()["divergences"] == 0
+          f"divergences {m.diagnostics().divergences}")
+    assert m.diagnostics().divergences == 0
     table = m.coefficients(interval=0.95)
     for part in ("counts", "zeros"):
         row = table.loc[(part, "sd(reach)")]

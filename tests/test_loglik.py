@@ -15,8 +15,8 @@ from graph_reference import graph_log_likelihood
 
 import bayeszi as bz
 from bayeszi.engine import loglik
-from bayeszi.model.build import build_model
 from bayeszi.engine.pointwise import pattern_log_likelihood
+from bayeszi.model.build import build_model
 
 
 def _pattern_idata(seed: int = 3, chains: int = 2, draws: int = 200, n_pat: int = 12,
