@@ -1,11 +1,18 @@
 """Simulated data sets with known truth, drawn with NumPy alone (independent of bayeszi's
 own random generators), shared by the tests.
 
+* :func:`simulate`: any of the six families, with known coefficients and site effects;
+* :func:`tiny_data`: a small zero-inflated frame for tests of messages and saved files (the
+  ``tiny_fit`` fixture of tests/conftest.py fits a ZINB to it; hypothesis strategies draw
+  rows of it).
+
 Example
 -------
 >>> df, truth = simulate("zip", n=100, seed=1)
 >>> sorted(df.columns)
 ['exposure', 'site', 'w', 'x1', 'x2', 'y']
+>>> tiny_data().shape
+(120, 6)
 """
 
 from __future__ import annotations
@@ -74,3 +81,19 @@ def simulate(family: str, n: int = 3000, seed: int = 1, n_sites: int = 0,
     info = {"counts": dict(c), "zeros": dict(z), "alpha": alpha, "site_counts": ec,
             "site_zeros": ez, "mu": mu, "p": p}
     return df, info
+
+
+def tiny_data(n: int = 120, seed: int = 11) -> pd.DataFrame:
+    """Zero-inflated Poisson data with exposure ``e``, a factor ``f``, a 0/1 zeros term ``w``
+    and 6 groups ``g``: log mean 0.2 + 0.5 x + 0.3 [f = b] + log e, extra zeros with
+    probability 0.5 where w = 1 and 0.15 where w = 0 (no group effects)."""
+    rng = np.random.default_rng(seed)
+    df = pd.DataFrame({
+        "x": rng.normal(size=n), "f": rng.choice(["a", "b", "c"], n),
+        "e": rng.uniform(1.0, 3.0, n), "g": np.array([f"s{k}" for k in range(6)])[
+            np.arange(n) % 6], "w": rng.integers(0, 2, n),
+    })
+    mu = np.exp(0.2 + 0.5 * df["x"] + 0.3 * (df["f"] == "b") + np.log(df["e"]))
+    extra = rng.random(n) < np.where(df["w"] == 1, 0.5, 0.15)
+    df["y"] = np.where(extra, 0, rng.poisson(mu))
+    return df

@@ -135,8 +135,10 @@ def test_no_centring_without_spread_and_zeros_part_centred_on_group_predictors()
 
 
 def test_centred_fit_saves_loads_and_reports(cached_fit, tmp_path):
-    """A fit with centred levels round-trips through save/load (same effects, same LOO) and
-    its group tables are complete."""
+    """A fit with centred levels round-trips through save/load (same effects, same LOO, same
+    group tables) and its group tables cover every site: one batch (site, counts, intercept)
+    of 6 levels with 4 to 80 records (the data of :func:`_sites`), whose sd is the posterior
+    mean of the drawn counts_sd_site."""
     df = _sites()
     m = cached_fit("centring-mixed", lambda: _fit(df))
     path = str(tmp_path / "centred.nc")
@@ -149,8 +151,15 @@ def test_centred_fit_saves_loads_and_reports(cached_fit, tmp_path):
         assert back.loo().elpd == pytest.approx(m.loo().elpd, rel=1e-12)
         eff = back.group_effects()
         pool = back.pooling_summary()
+        pd.testing.assert_frame_equal(eff, m.group_effects())
+        pd.testing.assert_frame_equal(pool, m.pooling_summary())
     assert len(eff.loc["site"]) == 6
-    assert len(pool) >= 1
+    assert list(pool.index) == [("site", "counts", "intercept")]
+    row = pool.iloc[0]
+    assert (row["levels"], row["records min"], row["records max"]) == (6, 4, 80)
+    sd = m.idata.posterior["counts_sd_site"].values
+    assert row["sd"] == pytest.approx(sd.mean(), rel=1e-12)
+    assert 0 < row["pooling"] < 1
 
 
 def test_varying_slope_with_centred_intercepts_builds():

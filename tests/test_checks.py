@@ -255,7 +255,9 @@ def test_correct_model_reproduces_spread(zip_zip):
     obs = reps.attrs["observed"]
     y = zip_zip.design.y
     assert obs["variance / mean"] == pytest.approx(y.var(ddof=1) / y.mean())
-    assert np.all(reps["maximum"] >= 0)
+    assert obs["maximum"] == y.max()
+    # correct model: the maximum is not extreme either (same criterion as the spread)
+    assert 0.01 < zip_zip.max_count_check(seed=5).loc["maximum", "tail prob"] < 0.99
 
 
 def test_replicated_data_are_seeded(zip_zip):

@@ -2,8 +2,8 @@
 saved-fit commands, and bad study files failing cleanly before any sampling.
 
 The small study (about 300 simulated crayfish records on 6 reaches, two models, 2 chains x
-150 draws) is run once per session through ``bayeszi run`` and shared with
-tests/test_report.py through the session cache of tests/conftest.py.
+150 draws) is run once per session through ``bayeszi run``: the ``small_run`` fixture of
+tests/conftest.py, shared with tests/test_report.py.
 """
 
 from __future__ import annotations
@@ -11,8 +11,6 @@ from __future__ import annotations
 import hashlib
 import os
 import re
-import tempfile
-import textwrap
 from pathlib import Path
 
 import numpy as np
@@ -23,88 +21,8 @@ import bayeszi
 from bayeszi.app.cli import main
 from bayeszi.data import simulate_crayfish
 
-SMALL_STUDY = """\
-[study]
-title = "Small crayfish study"
-summary = "A small simulated study for the tests."
-data = "{data}"
-response = "crayfish"
-exposure = "trap_nights"
-exposure_unit = "trap night"
-groups = ["reach"]
-seed = 7
-interval = 0.9
-
-[sampler]
-draws = 150
-tune = 200
-chains = 2
-cores = 1
-
-[[model]]
-name = "zinb-reach"
-family = "zinb"
-counts = "water_temp + C(substrate) + depth"
-zeros = "barrier"
-
-[[model]]
-name = "poisson"
-family = "poisson"
-counts = "water_temp + depth"
-groups = []
-
-[[scenario]]
-name = "open reach"
-values = {{ substrate = "cobble", depth = 0.6, barrier = 0 }}
-vary = {{ water_temp = [8.0, 14.0, 20.0] }}
-
-[[scenario]]
-name = "reach R01"
-values = {{ reach = "R01", water_temp = 14.0, substrate = "gravel", depth = 0.5, barrier = 0 }}
-groups = "known"
-
-[[contrast]]
-name = "barrier downstream"
-scenario = "open reach"
-change = {{ barrier = 1 }}
-"""
-
-
-def write_small_study(folder: Path, **replace: str) -> Path:
-    """The small study and its data in ``folder``; ``replace`` swaps exact text snippets."""
-    data, _ = simulate_crayfish(seed=11, n_reaches=6, n_rivers=2)
-    data.to_csv(folder / "crayfish.csv", index=False)
-    text = SMALL_STUDY.format(data="crayfish.csv")
-    for old, new in replace.items():
-        assert old in text, old
-        text = text.replace(old, new)
-    path = folder / "study.toml"
-    path.write_text(text, encoding="utf-8")
-    return path
-
-
-def run_small_study() -> dict:
-    """Run the small study through the command line once (session-cached by the callers)."""
-    folder = Path(tempfile.mkdtemp(prefix="bayeszi-cli-"))
-    study = write_small_study(folder)
-    out = folder / "report"
-    import io
-    from contextlib import redirect_stdout
-
-    buf = io.StringIO()
-    with redirect_stdout(buf):
-        rc = main(["run", str(study), "--out", str(out), "--save-fits", "--quiet"])
-    return {"rc": rc, "study": study, "out": out, "data": folder / "crayfish.csv",
-            "stdout": buf.getvalue()}
-
-
 # Short test fits raise sampler warnings on every API call; the report shows them already.
 pytestmark = pytest.mark.filterwarnings("ignore::bayeszi.model.validate.BayesziWarning")
-
-
-@pytest.fixture(scope="module")
-def small_run(cached_fit) -> dict:
-    return cached_fit("cli-small-study-run", run_small_study)
 
 
 def one_line_error(err: str) -> str:
@@ -246,8 +164,7 @@ def test_fit_command_writes_a_loadable_fit(tmp_path, capsys):
     assert fitted.idata.posterior.sizes["draw"] == 100
 
 
-def test_fit_command_bad_column_fails_before_sampling(tmp_path, capsys, monkeypatch):
-    monkeypatch.setattr(bayeszi, "fit_spec", _no_sampling, raising=False)
+def test_fit_command_bad_column_fails_before_sampling(tmp_path, capsys, no_sampling):
     data, _ = simulate_crayfish(seed=5, n_reaches=4, n_rivers=1)
     csv = tmp_path / "d.csv"
     data.to_csv(csv, index=False)
@@ -255,14 +172,10 @@ def test_fit_command_bad_column_fails_before_sampling(tmp_path, capsys, monkeypa
                "--out", str(tmp_path / "m.nc")])
     assert rc == 2
     assert "'deepness'" in one_line_error(capsys.readouterr().err)
-    assert not (tmp_path / "m.nc").exists()
+    assert not (tmp_path / "m.nc").exists() and not no_sampling
 
 
 # ---------------------------------------------------------------------- bad study files
-def _no_sampling(*args, **kwargs):
-    raise AssertionError("sampling started although the study should have been refused")
-
-
 BAD_STUDIES = {
     "unknown top-level key": ({"[[scenario]]\nname = \"open reach\"":
                                "[[scenarios]]\nname = \"open reach\""},
@@ -297,23 +210,22 @@ BAD_STUDIES = {
 
 @pytest.mark.parametrize("case", sorted(BAD_STUDIES))
 def test_bad_study_file_one_message_exit_2_nothing_written(case, tmp_path, capsys,
-                                                           monkeypatch):
+                                                           no_sampling, write_small_study):
     replace, pattern = BAD_STUDIES[case]
     study = write_small_study(tmp_path, **replace)
-    monkeypatch.setattr(bayeszi, "fit_spec", _no_sampling, raising=False)
     out = tmp_path / "report"
     rc = main(["run", str(study), "--out", str(out)])
     assert rc == 2
     line = one_line_error(capsys.readouterr().err)
     assert line.startswith("bayeszi: error: ")
     assert re.search(pattern, line), line
-    assert not out.exists()
+    assert not out.exists() and not no_sampling
     assert sorted(os.listdir(tmp_path)) == ["crayfish.csv", "study.toml"]
 
 
-def test_unwritable_output_refused_before_sampling(tmp_path, capsys, monkeypatch):
+def test_unwritable_output_refused_before_sampling(tmp_path, capsys, no_sampling,
+                                                  write_small_study):
     study = write_small_study(tmp_path)
-    monkeypatch.setattr(bayeszi, "fit_spec", _no_sampling, raising=False)
     blocker = tmp_path / "a-file"
     blocker.write_text("not a folder")
     assert main(["run", str(study), "--out", str(blocker / "report")]) == 2
@@ -338,6 +250,7 @@ def test_unwritable_output_refused_before_sampling(tmp_path, capsys, monkeypatch
     assert "not a bayeszi report" in one_line_error(capsys.readouterr().err)
     assert (other / "notes.txt").read_text() == "keep me"
     assert sorted(os.listdir(tmp_path)) == ["a-file", "crayfish.csv", "study.toml", "theirs"]
+    assert not no_sampling
 
 
 def test_demo_study_is_valid_and_small():
@@ -372,9 +285,3 @@ def test_demo_runs(tmp_path, capsys):
     html = (tmp_path / "demo" / "report.html").read_text(encoding="utf-8")
     assert "zinb-reach" in html
     print(f"demo took {time.perf_counter() - t0:.0f} s")
-
-
-def test_small_study_text_is_valid_toml():
-    import tomllib
-
-    tomllib.loads(textwrap.dedent(SMALL_STUDY.format(data="x.csv")))

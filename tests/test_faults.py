@@ -12,13 +12,16 @@
 * An unwritable destination is reported before sampling starts.
 
 These tests check our own behaviour; no reference values are involved (common practice, no
-source). The tiny fit is shared with tests/test_hardening.py through the session cache.
+source). The tiny fit is the session fixture ``tiny_fit`` of tests/conftest.py (shared with
+tests/test_hardening.py).
 """
 
 from __future__ import annotations
 
+import copy
 import json
 import os
+import re
 import shutil
 import signal
 import warnings
@@ -32,7 +35,7 @@ import pymc as pm
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from test_hardening import make_tiny_fit, tiny_data
+from simulate import tiny_data
 
 import bayeszi
 import bayeszi as bz
@@ -46,16 +49,11 @@ AS_ROOT = getattr(os, "geteuid", lambda: 1)() == 0  # os.access says yes to root
 
 
 @pytest.fixture(scope="module")
-def tiny(cached_fit):
-    return cached_fit("hardening-tiny-zinb", make_tiny_fit)
-
-
-@pytest.fixture(scope="module")
-def saved(tiny, tmp_path_factory) -> Path:
+def saved(tiny_fit, tmp_path_factory) -> Path:
     path = tmp_path_factory.mktemp("saved") / "fit.nc"
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        tiny.save(str(path))
+        tiny_fit.save(str(path))
     return path
 
 
@@ -135,12 +133,12 @@ def test_real_sigint_during_real_sampling_is_not_swallowed(monkeypatch, pymc_sam
     assert seen.get("sent")
 
 
-def test_a_short_result_from_the_sampler_is_refused(tiny, monkeypatch):
+def test_a_short_result_from_the_sampler_is_refused(tiny_fit, monkeypatch):
     """Whatever the reason, fewer draws than asked for never become a fit."""
     import bayeszi.engine.fit as engine_fit
 
     monkeypatch.setattr(engine_fit, "run_nuts",
-                        lambda model, s, rows: tiny.idata.isel(draw=slice(0, 5)))
+                        lambda model, s, rows: tiny_fit.idata.isel(draw=slice(0, 5)))
     with pytest.raises(BayesziError, match=r"returned 2 chain\(s\) of 5 draws instead of 2 of "
                                            r"20"):
         bz.fit(tiny_data(), counts="y ~ x + C(f)", zeros="~ w", family="zinb", exposure="e",
@@ -186,13 +184,13 @@ def _partial_writer(exc: BaseException):
 
 @pytest.mark.parametrize("exc, expect", [(KeyboardInterrupt(), KeyboardInterrupt),
                                          (OSError(28, "No space left on device"), BayesziError)])
-def test_interrupted_or_failed_save_keeps_the_earlier_file(tiny, tmp_path, monkeypatch, exc,
+def test_interrupted_or_failed_save_keeps_the_earlier_file(tiny_fit, tmp_path, monkeypatch, exc,
                                                            expect):
     target = tmp_path / "fit.nc"
     target.write_bytes(b"the earlier save")
     monkeypatch.setattr(az.InferenceData, "to_netcdf", _partial_writer(exc))
     with pytest.raises(expect):
-        tiny.save(str(target))
+        tiny_fit.save(str(target))
     assert sorted(os.listdir(tmp_path)) == ["fit.nc"]
     assert target.read_bytes() == b"the earlier save"
 
@@ -210,7 +208,7 @@ def test_truncated_file_is_a_bayeszi_error(saved, tmp_path, fraction):
 @settings(max_examples=12, deadline=None, derandomize=True, database=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(where=st.floats(0.0, 1.0, exclude_max=True), flip=st.integers(1, 255))
-def test_a_flipped_byte_is_refused_or_changes_nothing(tiny, saved, tmp_path, where, flip):
+def test_a_flipped_byte_is_refused_or_changes_nothing(tiny_fit, saved, tmp_path, where, flip):
     raw = bytearray(saved.read_bytes())
     pos = int(where * len(raw))
     raw[pos] ^= flip
@@ -218,11 +216,13 @@ def test_a_flipped_byte_is_refused_or_changes_nothing(tiny, saved, tmp_path, whe
     bad.write_bytes(bytes(raw))
     try:
         back = _quiet_load(bad)
-    except BayesziError as err:
-        assert "saved fit" in str(err) or "bayeszi" in str(err)
+    except BayesziError as err:  # names the file and says what is wrong with it
+        assert repr(str(bad)) in str(err), str(err)
+        assert re.search(r"not a readable bayeszi fit|holds no bayeszi metadata|file format|"
+                         r"cannot be rebuilt|does not fit together", str(err)), str(err)
         return
-    _posterior_equal(tiny, back)  # loaded: then exactly the saved numbers
-    pd.testing.assert_frame_equal(back.data, tiny.data)
+    _posterior_equal(tiny_fit, back)  # loaded: then exactly the saved numbers
+    pd.testing.assert_frame_equal(back.data, tiny_fit.data)
 
 
 def _edit(path: Path, change: Any) -> None:
@@ -232,31 +232,42 @@ def _edit(path: Path, change: Any) -> None:
         change(f)
 
 
-def _read_groups(path: Path) -> dict[str, Any]:
-    import h5py
-    import xarray as xr
-
-    with h5py.File(path, "r") as f:
-        names = list(f.keys())
-    out = {}
-    for g in names:
-        with xr.open_dataset(path, group=g, engine="h5netcdf") as ds:
-            out[g] = ds.load()
-    return out
-
-
-def _edit_meta(path: Path, change: Any, resign: bool = False) -> None:
-    """Change the bayeszi metadata in place. ``resign=True`` also rewrites the checksum, as
-    another bayeszi version writing that metadata would; without it the edit is tampering."""
-    groups = _read_groups(path) if resign else None
+def _edit_meta(path: Path, change: Any) -> None:
+    """Change the bayeszi metadata in place without rewriting its checksum (on a file that
+    has one, that is tampering)."""
     import h5py
 
     with h5py.File(path, "r+") as f:
         meta = json.loads(f["posterior"].attrs["bayeszi"])
         change(meta)
-        if resign and "checksum" in meta:
-            meta["checksum"] = store._checksum(groups, meta)
         f["posterior"].attrs["bayeszi"] = json.dumps(meta)
+
+
+class _WrittenSpec:
+    """Stands in for the ModelSpec that save() writes: the settings another writer wrote."""
+
+    def __init__(self, settings: dict[str, Any]) -> None:
+        self.settings = settings
+
+    def to_dict(self) -> dict[str, Any]:
+        return self.settings
+
+
+def _save_as_another_writer(fitted: Any, path: Path, monkeypatch: pytest.MonkeyPatch,
+                            version: str | None = None, spec_change: Any = None) -> Path:
+    """``fitted`` saved through bayeszi's own save as another bayeszi version would write it:
+    that version's number and spec settings in the metadata, and a checksum that matches."""
+    record = copy.copy(fitted)
+    if spec_change is not None:
+        settings = copy.deepcopy(fitted.spec.to_dict())
+        spec_change(settings)
+        record.spec = _WrittenSpec(settings)
+    with monkeypatch.context() as patch, warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        if version is not None:
+            patch.setattr(store, "__version__", version)  # the writer's version only
+        store.save(record, str(path))
+    return path
 
 
 def test_changed_draws_fail_the_checksum(saved, tmp_path):
@@ -296,23 +307,23 @@ def test_tampered_metadata_says_why(saved, tmp_path, change, pattern):
         _quiet_load(path)
 
 
-@pytest.mark.parametrize("change, pattern", [
-    (lambda m: m.update(bayeszi_version="9.0.0") or m["spec"].update(shrinkage=0.5),
+@pytest.mark.parametrize("version, spec_change, pattern", [
+    ("9.0.0", lambda s: s.update(shrinkage=0.5),
      r"written by bayeszi 9\.0\.0, whose model settings this bayeszi .* cannot read: unknown "
      r"model setting\(s\) \['shrinkage'\].*Load it with bayeszi 9\.0\.0, or refit"),
-    (lambda m: m["spec"].update(counts="y ~ x"),
+    (None, lambda s: s.update(counts="y ~ x"),
      r"does not fit together.*counts terms .* stored"),
-    (lambda m: m["spec"].update(family="zinbb"), r"unknown family 'zinbb'"),
+    (None, lambda s: s.update(family="zinbb"), r"unknown family 'zinbb'"),
 ])
-def test_metadata_another_version_wrote_says_why_it_cannot_load(saved, tmp_path, change,
-                                                                pattern):
-    path = _copy(saved, tmp_path)
-    _edit_meta(path, change, resign=True)
+def test_metadata_another_version_wrote_says_why_it_cannot_load(tiny_fit, tmp_path, monkeypatch,
+                                                                version, spec_change, pattern):
+    path = _save_as_another_writer(tiny_fit, tmp_path / "other.nc", monkeypatch, version,
+                                   spec_change)
     with pytest.raises(BayesziError, match=pattern):
         _quiet_load(path)
 
 
-def test_broken_metadata_json_and_foreign_files(tiny, saved, tmp_path):
+def test_broken_metadata_json_and_foreign_files(tiny_fit, saved, tmp_path):
     path = _copy(saved, tmp_path)
 
     def garble(f: Any) -> None:
@@ -322,7 +333,7 @@ def test_broken_metadata_json_and_foreign_files(tiny, saved, tmp_path):
     with pytest.raises(BayesziError, match="not valid JSON"):
         _quiet_load(path)
     foreign = tmp_path / "arviz.nc"
-    tiny.idata.to_netcdf(str(foreign))  # a plain ArviZ file, not written by bayeszi's save
+    tiny_fit.idata.to_netcdf(str(foreign))  # a plain ArviZ file, not written by bayeszi's save
     with pytest.raises(BayesziError, match="no bayeszi metadata.*fitted.save"):
         _quiet_load(foreign)
     text = tmp_path / "notes.nc"
@@ -333,33 +344,32 @@ def test_broken_metadata_json_and_foreign_files(tiny, saved, tmp_path):
         _quiet_load(tmp_path)  # a folder
 
 
-def test_other_version_same_format_loads_and_says_so(tiny, saved, tmp_path):
-    path = _copy(saved, tmp_path)
-    _edit_meta(path, lambda m: m.update(bayeszi_version="0.0.7"), resign=True)
+def test_other_version_same_format_loads_and_says_so(tiny_fit, tmp_path, monkeypatch):
+    path = _save_as_another_writer(tiny_fit, tmp_path / "other.nc", monkeypatch, "0.0.7")
     with pytest.warns(bz.BayesziWarning, match=r"saved by bayeszi 0\.0\.7 and is loaded by "
                                                rf"bayeszi {bayeszi.__version__}"):
         back = bz.load(str(path))
-    _posterior_equal(tiny, back)
-    pd.testing.assert_frame_equal(back.coefficients(), tiny.coefficients())
+    _posterior_equal(tiny_fit, back)
+    pd.testing.assert_frame_equal(back.coefficients(), tiny_fit.coefficients())
 
 
-def test_file_without_checksum_from_an_older_writer_loads(tiny, saved, tmp_path):
+def test_file_without_checksum_from_an_older_writer_loads(tiny_fit, saved, tmp_path):
     path = _copy(saved, tmp_path)
     _edit_meta(path, lambda m: m.pop("checksum"))
-    _posterior_equal(tiny, _quiet_load(path))
+    _posterior_equal(tiny_fit, _quiet_load(path))
 
 
 # ============================================================================ destinations
-def test_save_refuses_unwritable_destinations(tiny, tmp_path):
+def test_save_refuses_unwritable_destinations(tiny_fit, tmp_path):
     blocker = tmp_path / "a-file"
     blocker.write_text("x")
     with pytest.raises(BayesziError, match="does not exist"):
-        tiny.save(str(blocker / "fit.nc"))
+        tiny_fit.save(str(blocker / "fit.nc"))
     with pytest.raises(BayesziError, match="is a folder"):
-        tiny.save(str(tmp_path))
+        tiny_fit.save(str(tmp_path))
     if HAVE_PROC:
         with pytest.raises(BayesziError, match="not writable"):
-            tiny.save(PROC + ".nc")
+            tiny_fit.save(PROC + ".nc")
     assert sorted(os.listdir(tmp_path)) == ["a-file"]
 
 
@@ -371,42 +381,31 @@ def test_check_writable_probes_and_cleans_up(tmp_path):
             store.check_writable(PROC + ".nc")
 
 
-def _record_sampling(monkeypatch) -> list:
-    calls: list = []
-
-    def fake_fit_spec(*args: Any, **kwargs: Any) -> None:
-        calls.append(args)
-        raise KeyboardInterrupt  # stop there: the test only asks whether we got this far
-
-    monkeypatch.setattr(bayeszi, "fit_spec", fake_fit_spec, raising=False)
-    return calls
-
-
-def test_cli_fit_missing_folder_is_refused_before_sampling(tmp_path, monkeypatch, capsys):
+def test_cli_fit_missing_folder_is_refused_before_sampling(tmp_path, no_sampling, capsys):
     small_frame().to_csv(tmp_path / "d.csv", index=False)
-    calls = _record_sampling(monkeypatch)
+    calls = no_sampling
     rc = main(["fit", "--data", str(tmp_path / "d.csv"), "--counts", "y ~ x", "--out",
                str(tmp_path / "no-such-folder" / "fit.nc")])
     assert rc == 2 and not calls
     assert "does not exist" in capsys.readouterr().err
 
 
-def test_cli_run_unwritable_folder_is_refused_before_sampling(tmp_path, monkeypatch, capsys):
+def test_cli_run_unwritable_folder_is_refused_before_sampling(tmp_path, no_sampling, capsys):
     if not HAVE_PROC:
         pytest.skip("needs /proc")
     small_frame().to_csv(tmp_path / "d.csv", index=False)
     (tmp_path / "s.toml").write_text('[study]\ndata = "d.csv"\nresponse = "y"\n[[model]]\n'
                                      'name = "p"\nfamily = "poisson"\ncounts = "x"\n')
-    calls = _record_sampling(monkeypatch)
+    calls = no_sampling
     rc = main(["run", str(tmp_path / "s.toml"), "--out", PROC])
     assert rc == 2 and not calls
     assert "cannot write the report" in capsys.readouterr().err
 
 
 @pytest.mark.skipif(not HAVE_PROC, reason="needs /proc")
-def test_cli_fit_unwritable_folder_is_refused_before_sampling(tmp_path, monkeypatch, capsys):
+def test_cli_fit_unwritable_folder_is_refused_before_sampling(tmp_path, no_sampling, capsys):
     small_frame().to_csv(tmp_path / "d.csv", index=False)
-    calls = _record_sampling(monkeypatch)
+    calls = no_sampling
     rc = main(["fit", "--data", str(tmp_path / "d.csv"), "--counts", "y ~ x", "--out",
                PROC + ".nc"])
     assert rc == 2 and not calls

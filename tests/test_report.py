@@ -2,8 +2,9 @@
 the page and the CSV tables equal to the API's, the reproducibility footer, and an output
 folder that is written in full or not at all.
 
-The report under test is the one ``bayeszi run`` writes for the small study of
-tests/test_cli.py (shared through the session cache, so it is sampled once).
+The report under test is the one ``bayeszi run`` writes for the small study (the session
+fixture ``small_run`` of tests/conftest.py, shared with tests/test_cli.py, so it is sampled
+once).
 """
 
 from __future__ import annotations
@@ -21,7 +22,6 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-from test_cli import run_small_study
 
 import bayeszi
 from bayeszi.app.report.document import format_number
@@ -37,8 +37,8 @@ PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # the PNG file signature (PNG specificatio
 
 
 @pytest.fixture(scope="module")
-def report(cached_fit) -> dict:
-    run = cached_fit("cli-small-study-run", run_small_study)
+def report(small_run) -> dict:
+    run = small_run
     assert run["rc"] == 0
     html = (run["out"] / "report.html").read_text(encoding="utf-8")
     return {**run, "html": html, "tables": _tables(html)}

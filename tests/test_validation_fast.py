@@ -117,16 +117,21 @@ def test_sbc_runs_end_to_end(tmp_path):
                                       "mean count, row 1"}
     z = (ranks["truth"] - ranks["post_mean"]) / ranks["post_sd"]
     assert z.abs().max() < 5, ranks[["quantity", "truth", "post_mean", "post_sd"]]
-    unif = res["uniformity"]
-    assert len(unif) == 4 and unif["p"].between(0, 1).all()
+    unif = res["uniformity"].set_index("quantity")
+    assert len(unif) == 4 and (unif["config"] == "no groups").all()
+    for quantity, sub in ranks.groupby("quantity"):  # each p is that quantity's own test
+        again = C.rank_uniformity(sub["rank"].astype(int), int(sub["n_ranks"].iloc[0]))
+        assert unif.loc[quantity, "p"] == pytest.approx(again["p"], rel=1e-12), quantity
     fam = res["families"].iloc[0]
     assert fam["family"] == "poisson" and fam["replicates (no groups)"] == 3
-    assert 0 <= fam["Bonferroni p"] <= 1
+    # Bonferroni over the 4 quantities: min(1, 4 x the smallest p)
+    assert fam["smallest p"] == pytest.approx(unif["p"].min(), rel=1e-12)
+    assert fam["Bonferroni p"] == pytest.approx(min(1.0, 4 * unif["p"].min()), rel=1e-12)
     for name in ("sbc_ranks.csv", "sbc_uniformity.csv", "sbc_families.csv",
                  "sbc_coverage.csv", "sbc_run.json", "sbc_poisson.png"):
         assert (tmp_path / name).exists(), name
     again = sbc.summarise(out=str(tmp_path), figures=False)  # rebuilt from the CSV alone
-    pd.testing.assert_frame_equal(again["uniformity"], unif)
+    pd.testing.assert_frame_equal(again["uniformity"], res["uniformity"])
 
 
 def test_one_coverage_replicate():
@@ -144,8 +149,12 @@ def test_one_coverage_replicate():
     width = rows["hi90"] - rows["lo90"]
     mid = (rows["hi90"] + rows["lo90"]) / 2
     assert ((rows["truth"] - mid).abs() < 3 * width).all(), rows
-    summ = coverage.summary(rows)
-    assert summ["n"].eq(1).all() and summ["rate"].isin([0.0, 1.0]).all()
+    covered = rows.set_index("quantity")["covered90"].astype(bool)
+    assert ((rows["lo90"] <= rows["truth"]) & (rows["truth"] <= rows["hi90"])).to_numpy() \
+        .tolist() == rows["covered90"].astype(bool).tolist()
+    summ = coverage.summary(rows).set_index("quantity")
+    assert summ["n"].eq(1).all()
+    np.testing.assert_array_equal(summ["rate"], covered[summ.index].astype(float))
 
 
 def _poisson_two_groups(n0: int = 300, n1: int = 40, a: float = 0.4, b: float = 0.6,
