@@ -45,7 +45,13 @@ class FittedModel(FitRecord):
 
     @classmethod
     def from_record(cls, record: FitRecord) -> FittedModel:
-        """The fitted model of a finished record (the one way to make one)."""
+        """The fitted model of a finished record (the one way to make one).
+
+        Example
+        -------
+        >>> from bayeszi.engine.fit import fit_record               # doctest: +SKIP
+        >>> m = FittedModel.from_record(fit_record(df, spec))       # doctest: +SKIP
+        """
         return cls(**{f.name: getattr(record, f.name) for f in fields(FitRecord)})
 
     # ------------------------------------------------------------------ diagnostics
