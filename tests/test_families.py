@@ -20,15 +20,19 @@ import itertools
 import math
 
 import numpy as np
+import pandas as pd
 import pytensor
 import pytensor.tensor as pt
 import pytest
 from scipy import special as sc
 from scipy import stats
 
-import bayeszi.families as families_module
 from bayeszi.base.errors import BayesziError
-from bayeszi.families import FAMILY_NAMES, Family, get_family
+from bayeszi.base.spec import ModelSpec
+from bayeszi.families import FAMILY_NAMES, Family, get_family, kernels, mechanisms, numerics
+from bayeszi.families import family as family_module
+from bayeszi.model.design import build_design
+from bayeszi.model.patterns import find_patterns, pattern_logp
 
 # ----------------------------------------------------------------------------- grids
 # p within 1e-12 of 0 and 1: eta_z = logit(p) written exactly, log((1 - 1e-12) / 1e-12).
@@ -110,13 +114,44 @@ def _reference_on_grid(fam: Family):
 
 
 @functools.cache
-def _compiled(name: str):
-    """logp and its gradients w.r.t. eta_c, eta_z, log_alpha, compiled once per family."""
-    fam = get_family(name)
-    y, ec, ez, la = (pt.dvector(n) for n in ("y", "eta_c", "eta_z", "log_alpha"))
-    out = fam.logp(y, ec, ez, la)
-    grads = pytensor.grad(out.sum(), [ec, ez, la], disconnected_inputs="ignore")
-    return pytensor.function([y, ec, ez, la], [out, *grads], on_unused_input="ignore")
+def _graph_fn(name: str, y: tuple[int, ...], grads: bool):
+    """The model graph's density of the counts ``y`` (``pattern_logp``, weighted=False, one
+    record per pattern) and, with ``grads``, its derivatives per record with respect to
+    eta_c, eta_z and the scalar log_alpha; compiled once per family and counts."""
+    # the patterns only carry the counts (pattern_logp takes the family by name), so the
+    # design is built as for a Poisson: no zeros part to check, no zero count required
+    design = build_design(pd.DataFrame({"y": np.array(y, dtype=np.int64)}),
+                          ModelSpec(counts="y ~ 1", family="poisson"))
+    pats = find_patterns(design, min_saving=1.0)  # never pooled: one pattern per record
+    assert not pats.pooled
+    ec, ez, u = pt.dvector("eta_c"), pt.dvector("eta_z"), pt.dvector("u")
+    la = pt.dscalar("log_alpha")
+    out = pattern_logp(name, pats, weighted=False)(None, ec, ez, la)
+    outs = [out]
+    if grads:
+        outs += pytensor.grad(out.sum(), [ec, ez], disconnected_inputs="ignore")
+        # per-record d/dlog_alpha: the gradient of sum(u * out) w.r.t. the scalar, then u
+        d_a = pytensor.grad((u * out).sum(), la, disconnected_inputs="ignore")
+        outs.append(pytensor.grad(d_a, u, disconnected_inputs="ignore"))
+    fn = pytensor.function([ec, ez, la, u], outs, on_unused_input="ignore")
+    return pats.inverse, fn
+
+
+def graph_density(name: str, y, ec, ez, la, grads: bool = False) -> list[np.ndarray]:
+    """[log p, (d/deta_c, d/deta_z, d/dlog_alpha)] per record from the model graph. The
+    model has one log_alpha for all records, so records are evaluated in groups of equal
+    log_alpha (the grids here are products: every group holds the same counts)."""
+    y, ec, ez, la = (np.broadcast_to(np.asarray(a, dtype=float), np.shape(y))
+                     for a in (y, ec, ez, la))
+    outs = [np.empty(y.shape) for _ in range(4 if grads else 1)]
+    for a in np.unique(la):
+        rows = np.flatnonzero(la == a)
+        inverse, fn = _graph_fn(name, tuple(y[rows].astype(int).tolist()), grads)
+        per_pattern = [np.empty(rows.size) for _ in range(2)]
+        per_pattern[0][inverse], per_pattern[1][inverse] = ec[rows], ez[rows]
+        for out, res in zip(outs, fn(*per_pattern, a, np.ones(rows.size)), strict=True):
+            out[rows] = np.asarray(res)[inverse]
+    return outs
 
 
 # ----------------------------------------------------------------------------- log-pmf accuracy
@@ -131,10 +166,10 @@ def test_numpy_logpmf_matches_scipy_composition(name):
 
 
 @pytest.mark.parametrize("name", FAMILY_NAMES)
-def test_pytensor_logp_matches_scipy_composition(name):
+def test_model_graph_density_matches_scipy_composition(name):
     fam = get_family(name)
     y, ec, ez, la, ref = _reference_on_grid(fam)
-    value = _compiled(name)(y, ec, ez, la)[0]
+    (value,) = graph_density(name, y, ec, ez, la)
     np.testing.assert_allclose(value, ref, rtol=RTOL, atol=ATOL)
 
 
@@ -208,7 +243,7 @@ def _extreme_grid():
 def test_values_and_gradients_finite_on_extreme_grid(name):
     fam = get_family(name)
     y, ec, ez, la = _extreme_grid()
-    value, d_c, d_z, d_a = _compiled(name)(y, ec, ez, la)
+    value, d_c, d_z, d_a = graph_density(name, y, ec, ez, la, grads=True)
     for what, arr in [("logp", value), ("d/deta_c", d_c), ("d/deta_z", d_z), ("d/dlog_alpha", d_a)]:
         bad = ~np.isfinite(arr)
         assert not bad.any(), f"{name}: {what} not finite at {np.c_[y, ec, ez, la][bad][:5]}"
@@ -227,7 +262,7 @@ def test_finite_beyond_the_supported_range(name):
     fam = get_family(name)
     g = itertools.product([0, 1, 5], [-60.0, -20.0, 20.0], [-40.0, 40.0], [-60.0, -25.0, 9.0])
     y, ec, ez, la = np.array(list(g), dtype=float).T
-    outputs = _compiled(name)(y, ec, ez, la)
+    outputs = graph_density(name, y, ec, ez, la, grads=True)
     assert all(np.isfinite(o).all() for o in outputs)
     assert np.isfinite(fam.logpmf(y, ec, ez, la)).all()
 
@@ -240,7 +275,7 @@ def test_gradients_match_finite_differences(name):
         [0, 1, 4, 30], np.log([0.01, 2.0, 40.0]), [-1.5, 0.7], np.log([1e-5, 0.3, 20.0])
     )
     y, ec, ez, la = np.array(list(g), dtype=float).T
-    _, d_c, d_z, d_a = _compiled(name)(y, ec, ez, la)
+    _, d_c, d_z, d_a = graph_density(name, y, ec, ez, la, grads=True)
     h = 1e-5
     num_c = (fam.logpmf(y, ec + h, ez, la) - fam.logpmf(y, ec - h, ez, la)) / (2 * h)
     num_z = (fam.logpmf(y, ec, ez + h, la) - fam.logpmf(y, ec, ez - h, la)) / (2 * h)
@@ -498,9 +533,11 @@ def test_missing_part_is_a_clear_error():
     with pytest.raises(BayesziError, match="log_alpha"):
         get_family("negbin").mean(0.0, None, None)
     with pytest.raises(BayesziError, match="eta_z"):
-        get_family("hurdle-poisson").logp([0, 1], pt.dvector(), None, None)
+        get_family("hurdle-poisson").pt_logp_observed(np.array([0, 1]), pt.dvector(), None, None)
     with pytest.raises(BayesziError, match="log_alpha"):
-        get_family("zinb").logp([0, 1], pt.dvector(), pt.dvector(), None)
+        get_family("zinb").pt_logp_observed(np.array([0, 1]), pt.dvector(), pt.dvector(), None)
+    with pytest.raises(BayesziError, match="zeros first"):
+        get_family("zip").pt_logp_observed(np.array([1, 0]), pt.dvector(), pt.dvector(), None)
 
 
 def test_unused_parts_are_ignored():
@@ -522,30 +559,33 @@ def test_broadcasting_draws_by_rows():
         assert out[d, r] == pytest.approx(float(fam.logpmf(y[r], ec[d, r], ez[r], la[d, 0])))
 
 
-def test_logp_works_inside_a_pymc_model():
+def test_model_graph_density_works_inside_a_pymc_model():
+    # pattern_logp as the model uses it (pm.CustomDist, pooled patterns, weighted), at a
+    # point, against the NumPy log-pmf summed over the records.
     pm = pytest.importorskip("pymc")
-    fam = get_family("zinb")
-    y = np.array([0, 0, 3, 1, 0, 7])
+    y = np.array([0, 0, 3, 1, 0, 7, 3, 0])
+    design = build_design(pd.DataFrame({"y": y}), ModelSpec(counts="y ~ 1", family="zinb"))
+    pats = find_patterns(design)
+    assert pats.pooled and pats.n_patterns == 4
     with pm.Model() as model:
         b = pm.Normal("b", 0.0, 1.0)
         z = pm.Normal("z", 0.0, 1.0)
         la = pm.Normal("la", 0.0, 1.0)
-
-        def logp(value, b, z, la):
-            return fam.logp(value, b, z, la)
-
-        pm.CustomDist("y", b, z, la, logp=logp, observed=y)
+        pm.CustomDist("y", b, z, la, logp=pattern_logp("zinb", pats),
+                      observed=design.y[pats.inverse])
     point = {"b": 0.3, "z": -0.2, "la": -0.5}
     got = model.compile_logp(vars=[model["y"]], sum=True)(point)
-    expect = fam.logpmf(y, 0.3, -0.2, -0.5).sum()
+    expect = get_family("zinb").logpmf(y, 0.3, -0.2, -0.5).sum()
     assert got == pytest.approx(expect, rel=1e-12)
     dlogp = model.compile_dlogp()(point)
     assert np.isfinite(dlogp).all()
 
 
 def test_module_docstring_examples_run():
-    result = doctest.testmod(families_module, optionflags=doctest.ELLIPSIS)
-    assert result.attempted > 10 and result.failed == 0
+    modules = (family_module, kernels, mechanisms, numerics)
+    results = [doctest.testmod(m, optionflags=doctest.ELLIPSIS) for m in modules]
+    assert all(r.attempted > 3 and r.failed == 0 for r in results)
+    assert sum(r.attempted for r in results) > 30
 
 
 # Parameter points that reach every internal branch: alpha below/above the Stirling switch,
@@ -642,7 +682,8 @@ def test_negbin_near_internal_switches(name):
     ref = np.array([ref_logpmf(fam, *p) for p in zip(y, mu, ez, alpha, strict=True)])
     ours = fam.logpmf(y, np.log(mu), ez, np.log(alpha))
     np.testing.assert_allclose(ours, ref, rtol=RTOL, atol=ATOL)
-    np.testing.assert_allclose(_compiled(name)(y, np.log(mu), ez, np.log(alpha))[0], ref, rtol=RTOL)
+    (graph,) = graph_density(name, y, np.log(mu), ez, np.log(alpha))
+    np.testing.assert_allclose(graph, ref, rtol=RTOL)
     cut = math.log(1e-4)
     below = fam.logpmf(y, np.log(mu), ez, cut - 1e-12)
     above = fam.logpmf(y, np.log(mu), ez, cut + 1e-12)
@@ -650,3 +691,111 @@ def test_negbin_near_internal_switches(name):
     # (about 3e-9 at y = 1e6), plus 1e-10 relative
     allowed = 8 * np.finfo(float).eps * sc.gammaln(y + 1e4) + 1e-10 * np.abs(above)
     assert np.all(np.abs(below - above) <= allowed)
+
+
+# ----------------------------------------------------------------------------- structure
+def test_each_family_is_a_kernel_times_a_mechanism():
+    # The table of docs/families.md ("Kernels x mechanisms"), object by object.
+    documented = {
+        "poisson": ("poisson", None),
+        "negbin": ("negbin", None),
+        "zip": ("poisson", "inflation"),
+        "zinb": ("negbin", "inflation"),
+        "hurdle-poisson": ("poisson", "hurdle"),
+        "hurdle-negbin": ("negbin", "hurdle"),
+    }
+    kernel_of = {"poisson": kernels.POISSON, "negbin": kernels.NEGBIN}
+    mechanism_of = {None: mechanisms.NO_ZEROS, "inflation": mechanisms.INFLATION,
+                    "hurdle": mechanisms.HURDLE}
+    assert tuple(documented) == FAMILY_NAMES
+    for name, (kernel, mechanism) in documented.items():
+        fam = get_family(name)
+        assert fam.kernel is kernel_of[kernel] and fam.kernel.name == kernel
+        assert fam.mechanism is mechanism_of[mechanism] and fam.zeros_kind == mechanism
+        assert fam.has_dispersion == (kernel == "negbin")
+    # every pairing occurs once: 2 kernels x 3 mechanisms
+    pairs = {(get_family(n).kernel, get_family(n).mechanism) for n in FAMILY_NAMES}
+    assert len(pairs) == 6
+
+
+# ------------------------------------------------------------- NumPy and PyTensor twins agree
+# Each formula that exists in both array libraries is checked at 1e-12 on both sides of its
+# switch point (the two sides use different formulas; the tolerance is rounding only).
+TWIN_RTOL = TWIN_ATOL = 1e-12
+
+
+def _lgamma_rounding(y, la) -> np.ndarray:
+    """Rounding of the NB's lgamma(y + theta) - lgamma(theta) in the direct form (theta up to
+    1e4, lgamma(theta) up to 8e4): a few ulp of lgamma(y + theta), ~1e-11 near the switch.
+    Both twins carry it (the reason for the Stirling form beyond); they may differ by it."""
+    return 8 * np.finfo(float).eps * sc.gammaln(np.add(y, np.exp(-np.asarray(la))))
+
+
+def _pt_eval(fn, *arrays):
+    """Evaluate a PyTensor formula at NumPy inputs (float64 vectors or scalars)."""
+    inputs = [pt.dvector() if np.ndim(a) else pt.dscalar() for a in arrays]
+    return pytensor.function(inputs, fn(*inputs))(*arrays)
+
+
+def _around(cut: float, log: bool = False) -> np.ndarray:
+    """Points on both sides of a switch point, within 1e-12 and up to a factor 30 away."""
+    rel = np.array([-0.97, -0.5, -1e-3, -1e-9, -1e-12, 0.0, 1e-12, 1e-9, 1e-3, 0.5, 30.0])
+    pts = cut * (1.0 + rel)
+    return np.log(pts) if log else pts
+
+
+def test_numerics_twins_agree_across_their_switch_points():
+    lx = np.concatenate([_around(numerics.SERIES_CUT, log=True), np.log([1e-300, 1e-8, 5.0])])
+    np.testing.assert_allclose(_pt_eval(numerics.pt_log1p_ratio, lx), numerics.log1p_ratio(lx),
+                               rtol=TWIN_RTOL, atol=TWIN_ATOL)
+    u = np.concatenate([_around(numerics.SERIES_CUT), [1e-300, 1e-8, 5.0, 1e6]])
+    np.testing.assert_allclose(_pt_eval(numerics.pt_h_ratio, u), numerics.h_ratio(u),
+                               rtol=TWIN_RTOL, atol=TWIN_ATOL)
+    y, la = (a.ravel() for a in np.meshgrid([1.0, 7.0, 300.0, 1e6],
+                                            _around(numerics.ALPHA_STIRLING, log=True)[:6]))
+    np.testing.assert_allclose(_pt_eval(numerics.pt_stirling_part, y, la),
+                               numerics.stirling_part(y, la), rtol=TWIN_RTOL, atol=TWIN_ATOL)
+    t = np.concatenate([_around(numerics.TRUNC_CUT), [1e-300, 1e-9, 0.7, 40.0]])
+    np.testing.assert_allclose(
+        _pt_eval(lambda t: numerics.pt_log1m_exp_neg(t, pt.log(t)), t),
+        numerics.log1m_exp_neg(t.copy(), lambda m: np.log(t[m])), rtol=TWIN_RTOL, atol=TWIN_ATOL)
+    a, b = np.array([-800.0, 0.0, 3.0, 700.0]), np.array([-1.0, 1e-300, 3.0, -700.0])
+    np.testing.assert_allclose(_pt_eval(numerics.pt_logaddexp, a, b), np.logaddexp(a, b),
+                               rtol=TWIN_RTOL, atol=TWIN_ATOL)
+
+
+# alpha on both sides of the Stirling switch (1e-4); mu so that alpha mu crosses the series
+# switch (1e-2) and t = -log f(0) crosses the truncation switch (1e-5).
+TWIN_ALPHAS = _around(numerics.ALPHA_STIRLING)[[0, 2, 4, 5, 6, 8, 10]]
+TWIN_MUS = np.array([1e-9, 2e-6, 9.99e-6, 1e-5, 1.001e-5, 1e-3, 0.3, 9.9, 100.0, 101.0, 2500.0])
+
+
+@pytest.mark.parametrize("kernel", [kernels.POISSON, kernels.NEGBIN], ids=lambda k: k.name)
+@pytest.mark.parametrize("alpha", TWIN_ALPHAS)
+def test_kernel_twins_agree_across_the_switch_points(kernel, alpha):
+    la = math.log(alpha)
+    disp = kernel.pt_dispersion(pt.constant(la))
+    y, ec = (a.ravel() for a in np.meshgrid([1, 2, 7, 60], np.log(TWIN_MUS)))
+    logf = pytensor.function([v := pt.dvector()], kernel.pt_logf(y, v, disp))(ec)
+    ref = kernel.logf(y, ec, la)
+    atol = TWIN_ATOL + (_lgamma_rounding(y, la) if kernel.has_dispersion else 0.0)
+    assert np.all(np.abs(logf - ref) <= atol + TWIN_RTOL * np.abs(ref))
+    ec = np.log(TWIN_MUS)
+    f0 = _pt_eval(lambda v: kernel.pt_logf0(v, disp), ec)
+    log1m = _pt_eval(lambda v: kernel.pt_log1m_f0(v, disp), ec)
+    log_f0, log1m_f0 = kernel.log1m_f0(ec, la)
+    np.testing.assert_allclose(f0, log_f0, rtol=TWIN_RTOL, atol=TWIN_ATOL)
+    np.testing.assert_allclose(log1m, log1m_f0, rtol=TWIN_RTOL, atol=TWIN_ATOL)
+
+
+@pytest.mark.parametrize("name", FAMILY_NAMES)
+def test_mechanism_twins_agree_across_the_switch_points(name):
+    # The model graph's density (zero and positive counts) against the NumPy log-pmf.
+    fam = get_family(name)
+    g = itertools.product([0, 1, 3, 60], np.log(TWIN_MUS), [-30.0, -1.2, 0.0, 2.0, 30.0],
+                          np.log(TWIN_ALPHAS))
+    y, ec, ez, la = np.array(list(g), dtype=float).T
+    (graph,) = graph_density(name, y, ec, ez, la)
+    ref = fam.logpmf(y, ec, ez, la)
+    atol = TWIN_ATOL + (_lgamma_rounding(y, la) * (y > 0) if fam.has_dispersion else 0.0)
+    assert np.all(np.abs(graph - ref) <= atol + TWIN_RTOL * np.abs(ref))

@@ -3,9 +3,10 @@
 Checks:
 - patterns: pooling records into weighted patterns loses nothing (every record's inputs are
   recovered from its pattern) and happens only when it pays;
-- the fused pattern log density equals the family's own log-pmf row by row
+- the fused pattern log density equals the family's own NumPy log-pmf row by row
   (``bayeszi.families``, itself checked against scipy.stats in tests/test_families.py) and
-  its weighted sum equals the row-wise sum, with the same gradient;
+  its weighted sum equals the sum over records of the same density with nothing pooled,
+  with the same gradient;
 - one ZINB value is also checked directly against scipy.stats.nbinom composed into the ZINB
   (source: scipy.stats; the composition p + (1 - p) f(0) is the definition of zero inflation);
 - the model's log density, prior predictive draws and stored pointwise log-likelihood are per
@@ -130,24 +131,33 @@ def test_pattern_logp_equals_family_logpmf(family):
 
 @pytest.mark.parametrize("family", ["zinb", "hurdle-negbin", "zip"])
 def test_pattern_gradient_equals_rowwise_gradient(family):
+    # The pooled, weighted density against the same density with one pattern per record
+    # (nothing pooled): equal sums and equal gradients with respect to the pooled inputs.
     df = _discrete_frame(1200, seed=9)
     design = build_design(df, _spec(family))
     pats = find_patterns(design)
-    fam = get_family(family)
+    rows = find_patterns(design, min_saving=1.0)
+    assert pats.pooled and not rows.pooled
+    # each per-record pattern's pooled pattern: record r is rows.inverse[r] and pats.inverse[r]
+    pooled_of = np.empty(design.n, dtype=np.int64)
+    pooled_of[rows.inverse] = pats.inverse
     ec, ez = pt.dvector("ec"), pt.dvector("ez")
     la = pt.dscalar("la")
     fast = pattern_logp(family, pats)(None, ec, ez, la).sum()
-    inv = pats.inverse
-    slow = fam.logp(design.y, ec[inv], ez[inv], la).sum()
+    slow = pattern_logp(family, rows, weighted=False)(None, ec[pooled_of], ez[pooled_of], la).sum()
     wrt = [ec, ez, la]
-    grads = [pytensor.grad(v, wrt, disconnected_inputs="ignore") for v in (fast, slow)]
-    f_fast, f_slow = (pytensor.function(wrt, g, on_unused_input="ignore") for g in grads)
+    outs = [[v, *pytensor.grad(v, wrt, disconnected_inputs="ignore")] for v in (fast, slow)]
+    f_fast, f_slow = (pytensor.function(wrt, o, on_unused_input="ignore") for o in outs)
+    fam = get_family(family)
     rng = np.random.default_rng(4)
     for la_v in (-8.0, -0.5, 1.0):
         args = (rng.uniform(-4.0, 4.0, pats.n_patterns), rng.uniform(-5.0, 5.0, pats.n_patterns),
                 la_v)
-        for g_fast, g_slow in zip(f_fast(*args), f_slow(*args), strict=True):
+        got_fast, got_slow = f_fast(*args), f_slow(*args)
+        for g_fast, g_slow in zip(got_fast, got_slow, strict=True):
             np.testing.assert_allclose(g_fast, g_slow, rtol=1e-10, atol=1e-10)
+        ref = fam.logpmf(design.y, args[0][pats.inverse], args[1][pats.inverse], la_v).sum()
+        np.testing.assert_allclose(got_fast[0], ref, rtol=1e-12)
 
 
 def test_zinb_value_against_scipy():

@@ -6,22 +6,20 @@ group code) and in the count have the same log density, so the sampler needs it 
 whole-number effort this shrinks 200,000 records to a few thousand patterns; with
 continuous covariates almost every record is its own pattern and nothing is pooled.
 
-Either way the patterns are ordered with the zero counts first. The log density is then
-split by a fixed slice instead of a per-element switch: zero counts need only log P(0) (no
-gamma functions), positive counts need the count part, and the one gamma-function term that
-depends on the dispersion, ``lgamma(y + theta) - lgamma(theta)``, is computed once per
-distinct count value and looked up. With ``s = log1p(alpha mu)`` the NB pieces are
-``log f(0) = -s / alpha`` and ``log f(y) = D(y, theta) - lgamma(y + 1) + y (eta_c - s) - s /
-alpha`` (``D`` as in :mod:`bayeszi.families`), so each record costs one ``log1p(exp(.))``
-for the counts part and one for the zeros part. The values agree with
-:meth:`~bayeszi.families.Family.logp` to rounding (tests/test_performance.py), for
-``alpha * mu`` above about 1e-300.
+Either way the patterns are ordered with the zero counts first, the layout that
+:meth:`bayeszi.families.Family.pt_logp_observed` (the family's PyTensor density) splits by a
+fixed slice instead of a per-element switch: zero counts need only log P(0) (no gamma
+functions), positive counts the count part, whose one gamma-function term that depends on
+the dispersion, ``lgamma(y + theta) - lgamma(theta)``, is computed once per distinct count
+value and looked up. The density comes from the same kernels and zero mechanisms as the
+NumPy :meth:`~bayeszi.families.Family.logpmf` and agrees with it to rounding
+(tests/test_performance.py, tests/test_families.py) for ``alpha * mu`` above about 1e-300.
 
 The model's density is the weighted sum over patterns, so a gradient costs O(patterns).
-The pointwise log-likelihood that LOO needs is computed after sampling by
-:func:`pattern_log_likelihood`, once per pattern and draw; :mod:`bayeszi.engine.loglik` stores it
-per record (or, for very large fits, per pattern with each record's pattern) and gives LOO
-one value per original record either way.
+The pointwise log-likelihood that LOO needs is computed after sampling, in NumPy, by
+:func:`bayeszi.engine.pointwise.pattern_log_likelihood`, once per pattern and draw;
+:mod:`bayeszi.engine.loglik` stores it per record (or, for very large fits, per pattern with
+each record's pattern) and gives LOO one value per original record either way.
 
 Example
 -------
@@ -44,9 +42,8 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from scipy import special as sc
 
-from bayeszi.families import core as F
+from bayeszi.families import get_family
 from bayeszi.model.design import Design
 
 #: pool rows only when that removes at least this share of them; otherwise keep one
@@ -137,30 +134,17 @@ def _subset(design: Design, rows: np.ndarray) -> Design:
 # =============================================================================================
 
 
-def _logaddexp(a: Any, b: Any) -> Any:
-    """log(exp(a) + exp(b)) with one exp and one log1p: max(a, b) + log1p(exp(-|a - b|))."""
-    pt = F._pt()
-    return pt.maximum(a, b) + pt.softplus(-pt.abs(a - b))
-
-
-def _split(x: Any, nz: int) -> tuple[Any, Any]:
-    """(zero-count part, positive part) of a per-pattern tensor; length-1 tensors are shared."""
-    if x.type.ndim == 0 or x.type.shape[-1] == 1:
-        return x, x
-    return x[..., :nz], x[..., nz:]
-
-
 def pattern_logp(family: str, patterns: Patterns, weighted: bool = True
                  ) -> Callable[..., Any]:
     """The log density of the observed counts, one value per pattern, for ``pm.CustomDist``.
 
     The returned ``logp(value, eta_c, eta_z, log_alpha)`` takes ``eta_c`` and ``eta_z`` with
-    one entry per pattern. With ``weighted=True`` (the model's density) each pattern's value
-    is multiplied by its number of records, so the values sum to the log-likelihood of all
-    records at O(patterns) cost; with ``weighted=False`` it is the log density of one record
-    of each pattern (:func:`pattern_log_likelihood` computes it per pattern). The observed counts
-    are built in (``value`` is not read): PyMC calls the density of an observed variable only
-    at its observed value.
+    one entry per pattern and a scalar ``log_alpha``. With ``weighted=True`` (the model's
+    density) each pattern's value is multiplied by its number of records, so the values sum
+    to the log-likelihood of all records at O(patterns) cost; with ``weighted=False`` it is
+    the log density of one record of each pattern. The observed counts are built in
+    (``value`` is not read): PyMC calls the density of an observed variable only at its
+    observed value. The values are those of :meth:`bayeszi.families.Family.logpmf`.
 
     Example
     -------
@@ -174,57 +158,14 @@ def pattern_logp(family: str, patterns: Patterns, weighted: bool = True
     >>> [round(v, 6) for v in lp.eval({eta: [0.0, 0.0]}).tolist()]   # 2 * (-1), log(e^-1/3!)
     [-2.0, -2.791759]
     """
-    fam = F.get_family(family)
-    pt = F._pt()
-    nb = fam.has_dispersion
-    nz = patterns.n_zero
-    P = patterns.n_patterns
-    y_pos = patterns.design.y[nz:]
-    y_vals, y_index = np.unique(y_pos, return_inverse=True)
-    y_pos_f = y_pos.astype(np.float64)
-    log_y_fact = sc.gammaln(y_pos_f + 1.0)  # a constant: computed once, here
+    fam = get_family(family)
     weights = patterns.weights.astype(np.float64)
     use_weights = weighted and bool(np.any(weights != 1.0))
 
     def logp(value: Any, eta_c: Any, eta_z: Any, log_alpha: Any) -> Any:
-        y1 = pt.as_tensor_variable(y_pos_f)
-        lyf = pt.as_tensor_variable(log_y_fact)
-        eta_c = pt.as_tensor_variable(eta_c)
-        la = pt.as_tensor_variable(log_alpha) if nb else None
-        ec0, ec1 = _split(eta_c, nz)
-        if fam.zeros_kind is not None:
-            ez0, ez1 = _split(pt.as_tensor_variable(eta_z), nz)
-        if nb:
-            theta = pt.exp(-la)  # 1 / alpha: one number, not one per row
-        pieces = []
-        # --- zero counts: log P(0), no gamma functions
-        if nz:
-            if fam.zeros_kind == "hurdle":
-                lp0 = -pt.softplus(-ez0) + pt.zeros_like(ec0)  # log p, one per pattern
-            else:
-                # log f(0) = -log1p(alpha mu) / alpha (NB), -mu (Poisson)
-                lp0 = -theta * pt.softplus(ec0 + la) if nb else -pt.exp(ec0)
-                if fam.zeros_kind == "inflation":
-                    # log(p + (1 - p) f0) = log(1 - p) + log(exp(eta_z) + f0)
-                    lp0 = _logaddexp(ez0, lp0) - pt.softplus(ez0)
-            pieces.append(lp0)
-        # --- positive counts: log f(y); the dispersion's gamma term once per distinct y
-        if nz < P:
-            if nb:
-                # log f(y) = D(y, theta) - lgamma(y + 1) + y (eta_c - log1p(alpha mu))
-                #            - log1p(alpha mu) / alpha     (D as in bayeszi.families)
-                y_tab = pt.as_tensor_variable(y_vals.astype(np.float64))
-                s1 = pt.softplus(ec1 + la)
-                lp1 = (y1 * (ec1 - s1) - theta * s1 - lyf
-                       + F._pt_lgamma_ratio(y_tab, la)[y_index])
-            else:
-                lp1 = y1 * ec1 - pt.exp(ec1) - lyf
-            if fam.zeros_kind is not None:
-                lp1 = lp1 - pt.softplus(ez1)  # log(1 - p)
-            if fam.zeros_kind == "hurdle":
-                lp1 = lp1 - F._pt_count_log1m_f0(ec1, la, nb)[1]  # / (1 - f(0))
-            pieces.append(lp1)
-        lp = pieces[0] if len(pieces) == 1 else pt.concatenate(pieces, axis=-1)
+        import pytensor.tensor as pt
+
+        lp = fam.pt_logp_observed(patterns.design.y, eta_c, eta_z, log_alpha)
         return lp * pt.as_tensor_variable(weights) if use_weights else lp
 
     return logp
@@ -232,7 +173,7 @@ def pattern_logp(family: str, patterns: Patterns, weighted: bool = True
 
 def pattern_random(family: str, patterns: Patterns) -> Callable[..., np.ndarray]:
     """Draws for ``pm.CustomDist``: pattern-level predictors, one count per original record."""
-    fam = F.get_family(family)
+    fam = get_family(family)
     inverse = patterns.inverse
 
     def random(eta_c, eta_z, log_alpha, rng=None, size=None):
@@ -246,10 +187,10 @@ def pattern_random(family: str, patterns: Patterns) -> Callable[..., np.ndarray]
 
 @dataclass
 class Likelihood:
-    """What a built model keeps as ``model.bayeszi_likelihood``: its family, its patterns (the
-    sampler choice and :func:`pattern_log_likelihood` read them) and its linear predictors as
-    PyTensor tensors of the free variables (tests evaluate the model's own density with them
-    and compare it with :func:`pattern_log_likelihood`)."""
+    """What a built model (``BuiltModel.likelihood``) keeps: its family, its patterns (the
+    sampler choice and :func:`bayeszi.engine.pointwise.pattern_log_likelihood` read them) and
+    its linear predictors as PyTensor tensors of the free variables (tests evaluate the
+    model's own density with them)."""
 
     family: str
     patterns: Patterns
