@@ -49,8 +49,9 @@ class FittedModel(FitRecord):
 
         Example
         -------
-        >>> from bayeszi.engine.fit import fit_record               # doctest: +SKIP
-        >>> m = FittedModel.from_record(fit_record(df, spec))       # doctest: +SKIP
+        >>> same = bz.FittedModel.from_record(m)  # any FitRecord  # doctest: +SKIP
+        >>> same.spec == m.spec and same.idata is m.idata         # doctest: +SKIP
+        True
         """
         return cls(**{f.name: getattr(record, f.name) for f in fields(FitRecord)})
 
