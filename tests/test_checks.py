@@ -10,11 +10,18 @@ Sources of the check values, named beside each test:
   than uniform (from memory: Meng 1994, Annals of Statistics 22:1142-1160), so a central
   (0.05, 0.95) or (0.01, 0.99) band holds at least 90% or 98% of them.
 - Reference pmfs: scipy.stats.poisson.
+- The Pearson statistic as a posterior predictive discrepancy, sum (y - E[y])^2 / Var[y]
+  at each draw, observed against replicated: Gelman, Meng & Stern (1996), Statistica Sinica
+  6:733-807. Its direct computation here takes E and Var from scipy.stats.poisson / nbinom
+  moments composed into the zero-inflated (Lambert 1992) and hurdle (Mullahy 1986, Journal
+  of Econometrics 33:341-365) laws; for replicated data E[(Y - E Y)^2 / Var Y] = 1 exactly,
+  so the replicated statistic averages n records at every draw.
 Fits are small (1,500 records, 2 chains x 400 draws) and shared through ``cached_fit``.
 """
 
 from __future__ import annotations
 
+import arviz as az
 import numpy as np
 import pandas as pd
 import pytest
@@ -25,7 +32,12 @@ from simulate import simulate
 import bayeszi as bz
 from bayeszi.answers import checks
 from bayeszi.engine.draws import fitted_rows, linear_predictors
+from bayeszi.engine.fit import add_user_scale
 from bayeszi.families import get_family
+from bayeszi.fitting.fitted import FittedModel
+from bayeszi.model.design import build_design
+from bayeszi.model.diagnostics import Diagnostics
+from bayeszi.model.priors import resolve
 
 SMALL = dict(draws=400, tune=400, chains=2, cores=1, seed=3, progressbar=False)
 
@@ -394,6 +406,124 @@ def test_bad_settings_get_clear_errors(zip_zip):
         zip_zip.max_count_check(seed="abc")
     with pytest.raises(bz.BayesziError, match="flag"):
         checks.zero_check(zip_zip, flag=0.7)
+
+
+# ------------------------------------------------------------------------- Pearson statistic
+
+FAMILIES = ["poisson", "negbin", "zip", "zinb", "hurdle-poisson", "hurdle-negbin"]
+
+
+def _hand_fit(family: str, n: int = 80, S: int = 500, seed: int = 21) -> tuple[FittedModel, dict]:
+    """A fit whose posterior is written by hand (no sampling), as in tests/test_predict.py,
+    without groups; returns the model and the per-draw user-scale parameters."""
+    df = simulate(family, n=n, seed=seed)[0]
+    fam = get_family(family)
+    spec = bz.make_spec(counts="y ~ x1 + x2", zeros="~ w" if fam.zeros_kind else None,
+                        family=family, exposure="exposure")
+    design = build_design(df, spec)
+    rng = np.random.default_rng(seed)
+    par = {"b": rng.normal(0.0, 0.2, (S, 3)) + np.array([0.3, 0.5, -0.4])}
+
+    def to_std(beta: np.ndarray, pdes) -> np.ndarray:  # inverse of the centring and scaling
+        out = beta * pdes.scale
+        out[:, 0] = beta[:, 0] + beta[:, 1:] @ pdes.center[1:]
+        return out
+
+    post = {"counts_std_coef": to_std(par["b"], design.counts)[None]}
+    dims = {"counts_std_coef": ["counts_term"]}
+    coords = {"counts_term": design.counts.terms}
+    if fam.zeros_kind:
+        par["g"] = rng.normal(0.0, 0.2, (S, 2)) + np.array([-0.6, 1.1])
+        post["zeros_std_coef"] = to_std(par["g"], design.zeros)[None]
+        dims["zeros_std_coef"] = ["zeros_term"]
+        coords["zeros_term"] = design.zeros.terms
+    if fam.has_dispersion:
+        par["alpha"] = rng.uniform(0.2, 1.0, S)
+        post.update({"dispersion": par["alpha"][None],
+                     "dispersion_sqrt": np.sqrt(par["alpha"])[None]})
+    idata = az.from_dict(posterior=post, coords=coords, dims=dims)
+    add_user_scale(idata, design)
+    diag = Diagnostics(table=pd.DataFrame(columns=["r_hat", "ess_bulk", "ess_tail"]),
+                       divergences=0, draws=S, chains=1)
+    m = FittedModel(spec, design, idata, resolve(design, None), df[design.used_columns].copy(),
+                    diag)
+    return m, par
+
+
+def _hand_moments(family: str, m: FittedModel, par: dict) -> tuple[np.ndarray, np.ndarray]:
+    """E[Y] and Var[Y] per (draw, record) from scipy.stats moments and the raw columns."""
+    df = m.data
+    X = np.column_stack([np.ones(len(df)), df["x1"], df["x2"]]).astype(float)
+    mu = np.exp(par["b"] @ X.T + np.log(df["exposure"].to_numpy(float))[None, :])
+    if "alpha" in par:  # NB with variance mu + alpha mu^2
+        a = par["alpha"][:, None]
+        law = stats.nbinom(1.0 / a, 1.0 / (1.0 + a * mu))
+    else:
+        law = stats.poisson(mu)
+    m1, v1 = law.mean(), law.var()
+    kind = get_family(family).zeros_kind
+    if kind is None:
+        return m1, v1
+    p = special.expit(par["g"] @ np.column_stack([np.ones(len(df)), df["w"]]).T)
+    scale = (1 - p) if kind == "inflation" else (1 - p) / (1 - law.pmf(0))
+    mean, second = scale * m1, scale * (v1 + m1**2)
+    return mean, second - mean**2
+
+
+@pytest.mark.parametrize("family", FAMILIES)
+def test_pearson_statistic_equals_a_direct_computation(family):
+    m, par = _hand_fit(family)
+    mean, var = _hand_moments(family, m, par)
+    y = m.design.y
+    t = checks.pearson_draws(m, seed=4)
+    np.testing.assert_allclose(t["observed"], ((y - mean) ** 2 / var).sum(axis=1), rtol=1e-9)
+    # each replicated record contributes 1 in expectation at every draw, so the replicated
+    # statistic averages n; 4 Monte Carlo standard errors from the draws themselves
+    rep = t["replicated"].to_numpy()
+    assert abs(rep.mean() - y.size) < 4 * rep.std(ddof=1) / np.sqrt(rep.size)
+    n_coef = 3 + (2 if get_family(family).zeros_kind else 0)
+    dof = y.size - n_coef - int(get_family(family).has_dispersion)
+    assert t.attrs["residual df"] == checks.residual_df(m) == dof
+    table = m.pearson_check(interval=0.8, seed=4)
+    obs = t["observed"].to_numpy()
+    assert table.loc["Pearson statistic", "observed mean"] == pytest.approx(obs.mean())
+    assert table.loc["per residual df", "observed 90%"] == pytest.approx(
+        np.quantile(obs, 0.9) / dof)
+    tail = np.mean(rep > obs) + 0.5 * np.mean(rep == obs)
+    np.testing.assert_allclose(table["tail prob"], tail, rtol=1e-12)
+
+
+def test_pearson_draws_do_not_depend_on_the_chunks():
+    m, _ = _hand_fit("zinb")
+    whole = checks.pearson_draws(m, draws=100, seed=2)
+    pieces = checks.pearson_draws(m, draws=100, seed=2, max_floats=100 * 10 * 7)
+    np.testing.assert_allclose(pieces["observed"], whole["observed"], rtol=1e-12)
+    pd.testing.assert_frame_equal(whole, checks.pearson_draws(m, draws=100, seed=2))
+    assert len(whole) == 100
+
+
+@pytest.fixture(scope="module")
+def negbin_pair(cached_fit):
+    """Negative binomial data (alpha 0.5), 300 records, fitted by a Poisson and a negbin."""
+    df = simulate("negbin", n=300, seed=16)[0]
+    small = dict(draws=300, tune=300, chains=2, cores=1, seed=3, progressbar=False)
+    return {fam: cached_fit(f"checks-negbin-{fam}", lambda fam=fam: bz.fit(
+        df, counts="y ~ x1 + x2", family=fam, exposure="exposure", **small))
+        for fam in ("poisson", "negbin")}
+
+
+def test_pearson_check_flags_the_poisson_fit_of_overdispersed_counts(negbin_pair,
+                                                                     zinb_poisson):
+    for m in (negbin_pair["poisson"], zinb_poisson):
+        table = m.pearson_check()
+        assert table.loc["Pearson statistic", "tail prob"] < 0.01
+        assert table.loc["per residual df", "verdict"] == "more spread than the model predicts"
+        # the classical reading: far above 1 (alpha = 0.5 and means of a few counts)
+        assert table.loc["per residual df", "observed 5%"] > 1.5
+    # the negative binomial fit of the same data: a correct model, not extreme (Meng 1994)
+    table = negbin_pair["negbin"].pearson_check()
+    assert 0.01 < table.loc["Pearson statistic", "tail prob"] < 0.99
+    assert table.loc["per residual df", "verdict"] == "in line with the model"
 
 
 # ------------------------------------------------------------------------- negative binomial

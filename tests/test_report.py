@@ -170,6 +170,17 @@ def test_data_summary_and_zero_check_equal_the_api(report):
     assert row["tail prob"] == pytest.approx(api.loc[0, "tail prob"], rel=1e-12)
 
 
+def test_pearson_table_equals_the_api(report):
+    from bayeszi.answers.checks import pearson_check
+
+    api = pearson_check(_fit(report, "poisson"), interval=0.9, seed=7)  # the study's seed
+    csv = pd.read_csv(report["out"] / "tables" / "pearson_check.csv")
+    rows = csv[csv["model"] == "poisson"].set_index("statistic")
+    for col in ("observed mean", "replicated 95%", "tail prob"):
+        np.testing.assert_allclose(rows[col], api[col], rtol=1e-12, err_msg=col)
+    assert (rows["residual df"] == api.attrs["residual df"]).all()
+
+
 def test_scenario_predictions_equal_the_api(report):
     from bayeszi.app.study import load_study
 

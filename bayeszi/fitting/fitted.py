@@ -197,6 +197,19 @@ class FittedModel(FitRecord):
         """
         return check_answers.max_count_check(self, interval=interval, draws=draws, seed=seed)
 
+    def pearson_check(self, interval: float = 0.9, draws: int | None = None,
+                      seed: options.Seed = 0) -> pd.DataFrame:
+        """Pearson statistic sum (y - E[y])^2 / Var[y] of the data against replicated data.
+
+        Also per residual degree of freedom (the classical dispersion reading). See
+        :func:`bayeszi.answers.checks.pearson_check`.
+
+        Example
+        -------
+        >>> m.pearson_check().loc["per residual df", "observed mean"]   # doctest: +SKIP
+        """
+        return check_answers.pearson_check(self, interval=interval, draws=draws, seed=seed)
+
     def replicated_statistics_plot(self, draws: int | None = None, seed: options.Seed = 0):
         """Figure: zero share, variance/mean and largest count of replicated data sets.
 
