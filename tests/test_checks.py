@@ -107,11 +107,11 @@ def test_default_kmax_is_the_99th_percentile_capped():
 
 
 def test_tail_probability_counts_ties_half():
-    # definition in checks._tail_prob: P(rep > obs) + P(rep = obs) / 2
+    # definition in checks.tail_probability: P(rep > obs) + P(rep = obs) / 2
     rep = np.array([1, 2, 2, 3])
-    assert checks._tail_prob(rep, 2) == pytest.approx(0.25 + 0.5 * 0.5)
-    assert checks._tail_prob(rep, 5) == 0.0
-    assert checks._tail_prob(rep, 0) == 1.0
+    assert checks.tail_probability(rep, 2) == pytest.approx(0.25 + 0.5 * 0.5)
+    assert checks.tail_probability(rep, 5) == 0.0
+    assert checks.tail_probability(rep, 0) == 1.0
 
 
 def test_model_label_names_both_parts():
@@ -571,12 +571,12 @@ def test_records_sharing_inputs_are_pooled_exactly(monkeypatch):
     from bench_checks import synthetic_fit
 
     m = synthetic_fit(rows=4000, draws=30, chains=2, seed=4, layout="discrete")
-    pooled, weight = checks._distinct_inputs(fitted_rows(m))
+    pooled, weight = checks.distinct_inputs(fitted_rows(m))
     # at most 30 reaches x 3 substrates x 4 seasons x 4 trap-night values (bench_data.py;
     # the barrier is a property of the reach)
     assert pooled.n <= 30 * 3 * 4 * 4 and weight.sum() == m.design.n
     fast = checks.expected_frequency_draws(m, kmax=6).to_numpy()
-    monkeypatch.setattr(checks, "_distinct_inputs",
+    monkeypatch.setattr(checks, "distinct_inputs",
                         lambda rows: (rows, np.ones(rows.n)))
     slow = checks.expected_frequency_draws(m, kmax=6).to_numpy()
     np.testing.assert_allclose(fast, slow, rtol=1e-11)

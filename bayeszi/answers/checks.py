@@ -52,9 +52,11 @@ __all__ = [
     "count_frequencies",
     "default_kmax",
     "dispersion_check",
+    "distinct_inputs",
     "expected_frequency_draws",
     "max_count_check",
     "statistics_check",
+    "tail_probability",
     "model_label",
     "pearson_check",
     "pearson_draws",
@@ -133,12 +135,18 @@ def _subset(rows: EncodedRows, sel: slice | np.ndarray) -> EncodedRows:
     )
 
 
-def _distinct_inputs(rows: EncodedRows) -> tuple[EncodedRows, np.ndarray]:
+def distinct_inputs(rows: EncodedRows) -> tuple[EncodedRows, np.ndarray]:
     """Records that share every model input (both design rows, log offset, group codes)
     have the same predictive distribution: keep one of each, with its number of records.
 
     With categorical covariates and whole-number effort this shrinks the work of the
     frequency table many times over; with continuous covariates it changes nothing.
+
+    Example
+    -------
+    >>> rows, weight = distinct_inputs(fitted_rows(m))           # doctest: +SKIP
+    >>> weight.sum() == m.design.n                                # doctest: +SKIP
+    True
     """
     parts = [rows.X_counts, rows.log_offset[:, None]]
     if rows.X_zeros is not None:
@@ -160,9 +168,15 @@ def _family(fitted: FitRecord) -> Family:
     return get_family(fitted.spec.family)
 
 
-def _tail_prob(replicated: np.ndarray, observed: float) -> float:
+def tail_probability(replicated: np.ndarray, observed: float) -> float:
     """P(T_rep > T_obs) + P(T_rep = T_obs) / 2 (ties counted half, so that a discrete
-    statistic that the model reproduces exactly sits at 1/2 rather than near 1)."""
+    statistic that the model reproduces exactly sits at 1/2 rather than near 1).
+
+    Example
+    -------
+    >>> tail_probability([1, 2, 2, 3], 2)
+    0.5
+    """
     rep = np.asarray(replicated, dtype=np.float64)
     return float(np.mean(rep > observed) + 0.5 * np.mean(rep == observed))
 
@@ -338,7 +352,7 @@ def expected_frequency_draws(fitted: FitRecord, kmax: int | None = None,
     K = _kmax(kmax, y)
     index = _draw_index(fitted, draws)
     S = _n_used(fitted, index)
-    rows, weight = _distinct_inputs(fitted_rows(fitted))
+    rows, weight = distinct_inputs(fitted_rows(fitted))
     out = np.zeros((S, K + 2))
     # pmf_table holds (draws, rows, K + 1) floats plus a handful of (draws, rows) temporaries
     for sl in _chunks(rows.n, S, K + 8, max_floats):
@@ -528,7 +542,7 @@ def statistics_check(reps: pd.DataFrame, statistics: Sequence[str], interval: fl
         else:
             lo, hi = np.quantile(finite, [iv.lower, iv.upper])
             mean = float(finite.mean())
-            tail = _tail_prob(finite, obs)
+            tail = tail_probability(finite, obs)
         rows.append({"statistic": name, "observed": obs, "replicated mean": mean,
                      f"replicated {lo_name}": lo, f"replicated {hi_name}": hi,
                      "tail prob": tail, "verdict": _verdict(tail, flag, *wording[name])})
@@ -631,7 +645,7 @@ def _zero_row(iv: options.Interval, flag: float, group: str, level: str, records
     """One row of :func:`zero_check`: a set of records, its zeros and their replicates."""
     lo_name, hi_name = iv.names
     lo, hi = np.quantile(reps / records, [iv.lower, iv.upper])
-    tail = _tail_prob(reps, observed)
+    tail = tail_probability(reps, observed)
     return {"group": group, "level": level, "records": records,
             "observed zeros": observed, "observed share": observed / records,
             "expected share": float(np.mean(expected) / records),
@@ -731,7 +745,7 @@ def pearson_check(fitted: FitRecord, interval: float = 0.9, draws: int | None = 
     t = pearson_draws(fitted, draws, seed)
     dof = t.attrs["residual df"]
     # draw by draw: the share of replicated T above the observed T at the same draw
-    tail = _tail_prob(t["replicated"].to_numpy() - t["observed"].to_numpy(), 0.0)
+    tail = tail_probability(t["replicated"].to_numpy() - t["observed"].to_numpy(), 0.0)
     verdict = _verdict(tail, flag, "more spread than the model predicts",
                        "less spread than the model predicts")
     rows = []
