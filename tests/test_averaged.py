@@ -268,3 +268,62 @@ def test_bad_weights_and_settings_are_refused() -> None:
 def test_public_names() -> None:
     assert bz.average_predictions is average_predictions
     assert bz.average_contrast is average_contrast
+
+
+# ================================================================= study file and report
+def _section(predictions: str, weights: dict[str, float]):
+    """The predictions section for FITS with the given comparison weights (no LOO run)."""
+    from bayeszi.app.report.context import ReportContext, ReportInput, WarningLog
+    from bayeszi.app.report.sections.predictions import section_predictions
+    from bayeszi.app.study import Contrast, Scenario
+
+    scn = Scenario("deep", {"x1": 1.0, "x2": 0, "w": 0.0, "site": 0}, {"x1": (0.0, 2.0)},
+                   groups="typical")
+    inp = ReportInput("t", FITS, DATA, seed=3, scenarios=[scn],
+                      contrasts=[Contrast("x2 on", "deep", {"x2": 1})], predictions=predictions)
+    comparison = pd.DataFrame({"weight": list(weights.values())}, index=list(weights))
+    ctx = ReportContext(inp, WarningLog(), {}, comparison, "pois", "", {}, {})
+    return section_predictions(ctx), scn
+
+
+def _table(section, name: str) -> pd.DataFrame:
+    return next(b.frame for b in section.blocks if getattr(b, "name", None) == name)
+
+
+def test_report_shows_the_averaged_model_with_the_comparison_weights() -> None:
+    weights = {"zip": 0.55, "pois": 0.45}
+    sec, scn = _section("both", weights)
+    preds = _table(sec, "scenario_predictions")
+    assert list(preds["model"].unique()) == ["pois", "zip", "averaged (stacking)"]
+    got = preds[preds["model"] == "averaged (stacking)"]
+    want = average_predictions(FITS, scn.frame("exposure"), what=["mean", "p_zero"],
+                               groups="typical", weights=weights, seed=3)
+    np.testing.assert_array_equal(got["mean"], want["mean"])
+    assert list(got["x1"]) == [0.0, 2.0, 0.0, 2.0]
+    contrasts = _table(sec, "contrasts")
+    assert (contrasts["model"] == "averaged (stacking)").sum() == 4  # 2 rows x mean, p_zero
+    text = " ".join(b.text for b in sec.blocks if hasattr(b, "text"))
+    assert "No model carries more than 90%" in text and "averaging matters" in text
+    only, _ = _section("averaged", weights)
+    assert list(_table(only, "scenario_predictions")["model"].unique()) == \
+        ["averaged (stacking)"]
+
+
+def test_report_says_when_averaging_changes_little() -> None:
+    sec, _ = _section("models", {"zip": 0.97, "pois": 0.03})
+    text = " ".join(b.text for b in sec.blocks if hasattr(b, "text"))
+    assert "zip carries more than 90%" in text and "changes little" in text
+    assert "averaged (stacking)" not in set(_table(sec, "scenario_predictions")["model"])
+
+
+def test_study_key_predictions() -> None:
+    from bayeszi.app.study import parse_study
+
+    raw = {"study": {"data": "d.csv", "response": "y", "predictions": "both"},
+           "model": [{"name": "p", "family": "poisson", "counts": "x"}]}
+    assert parse_study(raw, "/tmp/s.toml").predictions == "both"
+    del raw["study"]["predictions"]
+    assert parse_study(raw, "/tmp/s.toml").predictions == "models"
+    raw["study"]["predictions"] = "mixed"
+    with pytest.raises(bz.BayesziError, match="'predictions' in \\[study\\] must be one of"):
+        parse_study(raw, "/tmp/s.toml")
