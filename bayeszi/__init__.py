@@ -38,6 +38,7 @@ _LAZY = {
     "average_predictions": "bayeszi.answers.averaged",
     "average_prediction_draws": "bayeszi.answers.averaged",
     "average_contrast": "bayeszi.answers.averaged",
+    "averaged_predictive_comparison": "bayeszi.answers.averaged",
     "fit_candidates": "bayeszi.fitting.candidates",
 }
 

@@ -38,6 +38,7 @@ from bayeszi.model.priors import resolve
 pytestmark = pytest.mark.filterwarnings("ignore::bayeszi.BayesziWarning")
 
 DATA, _ = simulate("zip", n=50, seed=11, n_sites=4, site_sd=(0.5, 0.5))
+DATA["gear"] = np.random.default_rng(11).choice(["a", "b", "c"], size=len(DATA))
 NEW = pd.DataFrame({"x1": [0.0, 1.0, 2.0], "x2": [0, 1, 0], "w": [-1.0, 0.0, 1.0],
                     "exposure": [1.0, 2.0, 1.0], "site": [0, 1, 7]})
 
@@ -327,3 +328,47 @@ def test_study_key_predictions() -> None:
     raw["study"]["predictions"] = "mixed"
     with pytest.raises(bz.BayesziError, match="'predictions' in \\[study\\] must be one of"):
         parse_study(raw, "/tmp/s.toml")
+
+
+# ================================================================= average predictive comparisons
+def test_one_model_comparison_equals_its_average_comparison() -> None:
+    from bayeszi.answers.contrast import average_comparison
+
+    w = {"pois": 0.0, "zip": 1.0}
+    for kw in ({"pairs": 10_000}, {"pairs": 300}, {"groups": "new", "pairs": 300}):
+        got = bz.averaged_predictive_comparison(FITS, "x1", what="rate", weights=w, seed=5,
+                                                **kw)
+        want = average_comparison(ZIP, "x1", what="rate", seed=5, **kw)
+        pd.testing.assert_frame_equal(got, want, check_exact=True)
+    assert got.attrs["left_out"] == ["pois"]
+
+
+def test_mixture_comparison_mean_is_the_weighted_mean_of_the_models() -> None:
+    from bayeszi.answers.contrast import average_comparison
+
+    poisw, _ = hand_fit("poisson", 40, seed=1, counts="y ~ x1 + x2 + w")  # same inputs as zip
+    fits = {"pois": poisw, "zip": ZIP}
+    weights = {"pois": 0.7, "zip": 0.3}
+    got = bz.averaged_predictive_comparison(fits, "x2", groups="typical", weights=weights)
+    per = [average_comparison(f, "x2", groups="typical", draws=n)["mean"].iloc[0]
+           for f, n in ((poisw, 21), (ZIP, 9))]
+    assert got["mean"].iloc[0] == pytest.approx((21 * per[0] + 9 * per[1]) / 30, rel=1e-10)
+    assert got.attrs["draws_per_model"] == {"pois": 21, "zip": 9}
+    assert got["pairs"].iloc[0] == (DATA["x2"] == 0).sum() * (DATA["x2"] == 1).sum() * 2
+    with pytest.raises(bz.BayesziError, match="not a predictor of any model"):
+        bz.averaged_predictive_comparison(fits, "site", weights=weights)
+
+
+def test_one_model_comparison_of_a_category_equals_its_average_comparison() -> None:
+    from bayeszi.answers.contrast import average_comparison
+
+    gear, _ = hand_fit("zip", 30, seed=6, counts="y ~ x1 + C(gear)")
+    fits = {"pois": POIS, "gear": gear}
+    for levels in (None, ("c", "a")):
+        got = bz.averaged_predictive_comparison(fits, "gear", what="p_zero", levels=levels,
+                                                weights={"pois": 0.001, "gear": 0.999})
+        want = average_comparison(gear, "gear", what="p_zero", levels=levels)
+        pd.testing.assert_frame_equal(got, want, check_exact=True)
+    both = bz.averaged_predictive_comparison(fits, "gear", weights={"pois": 0.5, "gear": 0.5})
+    assert both.attrs["not_using_input"] == ["pois"]
+    assert list(both["comparison"]) == ["b vs a", "c vs a"]

@@ -23,7 +23,9 @@ The rule (:func:`plan_mixture`):
    the order of ``fits``.
 
 So with one model kept the answer equals that model's :func:`bayeszi.answers.predict.predict`
-with ``draws=S`` and the same seed, exactly.
+with ``draws=S`` and the same seed, exactly. :func:`average_contrast` and
+:func:`averaged_predictive_comparison` do the same for contrasts and for the average
+predictive comparisons of :mod:`bayeszi.answers.contrast`.
 
 Example
 -------
@@ -69,7 +71,9 @@ if TYPE_CHECKING:
     import xarray as xr
 
 __all__ = ["MIN_WEIGHT", "Mixture", "allocate_draws", "average_contrast",
-           "average_prediction_draws", "average_predictions", "plan_mixture"]
+           "average_prediction_draws", "average_predictions", "averaged_predictive_comparison",
+           "check_quantities", "compare_draws", "fitted_data", "model_setups", "plan_mixture",
+           "pool"]
 
 #: models whose (normalised) weight is below this are left out of an average
 MIN_WEIGHT = 0.01
@@ -292,6 +296,7 @@ def _problems(fits: Mapping[str, FitRecord], setups: Mapping[str, Setup]) -> lis
 
 @dataclass
 class _Pooled:
+    fits: dict[str, FitRecord]
     mix: Mixture
     whats: list[str]
     setups: dict[str, Setup]
@@ -305,14 +310,14 @@ def _pooled_predictions(fits: Mapping[str, FitRecord], data: pd.DataFrame | None
                         exposure: float | None, n_average: int, draws: int | None,
                         seed: options.Seed, weights: object, min_weight: float) -> _Pooled:
     mix = plan_mixture(fits, weights, draws, min_weight)
-    fits = {n: fits[n] for n in mix.given}
+    fits = {str(n): f for n, f in fits.items()}
     whats = check_quantities(fits, list(mix.weights), what, k, groups)
     setups = model_setups(fits, mix, groups, k, n_average, seed)
     rows = {n: _model_rows(fits[n], n, data, groups, exposure) for n in setups}
     problems = _problems(fits, setups)
     n = next(iter(rows.values())).encoded.n
     pooled = pool(setups, rows, whats, [np.arange(n)], mix.total)[0]
-    return _Pooled(mix, whats, setups, rows, pooled, problems)
+    return _Pooled(fits, mix, whats, setups, rows, pooled, problems)
 
 
 # ============================================================================ predictions
@@ -360,13 +365,13 @@ def average_predictions(fits: Mapping[str, FitRecord], data: pd.DataFrame | None
         p.draws = {w: v.sum(axis=1, keepdims=True) / (n if combine == "mean" else 1)
                    for w, v in p.draws.items()}
         index = pd.Index([f"{combine} over rows ({n} rows)"])
-    glabel = _groups_text(fits, p.setups, groups, n_average)
+    glabel = _groups_text(p.fits, p.setups, groups, n_average)
     lo_name, hi_name = iv.names
     frames = []
     for w in p.whats:
         s = summarise(p.draws[w], iv.lower, iv.upper,
                       integer=w == "new_count" and combine != "mean")
-        frames.append(pd.DataFrame({"quantity": quantity_label(fits[first], w, k),
+        frames.append(pd.DataFrame({"quantity": quantity_label(p.fits[first], w, k),
                                     "groups": glabel, "mean": s[0], "sd": s[1],
                                     lo_name: s[2], hi_name: s[3]}, index=index))
     table = frames[0] if len(frames) == 1 else pd.concat(frames)
@@ -414,8 +419,8 @@ def average_prediction_draws(fits: Mapping[str, FitRecord], data: pd.DataFrame |
         coords={"draw": np.arange(p.mix.total), "model": ("draw", models),
                 "model_draw": ("draw", ids), "row": np.asarray(p.rows[first].index)},
         name=what,
-        attrs={"quantity": quantity_label(fits[first], what, k),
-               "groups": _groups_text(fits, p.setups, groups, n_average),
+        attrs={"quantity": quantity_label(p.fits[first], what, k),
+               "groups": _groups_text(p.fits, p.setups, groups, n_average),
                "weights": "; ".join(f"{n}: {w:.3f}" for n, w in p.mix.weights.items()),
                "left_out": ", ".join(p.mix.left_out),
                "sampler_problems": "; ".join(p.problems)})
@@ -508,17 +513,27 @@ def _contrast_table(out: np.ndarray, label: dict[str, str], iv: options.Interval
     return table
 
 
+def fitted_data(fits: Mapping[str, FitRecord], models: Sequence[str]) -> pd.DataFrame:
+    """The rows the models were fitted to (the same for all, :func:`check_same_data`), with
+    the columns any of ``models`` used."""
+    frames = [fits[n].data for n in models]
+    if any(f is None for f in frames):
+        raise BayesziError("these fits do not hold their data; pass the rows as base= (or "
+                           "data=)")
+    out = frames[0]
+    for f in frames[1:]:
+        more = [c for c in f.columns if c not in out.columns]
+        if more:
+            out = pd.concat([out, f[more]], axis=1)
+    return out
+
+
 def _contrast_frames(fits: Mapping[str, FitRecord], models: Sequence[str],
                      base: pd.DataFrame | None, scenario: pd.DataFrame | None,
                      shift: Mapping[str, Any] | None, set_to: Mapping[str, Any] | None
                      ) -> tuple[pd.DataFrame, pd.DataFrame, str, list[str]]:
     """Base rows, scenario rows, the change in words, and the models it does not touch."""
-    if base is None:
-        base_df = fits[models[0]].data
-        if base_df is None:
-            raise BayesziError("these fits do not hold their data; pass the rows as base=")
-    else:
-        base_df = base
+    base_df = fitted_data(fits, models) if base is None else base
     if scenario is not None and (shift is not None or set_to is not None):
         raise BayesziError("give either scenario= (a data frame) or shift=/set_to= (changes to "
                            "the base), not both")
@@ -578,7 +593,7 @@ def average_contrast(fits: Mapping[str, FitRecord], base: pd.DataFrame | None = 
     _check_combine(combine)
     iv = options.interval_bounds(interval)
     mix = plan_mixture(fits, weights, draws, min_weight)
-    fits = {n: fits[n] for n in mix.given}
+    fits = {str(n): f for n, f in fits.items()}
     models = list(mix.weights)
     w = _contrast_quantity(fits, models, what, k, groups)
     base_df, scenario_df, change, unused = _contrast_frames(fits, models, base, scenario,
@@ -616,3 +631,196 @@ def _contrast_values(setups: Mapping[str, Setup], rows: Mapping[str, Rows], w: s
         a, b = a / na, b / nb
     name = f"{combine} over rows ({na} base, {nb} scenario)"
     return compare_draws(a[:, None], b[:, None], iv.lower, iv.upper), pd.Index([name])
+
+
+# ============================================================================ APC
+def _accumulate(setups: Mapping[str, Setup], rows: Mapping[str, Rows], w: str, n: int,
+                weight: np.ndarray, total: int) -> np.ndarray:
+    """Per pooled draw: sum over pairs of weight * (q(scenario) - q(base)); the base rows
+    are ``0..n-1`` of each model's rows and the scenario rows the ``n`` after them."""
+    acc = np.zeros(total)
+    start = 0
+    for name, setup in setups.items():
+        stop = start + setup.n_draws
+
+        def consume(units: np.ndarray, parts: list[dict[str, np.ndarray]],
+                    a: int = start, b: int = stop) -> None:
+            acc[a:b] += (parts[1][w] - parts[0][w]) @ weight[units]
+
+        evaluate(setup, rows[name], [w], [np.arange(n), n + np.arange(n)], consume)
+        start = stop
+    return acc
+
+
+def _pair_weights(df: pd.DataFrame, others: Sequence[str], levels: Mapping[str, Any],
+                  i: np.ndarray, j: np.ndarray) -> np.ndarray:
+    """Weights 1 / (1 + d' S^-1 d) of pairs (i, j) by their other inputs (Gelman & Pardoe
+    2007), categories as 0/1 indicators; all 1 without other inputs."""
+    blocks = []
+    for c in others:
+        s = df[c]
+        if c in levels or not pd.api.types.is_numeric_dtype(s):
+            dummies = pd.get_dummies(s.astype(str), drop_first=True, dtype=float)
+            if dummies.shape[1]:
+                blocks.append(dummies.to_numpy())
+        else:
+            blocks.append(s.to_numpy(dtype=float)[:, None])
+    if not blocks:
+        return np.ones(len(i))
+    v = np.hstack(blocks)
+    dv = v[i] - v[j]
+    prec = np.linalg.pinv(np.atleast_2d(np.cov(v, rowvar=False)))
+    return 1.0 / (1.0 + np.einsum("pa,ab,pb->p", dv, prec, dv))
+
+
+def _apc_pairs(df: pd.DataFrame, input: str, pairs: int, rng: np.random.Generator
+               ) -> tuple[np.ndarray, np.ndarray]:
+    """All ordered pairs of rows (or ``pairs`` random ones) that differ in ``input``."""
+    u = df[input].to_numpy(dtype=float)
+    n = len(df)
+    if n < 2 or np.all(u == u[0]):
+        raise BayesziError(f"input {input!r} takes a single value in the data; an average "
+                           "comparison needs rows that differ in it")
+    if n * (n - 1) <= pairs:
+        i, j = np.divmod(np.arange(n * n), n)
+        keep = i != j
+        i, j = i[keep], j[keep]
+    else:
+        pair_rng = np.random.default_rng(rng.integers(2**62))
+        i = pair_rng.integers(0, n, pairs)
+        j = (i + pair_rng.integers(1, n, pairs)) % n  # j != i
+    differ = u[i] != u[j]
+    return i[differ], j[differ]
+
+
+def _apc_inputs(fits: Mapping[str, FitRecord], models: Sequence[str], input: str,
+                df: pd.DataFrame) -> tuple[list[str], list[str], dict[str, Any]]:
+    """The other inputs (of any weighted model), the models not using ``input``, and the
+    category levels the models know."""
+    used: list[str] = []
+    group_cols: set[str] = set()
+    levels: dict[str, Any] = {}
+    for n in models:
+        f = fits[n]
+        used += [c for c in f.design.used_columns if c != f.spec.response and c not in used]
+        group_cols |= set(f.spec.groups) | set(f.spec.nested.values())
+        levels = {**f.design.levels, **levels}
+    if input not in used or input in group_cols:
+        raise BayesziError(f"input {input!r} is not a predictor of any model with weight; "
+                           f"choose one of {[c for c in used if c not in group_cols]}")
+    if input not in df.columns:
+        raise BayesziError(f"input {input!r} is not a column of the data; add it")
+    unused = [n for n in models if input not in fits[n].design.used_columns]
+    others = [c for c in used if c != input and c not in group_cols]
+    return others, unused, levels
+
+
+def _level_pairs(input: str, df: pd.DataFrame, known: Sequence[str],
+                 levels: tuple[str, str] | None) -> list[tuple[str, str]]:
+    """The (from, to) levels of a category input: each against the first, or ``levels``."""
+    if levels is None:
+        return [(known[0], b) for b in known[1:]]
+    if not isinstance(levels, tuple | list) or len(levels) != 2:
+        raise BayesziError(f"levels must be two levels (from, to) of {input!r}, e.g. "
+                           f"levels=({known[0]!r}, {known[-1]!r}); got {levels!r}")
+    bad = [lv for lv in levels if str(lv) not in known]
+    if bad:
+        raise BayesziError(f"level(s) {bad} of {input!r} were not in the fitted data; "
+                           f"known levels: {list(known)}")
+    return [(str(levels[0]), str(levels[1]))]
+
+
+def _apc_draws(fits: Mapping[str, FitRecord], setups: Mapping[str, Setup], base: pd.DataFrame,
+               scenario: pd.DataFrame, w: str, groups: str, exposure: float | None,
+               weight: np.ndarray, total: int) -> np.ndarray:
+    """Per pooled draw: sum over rows of weight * (q(scenario) - q(base))."""
+    rows = {n: _contrast_rows(fits[n], n, base, scenario, groups, exposure)[0] for n in setups}
+    return _accumulate(setups, rows, w, len(base), weight, total)
+
+
+def averaged_predictive_comparison(
+        fits: Mapping[str, FitRecord], input: str, data: pd.DataFrame | None = None, *,
+        what: str = "mean", groups: str = "known", interval: float = 0.9,
+        levels: tuple[str, str] | None = None, pairs: int = 10_000, weights: object = None,
+        min_weight: float = MIN_WEIGHT, k: int | None = None, exposure: float | None = None,
+        n_average: int = 30, draws: int | None = None, seed: options.Seed = None
+) -> pd.DataFrame:
+    """Average predictive comparison of ``input`` on the stacking mixture of ``fits``.
+
+    The comparison of :func:`bayeszi.answers.contrast.average_comparison` (Gelman & Pardoe
+    2007), with the same pairs of rows and pair weights for every model (the other inputs v
+    are those of any weighted model), computed per pooled draw by the model the draw comes
+    from. A weighted model that does not use ``input`` gives 0 (no effect) with its weight;
+    ``attrs["not_using_input"]`` names such models. The random pairs (when there are more
+    than ``pairs``) are drawn first from the generator of ``seed``.
+
+    Parameters
+    ----------
+    input, data, what, groups, interval, levels, pairs, k, exposure, n_average, seed : as
+        in :func:`bayeszi.answers.contrast.average_comparison`.
+    weights, min_weight, draws : as in :func:`average_predictions`.
+
+    Example
+    -------
+    >>> averaged_predictive_comparison({"zip": m1, "hurdle": m2}, "depth",
+    ...                                what="rate", seed=1)             # doctest: +SKIP
+    """
+    iv = options.interval_bounds(interval)
+    mix = plan_mixture(fits, weights, draws, min_weight)
+    fits = {str(n): f for n, f in fits.items()}
+    models = list(mix.weights)
+    w = _contrast_quantity(fits, models, what, k, groups)
+    pairs = options.check_whole(pairs, "pairs", example=10000)
+    df = fitted_data(fits, models) if data is None else data
+    others, unused, known = _apc_inputs(fits, models, input, df)
+    setups = model_setups(fits, mix, groups, k, n_average, seed)
+    problems = _problems(fits, setups)
+    if input in known or not pd.api.types.is_numeric_dtype(df[input]):
+        results = []
+        for a, b in _level_pairs(input, df, known.get(input, sorted(set(df[input].astype(
+                str)))), levels):
+            base, scenario = df.assign(**{input: a}), df.assign(**{input: b})
+            acc = _apc_draws(fits, setups, base, scenario, w, groups, exposure,
+                             np.full(len(df), 1.0 / len(df)), mix.total)
+            results.append((f"{b} vs {a}", acc, len(df)))
+    else:
+        if levels is not None:
+            raise BayesziError(f"levels= is for category inputs; {input!r} is numeric")
+        results = [_numeric_comparison(fits, setups, df, input, others, known, w, groups,
+                                       exposure, pairs, mix.total)]
+    first = next(iter(setups))
+    label = {"input": input, "quantity": quantity_label(fits[first], w, k),
+             "groups": _groups_text(fits, setups, groups, n_average)}
+    table = pd.DataFrame([_apc_row(label, c, d, n, iv) for c, d, n in results])
+    table.attrs.update(mix.attrs())
+    table.attrs.update(sampler_problems=problems, draws=mix.total,
+                       not_using_input=[n for n in unused if n in setups])
+    return table
+
+
+def _numeric_comparison(fits: Mapping[str, FitRecord], setups: Mapping[str, Setup],
+                        df: pd.DataFrame, input: str, others: Sequence[str],
+                        known: Mapping[str, Any], w: str, groups: str,
+                        exposure: float | None, pairs: int, total: int
+                        ) -> tuple[str, np.ndarray, int]:
+    """The per-draw APC of a numeric input: pairs, their weights, the weighted changes."""
+    i, j = _apc_pairs(df, input, pairs, next(iter(setups.values())).rng)
+    weight = _pair_weights(df, others, known, i, j)
+    du = df[input].to_numpy(dtype=float)[j] - df[input].to_numpy(dtype=float)[i]
+    base = df.iloc[i].reset_index(drop=True)
+    scenario = base.copy()
+    scenario[input] = df[input].to_numpy()[j]
+    num = _apc_draws(fits, setups, base, scenario, w, groups, exposure,
+                     weight * np.sign(du), total)
+    return f"per unit of {input}", num / float(np.sum(weight * np.abs(du))), int(len(i))
+
+
+def _apc_row(label: dict[str, str], comparison: str, per_draw: np.ndarray, n_pairs: int,
+             iv: options.Interval) -> dict[str, Any]:
+    """One row of the comparison table: the summaries of one comparison's draws."""
+    lo_name, hi_name = iv.names
+    qs = np.quantile(per_draw, [iv.lower, iv.upper])
+    return {**label, "comparison": comparison, "mean": per_draw.mean(),
+            "sd": per_draw.std(ddof=1) if len(per_draw) > 1 else np.nan,
+            lo_name: qs[0], hi_name: qs[1], "P(> 0)": (per_draw > 0).mean(),
+            "pairs": n_pairs}
