@@ -372,3 +372,31 @@ def test_one_model_comparison_of_a_category_equals_its_average_comparison() -> N
     both = bz.averaged_predictive_comparison(fits, "gear", weights={"pois": 0.5, "gear": 0.5})
     assert both.attrs["not_using_input"] == ["pois"]
     assert list(both["comparison"]) == ["b vs a", "c vs a"]
+
+
+def test_default_weights_are_the_stacking_weights_of_compare() -> None:
+    from scipy import stats
+
+    from bayeszi.engine import loglik
+
+    fits = {}
+    for name, family, seed, S in (("pois", "poisson", 1, 40), ("zip", "zip", 2, 30)):
+        fit, par = hand_fit(family, S, seed)
+        levels = [str(v) for v in fit.design.groups[0].levels]
+        site = np.array([levels.index(str(s)) for s in DATA["site"]])
+        X = np.column_stack([np.ones(len(DATA)), DATA["x1"], DATA["x2"]])
+        mu = np.exp(par["b"] @ X.T + np.log(DATA["exposure"].to_numpy()) + par["eff_c"][:, site])
+        y = DATA["y"].to_numpy()
+        ll = stats.poisson.logpmf(y, mu)
+        if family == "zip":
+            zeta = par["g"] @ np.column_stack([np.ones(len(DATA)), DATA["w"]]).T
+            p = sc.expit(zeta + par["eff_z"][:, site])
+            ll = np.log(np.where(y == 0, p, 0.0) + (1 - p) * np.exp(ll))
+        loglik.store(fit.idata, ll[None], obs=list(range(len(DATA))))
+        fits[name] = fit
+    table = bz.compare(fits)
+    assert abs(table["weight"].sum() - 1) < 1e-9
+    got = average_predictions(fits, NEW, groups="typical")
+    want = average_predictions(fits, NEW, groups="typical", weights=table)
+    pd.testing.assert_frame_equal(got, want, check_exact=True)
+    assert got.attrs["given_weights"] == pytest.approx(table["weight"].to_dict(), abs=1e-12)
