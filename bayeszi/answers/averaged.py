@@ -90,6 +90,11 @@ class Mixture:
     ``given``: every model's weight divided by their sum; ``weights``: the kept models'
     weights divided again by their sum; ``draws``: the draws each kept model gives (they add
     up to ``total``); ``left_out``: the models below ``min_weight``.
+
+    Example
+    -------
+    >>> Mixture({"a": 0.995, "b": 0.005}, {"a": 1.0}, {"a": 10}, ["b"], 0.01, 10).left_out
+    ['b']
     """
 
     given: dict[str, float]
@@ -215,6 +220,12 @@ def check_quantities(fits: Mapping[str, FitRecord], models: Sequence[str],
 
     A quantity whose meaning depends on the family (the zeros-part probability, the counts
     part's mean) is refused when the models give it different meanings.
+
+    Example
+    -------
+    >>> check_quantities({"zip": m1, "hurdle": m2}, ["zip", "hurdle"], "p_zero", None,
+    ...                  "known")                                       # doctest: +SKIP
+    ['p_zero']
     """
     whats: list[str] = []
     for name in models:
@@ -235,7 +246,14 @@ def check_quantities(fits: Mapping[str, FitRecord], models: Sequence[str],
 
 def model_setups(fits: Mapping[str, FitRecord], mix: Mixture, groups: str, k: int | None,
                  n_average: int, seed: options.Seed) -> dict[str, Setup]:
-    """One prediction set-up per model that gives draws, sharing one generator (in order)."""
+    """One prediction set-up per model that gives draws, sharing one generator (in order).
+
+    Example
+    -------
+    >>> model_setups(fits, plan_mixture(fits, w), "new", None, 30, 1)["zip"].n_draws
+    ...                                                                 # doctest: +SKIP
+    620
+    """
     rng = options.rng(seed)
     if mix.total == 1:
         warnings.warn("draws=1: a single draw has no spread, so the sd column is empty (NaN) "
@@ -263,6 +281,13 @@ def pool(setups: Mapping[str, Setup], rows: Mapping[str, Rows], whats: Sequence[
 
     Model after model (in the order of ``setups``), each model's draws fill the next block
     of rows of the pooled arrays; see :func:`bayeszi.answers.evaluation.evaluate`.
+    Memory: ``total`` x rows x 8 bytes per quantity and scenario.
+
+    Example
+    -------
+    >>> pool(setups, rows, ["mean"], [np.arange(n)], mix.total)[0]["mean"].shape
+    ...                                                                 # doctest: +SKIP
+    (1000, 12)
     """
     out = [{w: np.empty((total, len(u)), dtype=np.int64 if w == "new_count" else np.float64)
             for w in whats} for u in unit_rows]
@@ -347,7 +372,7 @@ def average_predictions(fits: Mapping[str, FitRecord], data: pd.DataFrame | None
     The table of :func:`~bayeszi.answers.predict.predict` (one row per input row and
     quantity, or one per quantity when combined). ``attrs``: ``models``, ``weights``,
     ``given_weights``, ``draws_per_model``, ``left_out``, ``min_weight``, ``draws``,
-    ``sampler_problems``.
+    ``sampler_problems``. The pooled draws are held whole: S x rows x 8 bytes per quantity.
 
     Example
     -------
@@ -488,7 +513,13 @@ def _contrast_rows(fit: FitRecord, name: str, base: pd.DataFrame | None,
 def compare_draws(a: np.ndarray, b: np.ndarray, lo: float, hi: float) -> np.ndarray:
     """Summaries (10, rows) of base draws ``a`` and scenario draws ``b`` (draws, rows): the
     two means, the difference's mean, sd and bounds, the ratio's median and bounds, and
-    P(ratio > 1) -- the columns of :func:`bayeszi.answers.contrast.contrast`."""
+    P(ratio > 1) -- the columns of :func:`bayeszi.answers.contrast.contrast`.
+
+    Example
+    -------
+    >>> compare_draws(np.array([[1.0], [2.0]]), np.array([[2.0], [2.0]]), 0.05, 0.95)[:3, 0]
+    array([1.5, 2. , 0.5])
+    """
     diff = b - a
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = b / a
@@ -515,7 +546,13 @@ def _contrast_table(out: np.ndarray, label: dict[str, str], iv: options.Interval
 
 def fitted_data(fits: Mapping[str, FitRecord], models: Sequence[str]) -> pd.DataFrame:
     """The rows the models were fitted to (the same for all, :func:`check_same_data`), with
-    the columns any of ``models`` used."""
+    the columns any of ``models`` used.
+
+    Example
+    -------
+    >>> list(fitted_data({"a": m1, "b": m2}, ["a", "b"]).columns)      # doctest: +SKIP
+    ['crayfish', 'trap_nights', 'water_temp', 'barrier']
+    """
     frames = [fits[n].data for n in models]
     if any(f is None for f in frames):
         raise BayesziError("these fits do not hold their data; pass the rows as base= (or "
