@@ -283,7 +283,8 @@ def _section(predictions: str, weights: dict[str, float]):
     inp = ReportInput("t", FITS, DATA, seed=3, scenarios=[scn],
                       contrasts=[Contrast("x2 on", "deep", {"x2": 1})], predictions=predictions)
     comparison = pd.DataFrame({"weight": list(weights.values())}, index=list(weights))
-    ctx = ReportContext(inp, WarningLog(), {}, comparison, "pois", "", {}, {})
+    ctx = ReportContext(inp=inp, log=WarningLog(), loo={}, comparison=comparison,
+                        preferred="pois", preferred_reason="", coefficients={}, problems={})
     return section_predictions(ctx), scn
 
 
