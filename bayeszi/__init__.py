@@ -35,6 +35,10 @@ _LAZY = {
     "BayesziWarning": "bayeszi.base.errors",
     "FittedModel": "bayeszi.fitting.fitted",
     "compare": "bayeszi.answers.comparison",
+    "average_predictions": "bayeszi.answers.averaged",
+    "average_prediction_draws": "bayeszi.answers.averaged",
+    "average_contrast": "bayeszi.answers.averaged",
+    "averaged_predictive_comparison": "bayeszi.answers.averaged",
     "fit_candidates": "bayeszi.fitting.candidates",
 }
 

@@ -41,13 +41,16 @@ from bayeszi.fitting.candidates import Candidate, CheckedCandidates, check_candi
 # Allowed keys, per table. Kept here so that the error messages and docs/study-file.md agree.
 TOP_KEYS = ("study", "sampler", "model", "scenario", "contrast")
 STUDY_KEYS = ("title", "summary", "data", "response", "exposure", "offset", "exposure_unit",
-              "groups", "nested", "seed", "interval", "preferred")
+              "groups", "nested", "seed", "interval", "preferred", "predictions")
 SAMPLER_KEYS = ("draws", "tune", "chains", "cores", "target_accept", "sampler")
 MODEL_KEYS = ("name", "family", "counts", "zeros", "groups", "varying", "nested",
               "correlated", "priors", "sampler")
 MODEL_SAMPLER_KEYS = ("draws", "tune", "target_accept")
 SCENARIO_KEYS = ("name", "values", "vary", "groups")
 CONTRAST_KEYS = ("name", "scenario", "change")
+#: values of ``predictions`` in [study]: every model's scenario predictions (the default),
+#: only those of the models averaged by their stacking weights, or both
+PREDICTIONS = ("models", "averaged", "both")
 SCENARIO_GROUPS = tuple(GROUP_MODES)
 _NAME = re.compile(r"^[A-Za-z0-9][^\x00-\x1f/\\]{0,79}$")
 
@@ -154,6 +157,7 @@ class Study:
     seed: int | None = None
     interval: float = 0.9
     preferred: str | None = None
+    predictions: str = "models"
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
     scenarios: tuple[Scenario, ...] = ()
     contrasts: tuple[Contrast, ...] = ()
@@ -375,8 +379,20 @@ def parse_study(raw: Mapping[str, Any], path: str) -> Study:
         exposure=exposure, offset=offset,
         exposure_unit=_text(st.get("exposure_unit"), "exposure_unit", "[study]"),
         groups=groups, seed=seed, interval=float(interval), preferred=preferred,
-        sampler=sampler, scenarios=tuple(scenarios), contrasts=tuple(contrasts),
+        predictions=_predictions(st), sampler=sampler, scenarios=tuple(scenarios),
+        contrasts=tuple(contrasts),
     )
+
+
+def _predictions(st: Mapping[str, Any]) -> str:
+    """The [study] ``predictions`` choice (:data:`PREDICTIONS`; default ``"models"``)."""
+    predictions = st.get("predictions", "models")
+    if predictions not in PREDICTIONS:
+        raise BayesziError(f"'predictions' in [study] must be one of {list(PREDICTIONS)}, got "
+                           f"{predictions!r}: 'models' for each model's scenario predictions, "
+                           "'averaged' for the models averaged by their stacking weights, "
+                           "'both' for both")
+    return predictions
 
 
 def _seed_and_interval(st: Mapping[str, Any]) -> tuple[int | None, float]:

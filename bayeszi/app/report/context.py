@@ -42,6 +42,8 @@ class ReportInput:
     ``data`` is the data frame they were fitted to. ``provenance`` holds the reproducibility
     facts (``data_path``, ``data_sha256``, ``study_path``, ``study_sha256``, ``command``,
     ``saved_fits``); ``notes`` holds warnings raised while fitting, per model.
+    ``predictions`` says whose scenario predictions the report shows: ``"models"`` (each
+    model's), ``"averaged"`` (the models averaged by their stacking weights) or ``"both"``.
 
     Example
     -------
@@ -59,6 +61,7 @@ class ReportInput:
     scenarios: Sequence[Scenario] = ()
     contrasts: Sequence[Contrast] = ()
     preferred: str | None = None
+    predictions: str = "models"
     provenance: dict[str, Any] = field(default_factory=dict)
     notes: dict[str, list[str]] = field(default_factory=dict)
 
@@ -132,6 +135,18 @@ class ReportContext:
     def warnings(self) -> list[str]:
         """Warnings raised while the report was computed (shown in the diagnostics section)."""
         return self.log.lines
+
+    def stacking_weights(self) -> dict[str, float] | None:
+        """The stacking weights of the LOO comparison (None with one model), by model name.
+
+        Example
+        -------
+        >>> ctx.stacking_weights()                                     # doctest: +SKIP
+        {'zinb': 0.71, 'hurdle': 0.29}
+        """
+        if self.comparison is None or "weight" not in self.comparison.columns:
+            return None
+        return {str(n): float(w) for n, w in self.comparison["weight"].items()}
 
     def caught(self, where: str, fn: Callable[..., Any], *args: Any, **kwargs: Any) -> Any:
         """Call ``fn`` recording its warnings under ``where`` (see :class:`WarningLog`)."""

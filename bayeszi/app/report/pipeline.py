@@ -107,7 +107,7 @@ def run_study(study: Study, out: str, command: str = "", progress: Progress = _q
             title=study.title, summary=study.summary, fits=fits, data=data,
             interval=study.interval, unit=study.exposure_unit, seed=study.seed,
             scenarios=study.scenarios, contrasts=study.contrasts, preferred=study.preferred,
-            provenance=provenance, notes=notes)
+            predictions=study.predictions, provenance=provenance, notes=notes)
         return _finish(inp, folder, progress)
 
 

@@ -1,5 +1,5 @@
 """The contrasts of the predictions section: each scenario row against the same row after the
-change a study's contrast names, draw by draw, per model.
+change a study's contrast names, draw by draw, per model (and/or for the averaged model).
 
 Example
 -------
@@ -16,6 +16,11 @@ import pandas as pd
 from bayeszi.answers.contrast import contrast
 from bayeszi.app.report.context import ReportContext, plain
 from bayeszi.app.report.document import Text
+from bayeszi.app.report.sections.averaging import (
+    averaged_contrast_tables,
+    shows_average,
+    shows_models,
+)
 from bayeszi.app.report.sections.common import interval_labels, table_blocks, unit
 
 if TYPE_CHECKING:
@@ -35,7 +40,7 @@ def _tables(ctx: ReportContext) -> tuple[list[pd.DataFrame], list[str]]:
     for ct in inp.contrasts:
         scn = next(s for s in inp.scenarios if s.name == ct.scenario)
         base = scn.frame(inp.first.spec.exposure)
-        for name, f in ctx.fits.items():
+        for name, f in ctx.fits.items() if shows_models(ctx) else ():
             used = {c: v for c, v in ct.change.items() if c in f.design.used_columns}
             if not used:
                 skipped.append(f"{ct.name} for {name} (the model does not use "
@@ -57,6 +62,10 @@ def _tables(ctx: ReportContext) -> tuple[list[pd.DataFrame], list[str]]:
 def contrast_blocks(ctx: ReportContext) -> list:
     """The contrasts' introduction, table and the note on contrasts not computed."""
     tables, skipped = _tables(ctx)
+    if shows_average(ctx):
+        more, not_done = averaged_contrast_tables(ctx, scenario_label)
+        tables += more
+        skipped += not_done
     blocks: list = [Text(
         "Contrasts compare each scenario row with the same row after the change the study "
         "names, draw by draw, with the same group effect in both. 'base' and 'scenario' are "

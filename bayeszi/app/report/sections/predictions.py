@@ -1,5 +1,7 @@
-"""The predictions section: every model's predictions at the study's scenarios, with a curve
-per scenario that varies a column, followed by the contrasts (:mod:`.contrasts`).
+"""The predictions section: every model's predictions at the study's scenarios (and/or those
+of the models averaged by their stacking weights, :mod:`.averaging`, as the study's
+``predictions`` says), with a curve per scenario that varies a column, followed by the
+contrasts (:mod:`.contrasts`).
 
 Example
 -------
@@ -15,8 +17,15 @@ import pandas as pd
 
 from bayeszi.answers.predict import predict
 from bayeszi.app.report import figures as F
-from bayeszi.app.report.context import ReportContext, plain
+from bayeszi.app.report.context import ReportContext
 from bayeszi.app.report.document import Figure, Section, Text
+from bayeszi.app.report.sections.averaging import (
+    averaged_scenario_table,
+    averaging_note,
+    label_rows,
+    shows_average,
+    shows_models,
+)
 from bayeszi.app.report.sections.common import interval_labels, table_blocks, unit
 from bayeszi.app.report.sections.contrasts import contrast_blocks
 from bayeszi.families import get_family
@@ -26,23 +35,20 @@ if TYPE_CHECKING:
 
 
 def _scenario_tables(ctx: ReportContext, scn: Scenario) -> list[pd.DataFrame]:
-    """One prediction table per model at the rows of scenario ``scn``."""
+    """One prediction table per model at the rows of scenario ``scn`` (and one for the
+    averaged model when the study asks for it)."""
     frame = scn.frame(ctx.inp.first.spec.exposure)
     tables = []
-    for name, f in ctx.fits.items():
+    for name, f in ctx.fits.items() if shows_models(ctx) else ():
         whats = ["mean", "p_zero"]
         if get_family(f.spec.family).zeros_kind == "inflation":  # hurdle: equals p_zero
             whats.append("p_zeros_part")
         mode = scn.groups if f.design.groups else "typical"
         t = ctx.caught(f"scenario '{scn.name}', model {name}", predict, f, frame,
                        what=whats, groups=mode, interval=ctx.inp.interval, seed=ctx.inp.seed)
-        t = plain(t).reset_index(drop=True)
-        settings = pd.concat([frame] * (len(t) // len(frame)), ignore_index=True)
-        for col in scn.vary:
-            t.insert(1, col, settings[col].to_numpy())
-        t.insert(0, "model", name)
-        t.insert(0, "scenario", scn.name)
-        tables.append(t)
+        tables.append(label_rows(t, scn, frame, name))
+    if shows_average(ctx):
+        tables.append(averaged_scenario_table(ctx, scn))
     return tables
 
 
@@ -66,12 +72,18 @@ def section_predictions(ctx: ReportContext) -> Section | None:
     if not inp.scenarios:
         return None
     per = unit(inp)
+    whose = {"models": "for every model", "averaged": "for the candidate models averaged by "
+             "their stacking weights", "both": "for every model and for the models averaged by "
+             "their stacking weights"}[inp.predictions if shows_average(ctx) else "models"]
     blocks: list = [Text(
-        f"Predictions at the settings the study names, for every model, with central "
+        f"Predictions at the settings the study names, {whose}, with central "
         f"{inp.interval:.0%} intervals. Unless a scenario gives the exposure, it is one "
         f"{per}, so E[Y] is the expected count per {per}. 'new' groups draw a group effect "
         "from the population (a site not in the data); 'known' uses a fitted group's effect; "
         "'average' averages over the population of groups.")]
+    note = averaging_note(ctx)
+    if note is not None:
+        blocks.append(note)
     tables, figs = [], []
     for scn in inp.scenarios:
         mine = _scenario_tables(ctx, scn)
