@@ -10,12 +10,11 @@ ones (1e-10 relative).
 
 from __future__ import annotations
 
-import arviz as az
 import numpy as np
 import pandas as pd
 import pytest
 from scipy import special as sc
-from simulate import simulate
+from simulate import fitted_from_user_draws, simulate
 
 import bayeszi as bz
 from bayeszi.answers.averaged import (
@@ -28,12 +27,9 @@ from bayeszi.answers.averaged import (
 from bayeszi.answers.contrast import contrast
 from bayeszi.answers.predict import predict
 from bayeszi.base import options
-from bayeszi.engine.fit import add_user_scale
 from bayeszi.families import get_family
 from bayeszi.fitting.fitted import FittedModel
 from bayeszi.model.design import build_design
-from bayeszi.model.diagnostics import Diagnostics
-from bayeszi.model.priors import resolve
 
 pytestmark = pytest.mark.filterwarnings("ignore::bayeszi.BayesziWarning")
 
@@ -54,29 +50,13 @@ def hand_fit(family: str, n_draws: int, seed: int, counts: str = "y ~ x1 + x2"
     S, L, P = n_draws, len(design.groups[0].levels), len(design.counts.terms)
     par = {"b": rng.normal(0.3, 0.3, (S, P)), "eff_c": rng.normal(0, 0.5, (S, L))}
 
-    def to_std(beta: np.ndarray, pdes) -> np.ndarray:  # inverse of the centring and scaling
-        out = beta * pdes.scale
-        out[:, 0] = beta[:, 0] + beta[:, 1:] @ pdes.center[1:]
-        return out
-
-    post = {"counts_std_coef": to_std(par["b"], design.counts)[None],
-            "counts_sd_site": np.full((1, S), 0.5), "counts_effect_site": par["eff_c"][None]}
-    dims = {"counts_std_coef": ["counts_term"], "counts_effect_site": ["site"]}
-    coords = {"counts_term": design.counts.terms, "site": design.groups[0].levels}
+    sds = {"counts": np.full(S, 0.5), "zeros": np.full(S, 0.6)}
+    effects = {"counts": par["eff_c"]}
     if fam.zeros_kind:
         par["g"] = rng.normal(0.0, 0.3, (S, 2)) + np.array([-0.5, 0.8])
         par["eff_z"] = rng.normal(0, 0.5, (S, L))
-        post.update({"zeros_std_coef": to_std(par["g"], design.zeros)[None],
-                     "zeros_sd_site": np.full((1, S), 0.6),
-                     "zeros_effect_site": par["eff_z"][None]})
-        dims.update({"zeros_std_coef": ["zeros_term"], "zeros_effect_site": ["site"]})
-        coords["zeros_term"] = design.zeros.terms
-    idata = az.from_dict(posterior=post, coords=coords, dims=dims)
-    add_user_scale(idata, design)
-    diag = Diagnostics(table=pd.DataFrame(columns=["r_hat", "ess_bulk", "ess_tail"]),
-                       divergences=0, draws=S, chains=2)
-    return FittedModel(spec, design, idata, resolve(design, None),
-                       DATA[design.used_columns].copy(), diag), par
+        effects["zeros"] = par["eff_z"]
+    return fitted_from_user_draws(DATA, spec, par["b"], par.get("g"), None, effects, sds), par
 
 
 POIS, POIS_PAR = hand_fit("poisson", 40, seed=1)

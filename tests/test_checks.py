@@ -21,23 +21,18 @@ Fits are small (1,500 records, 2 chains x 400 draws) and shared through ``cached
 
 from __future__ import annotations
 
-import arviz as az
 import numpy as np
 import pandas as pd
 import pytest
 from matplotlib.figure import Figure
 from scipy import special, stats
-from simulate import simulate
+from simulate import fitted_from_user_draws, simulate
 
 import bayeszi as bz
 from bayeszi.answers import checks
 from bayeszi.engine.draws import fitted_rows, linear_predictors
-from bayeszi.engine.fit import add_user_scale
 from bayeszi.families import get_family
 from bayeszi.fitting.fitted import FittedModel
-from bayeszi.model.design import build_design
-from bayeszi.model.diagnostics import Diagnostics
-from bayeszi.model.priors import resolve
 
 SMALL = dict(draws=400, tune=400, chains=2, cores=1, seed=3, progressbar=False)
 
@@ -420,33 +415,13 @@ def _hand_fit(family: str, n: int = 80, S: int = 500, seed: int = 21) -> tuple[F
     fam = get_family(family)
     spec = bz.make_spec(counts="y ~ x1 + x2", zeros="~ w" if fam.zeros_kind else None,
                         family=family, exposure="exposure")
-    design = build_design(df, spec)
     rng = np.random.default_rng(seed)
     par = {"b": rng.normal(0.0, 0.2, (S, 3)) + np.array([0.3, 0.5, -0.4])}
-
-    def to_std(beta: np.ndarray, pdes) -> np.ndarray:  # inverse of the centring and scaling
-        out = beta * pdes.scale
-        out[:, 0] = beta[:, 0] + beta[:, 1:] @ pdes.center[1:]
-        return out
-
-    post = {"counts_std_coef": to_std(par["b"], design.counts)[None]}
-    dims = {"counts_std_coef": ["counts_term"]}
-    coords = {"counts_term": design.counts.terms}
     if fam.zeros_kind:
         par["g"] = rng.normal(0.0, 0.2, (S, 2)) + np.array([-0.6, 1.1])
-        post["zeros_std_coef"] = to_std(par["g"], design.zeros)[None]
-        dims["zeros_std_coef"] = ["zeros_term"]
-        coords["zeros_term"] = design.zeros.terms
     if fam.has_dispersion:
         par["alpha"] = rng.uniform(0.2, 1.0, S)
-        post.update({"dispersion": par["alpha"][None],
-                     "dispersion_sqrt": np.sqrt(par["alpha"])[None]})
-    idata = az.from_dict(posterior=post, coords=coords, dims=dims)
-    add_user_scale(idata, design)
-    diag = Diagnostics(table=pd.DataFrame(columns=["r_hat", "ess_bulk", "ess_tail"]),
-                       divergences=0, draws=S, chains=1)
-    m = FittedModel(spec, design, idata, resolve(design, None), df[design.used_columns].copy(),
-                    diag)
+    m = fitted_from_user_draws(df, spec, par["b"], par.get("g"), par.get("alpha"))
     return m, par
 
 

@@ -24,18 +24,16 @@ import pandas as pd
 import pytest
 from scipy import special as sc
 from scipy import stats
-from simulate import simulate
+from simulate import fitted_from_user_draws, simulate
 
 import bayeszi as bz
+import bayeszi.answers.evaluation
 import bayeszi.answers.predict
 from bayeszi.answers.evaluation import plan_chunks
 from bayeszi.base import options
-from bayeszi.engine.fit import add_user_scale
 from bayeszi.families import get_family
 from bayeszi.fitting.fitted import FittedModel
-from bayeszi.model.design import build_design
 from bayeszi.model.diagnostics import Diagnostics
-from bayeszi.model.priors import resolve
 
 pytestmark = pytest.mark.filterwarnings("ignore::bayeszi.BayesziWarning")
 
@@ -62,38 +60,20 @@ def hand_fit(family: str, n_draws: int = 20, seed: int = 5, site_sd: float | Non
     fam = get_family(family)
     spec = bz.make_spec(counts="y ~ x1 + x2 + C(gear)", zeros="~ w" if fam.zeros_kind else None,
                         family=family, exposure="exposure", groups="site")
-    design = build_design(df, spec)
-    S, L = n_draws, len(design.groups[0].levels)
+    levels = sorted(df["site"].unique().tolist())
+    S, L = n_draws, len(levels)
     b = rng.normal(0.0, 0.3, (S, 5)) + np.array([0.2, 0.4, -0.3, 0.2, -0.4])
-    par = {"b": b, "eff_c": rng.normal(0, 0.5, (S, L)), "levels": design.groups[0].levels}
-
-    def to_std(beta: np.ndarray, pdes) -> np.ndarray:  # inverse of the centring and scaling
-        out = beta * pdes.scale
-        out[:, 0] = beta[:, 0] + beta[:, 1:] @ pdes.center[1:]
-        return out
-
-    sd_c = np.full(S, 0.5) if site_sd is None else np.full(S, site_sd)
-    post = {"counts_std_coef": to_std(b, design.counts)[None],
-            "counts_sd_site": sd_c[None], "counts_effect_site": par["eff_c"][None]}
-    dims = {"counts_std_coef": ["counts_term"], "counts_effect_site": ["site"]}
-    coords = {"counts_term": design.counts.terms, "site": par["levels"]}
+    par = {"b": b, "eff_c": rng.normal(0, 0.5, (S, L))}
+    sd = {"counts": np.full(S, 0.5 if site_sd is None else site_sd),
+          "zeros": np.full(S, 0.6 if site_sd is None else site_sd)}
     if fam.zeros_kind:
-        g = rng.normal(0.0, 0.3, (S, 2)) + np.array([-0.5, 0.8])
-        par["g"] = g
+        par["g"] = rng.normal(0.0, 0.3, (S, 2)) + np.array([-0.5, 0.8])
         par["eff_z"] = rng.normal(0, 0.5, (S, L))
-        sd_z = np.full(S, 0.6) if site_sd is None else np.full(S, site_sd)
-        post.update({"zeros_std_coef": to_std(g, design.zeros)[None],
-                     "zeros_sd_site": sd_z[None], "zeros_effect_site": par["eff_z"][None]})
-        dims.update({"zeros_std_coef": ["zeros_term"], "zeros_effect_site": ["site"]})
-        coords["zeros_term"] = design.zeros.terms
     if fam.has_dispersion:
         par["alpha"] = rng.uniform(0.2, 1.5, S)
-        post.update({"dispersion": par["alpha"][None],
-                     "dispersion_sqrt": np.sqrt(par["alpha"])[None]})
-    idata = az.from_dict(posterior=post, coords=coords, dims=dims)
-    add_user_scale(idata, design)
-    m = FittedModel(spec, design, idata, resolve(design, None), df[design.used_columns].copy(),
-                    _clean_diag(S))
+    effects = {"counts": par["eff_c"], **({"zeros": par["eff_z"]} if "eff_z" in par else {})}
+    m = fitted_from_user_draws(df, spec, b, par.get("g"), par.get("alpha"), effects, sd)
+    par["levels"] = m.design.groups[0].levels
     return m, par
 
 
@@ -269,7 +249,7 @@ def test_chunks_keep_linked_rows_together():
 def test_many_small_chunks_give_the_same_answers(monkeypatch):
     m, par = hand_fit("negbin", n=400, n_draws=100)
     rows = m.data
-    monkeypatch.setattr(bayeszi.answers.predict, "CHUNK_ELEMENTS", 2000)  # 10 rows per chunk
+    monkeypatch.setattr(bayeszi.answers.evaluation, "CHUNK_ELEMENTS", 2000)  # 10 rows per chunk
     got = m.predict(rows, what="p_zero")
     mu, _, alpha, _ = hand_parts(m, par, rows)
     p0 = (1 + alpha * mu) ** (-1 / alpha)  # NB P(0) (common fact)
