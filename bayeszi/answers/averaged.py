@@ -52,7 +52,10 @@ from bayeszi.answers.evaluation import (
     Rows,
     Setup,
     check_what,
+    compare_draws,
+    comparison_row,
     concat_rows,
+    contrast_table,
     evaluate,
     groups_label,
     is_own_label,
@@ -72,7 +75,7 @@ if TYPE_CHECKING:
 
 __all__ = ["MIN_WEIGHT", "Mixture", "allocate_draws", "average_contrast",
            "average_prediction_draws", "average_predictions", "averaged_predictive_comparison",
-           "check_quantities", "compare_draws", "fitted_data", "model_setups", "plan_mixture",
+           "check_quantities", "fitted_data", "model_setups", "plan_mixture",
            "pool"]
 
 #: models whose (normalised) weight is below this are left out of an average
@@ -510,38 +513,6 @@ def _contrast_rows(fit: FitRecord, name: str, base: pd.DataFrame | None,
     return concat_rows([ra, rb]), ra.encoded.n, rb.encoded.n
 
 
-def compare_draws(a: np.ndarray, b: np.ndarray, lo: float, hi: float) -> np.ndarray:
-    """Summaries (10, rows) of base draws ``a`` and scenario draws ``b`` (draws, rows): the
-    two means, the difference's mean, sd and bounds, the ratio's median and bounds, and
-    P(ratio > 1) -- the columns of :func:`bayeszi.answers.contrast.contrast`.
-
-    Example
-    -------
-    >>> compare_draws(np.array([[1.0], [2.0]]), np.array([[2.0], [2.0]]), 0.05, 0.95)[:3, 0]
-    array([1.5, 2. , 0.5])
-    """
-    diff = b - a
-    with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = b / a
-    out = np.empty((10, a.shape[1]))
-    out[0], out[1], out[2] = a.mean(axis=0), b.mean(axis=0), diff.mean(axis=0)
-    out[3] = diff.std(axis=0, ddof=1) if diff.shape[0] > 1 else np.nan
-    out[4:6] = np.quantile(diff, [lo, hi], axis=0)
-    out[6:9] = np.quantile(ratio, [0.5, lo, hi], axis=0)
-    out[9] = (b > a).mean(axis=0)
-    return out
-
-
-def _contrast_table(out: np.ndarray, label: dict[str, str], iv: options.Interval,
-                    index: pd.Index) -> pd.DataFrame:
-    lo_name, hi_name = iv.names
-    cols = ["base", "scenario", "difference", "difference sd", f"difference {lo_name}",
-            f"difference {hi_name}", "ratio (median)", f"ratio {lo_name}", f"ratio {hi_name}",
-            "P(ratio > 1)"]
-    table = pd.DataFrame(dict(zip(cols, out, strict=True)), index=index)
-    for pos, (key, val) in enumerate(label.items()):
-        table.insert(pos, key, val)
-    return table
 
 
 def fitted_data(fits: Mapping[str, FitRecord], models: Sequence[str]) -> pd.DataFrame:
@@ -645,7 +616,7 @@ def average_contrast(fits: Mapping[str, FitRecord], base: pd.DataFrame | None = 
     label = {"quantity": quantity_label(fits[first], w, k),
              "groups": _groups_text(fits, setups, groups, n_average), "change": change}
     out, index = _contrast_values(setups, rows, w, na, nb, combine, mix.total, iv)
-    table = _contrast_table(out, label, iv, rows[first].index[:na] if index is None else index)
+    table = contrast_table(out, label, iv, rows[first].index[:na] if index is None else index)
     table.attrs.update(mix.attrs())
     table.attrs.update(sampler_problems=problems, draws=mix.total,
                        not_using_change=[n for n in unused if n in setups])
@@ -828,7 +799,7 @@ def averaged_predictive_comparison(
     first = next(iter(setups))
     label = {"input": input, "quantity": quantity_label(fits[first], w, k),
              "groups": _groups_text(fits, setups, groups, n_average)}
-    table = pd.DataFrame([_apc_row(label, c, d, n, iv) for c, d, n in results])
+    table = pd.DataFrame([comparison_row(label, c, d, n, iv) for c, d, n in results])
     table.attrs.update(mix.attrs())
     table.attrs.update(sampler_problems=problems, draws=mix.total,
                        not_using_input=[n for n in unused if n in setups])
@@ -852,12 +823,3 @@ def _numeric_comparison(fits: Mapping[str, FitRecord], setups: Mapping[str, Setu
     return f"per unit of {input}", num / float(np.sum(weight * np.abs(du))), int(len(i))
 
 
-def _apc_row(label: dict[str, str], comparison: str, per_draw: np.ndarray, n_pairs: int,
-             iv: options.Interval) -> dict[str, Any]:
-    """One row of the comparison table: the summaries of one comparison's draws."""
-    lo_name, hi_name = iv.names
-    qs = np.quantile(per_draw, [iv.lower, iv.upper])
-    return {**label, "comparison": comparison, "mean": per_draw.mean(),
-            "sd": per_draw.std(ddof=1) if len(per_draw) > 1 else np.nan,
-            lo_name: qs[0], hi_name: qs[1], "P(> 0)": (per_draw > 0).mean(),
-            "pairs": n_pairs}

@@ -32,7 +32,10 @@ from bayeszi.answers.evaluation import (
     Rows,
     Setup,
     check_what,
+    compare_draws,
+    comparison_row,
     concat_rows,
+    contrast_table,
     evaluate,
     groups_label,
     is_own_label,
@@ -164,11 +167,11 @@ def contrast(fitted: FitRecord, base: pd.DataFrame | None = None,
              "groups": groups_label(fitted, groups, setup.n_average), "change": change}
     if combine is None:
         out = _row_by_row(setup, rows, w, na, nb, iv)
-        table = _table(out, label, iv, ra.index)
+        table = contrast_table(out, label, iv, ra.index)
     else:
         out = _combined(setup, rows, w, na, nb, combine, iv)
         name = f"{combine} over rows ({na} base, {nb} scenario)"
-        table = _table(out, label, iv, pd.Index([name]))
+        table = contrast_table(out, label, iv, pd.Index([name]))
     table.attrs["sampler_problems"] = probs
     table.attrs["draws"] = setup.n_draws
     return table
@@ -210,7 +213,7 @@ def _row_by_row(setup: Setup, rows: Rows, w: str, na: int, nb: int,
     out = np.empty((10, na))
 
     def consume(units: np.ndarray, parts: list[dict[str, np.ndarray]]) -> None:
-        out[:, units] = _compare(parts[0][w], parts[1][w], iv.lower, iv.upper)
+        out[:, units] = compare_draws(parts[0][w], parts[1][w], iv.lower, iv.upper)
 
     evaluate(setup, rows, [w], [np.arange(na), na + np.arange(nb)], consume)
     return out
@@ -230,36 +233,9 @@ def _combined(setup: Setup, rows: Rows, w: str, na: int, nb: int, combine: str,
     evaluate(setup, rows, [w], [np.arange(na + nb)], consume_all)
     if combine == "mean":
         tot /= np.array([[na], [nb]])
-    return _compare(tot[0][:, None], tot[1][:, None], iv.lower, iv.upper)
+    return compare_draws(tot[0][:, None], tot[1][:, None], iv.lower, iv.upper)
 
 
-def _compare(a: np.ndarray, b: np.ndarray, lo: float, hi: float) -> np.ndarray:
-    """Summaries (10, rows) of base draws ``a`` and scenario draws ``b`` (draws, rows)."""
-    diff = b - a
-    with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = b / a
-    s = diff.shape[0]
-    out = np.empty((10, a.shape[1]))
-    out[0] = a.mean(axis=0)
-    out[1] = b.mean(axis=0)
-    out[2] = diff.mean(axis=0)
-    out[3] = diff.std(axis=0, ddof=1) if s > 1 else np.nan
-    out[4:6] = np.quantile(diff, [lo, hi], axis=0)
-    out[6:9] = np.quantile(ratio, [0.5, lo, hi], axis=0)
-    out[9] = (b > a).mean(axis=0)
-    return out
-
-
-def _table(out: np.ndarray, label: dict[str, str], iv: options.Interval,
-           index: pd.Index) -> pd.DataFrame:
-    lo_name, hi_name = iv.names
-    cols = ["base", "scenario", "difference", "difference sd", f"difference {lo_name}",
-            f"difference {hi_name}", "ratio (median)", f"ratio {lo_name}", f"ratio {hi_name}",
-            "P(ratio > 1)"]
-    table = pd.DataFrame(dict(zip(cols, out, strict=True)), index=index)
-    for pos, (key, val) in enumerate(label.items()):
-        table.insert(pos, key, val)
-    return table
 
 
 # ============================================================================ APC
@@ -310,7 +286,7 @@ def average_comparison(fitted: FitRecord, input: str, data: pd.DataFrame | None 
             raise BayesziError(f"levels= is for category inputs; {input!r} is numeric")
         rows = [_numeric_apc(fitted, setup, df, input, used, group_cols, w, groups, exposure,
                              pairs)]
-    table = pd.DataFrame([_apc_record(base_label, comparison, per_draw, n_pairs, iv)
+    table = pd.DataFrame([comparison_row(base_label, comparison, per_draw, n_pairs, iv)
                           for comparison, per_draw, n_pairs in rows])
     table.attrs["sampler_problems"] = probs
     table.attrs["draws"] = setup.n_draws
@@ -330,16 +306,6 @@ def _check_input(fitted: FitRecord, input: str, df: pd.DataFrame) -> tuple[list[
         raise BayesziError(f"input {input!r} is not a column of the data; add it")
     return used, group_cols
 
-
-def _apc_record(base_label: dict[str, str], comparison: str, per_draw: np.ndarray,
-                n_pairs: int, iv: options.Interval) -> dict[str, Any]:
-    """One row of :func:`average_comparison`: the summaries of one comparison's draws."""
-    lo_name, hi_name = iv.names
-    qs = np.quantile(per_draw, [iv.lower, iv.upper])
-    return {**base_label, "comparison": comparison, "mean": per_draw.mean(),
-            "sd": per_draw.std(ddof=1) if len(per_draw) > 1 else np.nan,
-            lo_name: qs[0], hi_name: qs[1], "P(> 0)": (per_draw > 0).mean(),
-            "pairs": n_pairs}
 
 
 def _paired_diffs(fitted: FitRecord, setup: Setup, base: pd.DataFrame,

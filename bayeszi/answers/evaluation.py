@@ -17,6 +17,7 @@ from __future__ import annotations
 import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -423,3 +424,49 @@ def summarise(v: np.ndarray, lo: float, hi: float, integer: bool = False) -> np.
 
 
 # ============================================================================ public answers
+
+
+def compare_draws(a: np.ndarray, b: np.ndarray, lo: float, hi: float) -> np.ndarray:
+    """Summaries (10, rows) of base draws ``a`` and scenario draws ``b`` (draws, rows): the
+    two means, the difference's mean, sd and bounds, the ratio's median and bounds, and
+    P(ratio > 1) -- the columns of :func:`bayeszi.answers.contrast.contrast`.
+
+    Example
+    -------
+    >>> compare_draws(np.array([[1.0], [2.0]]), np.array([[2.0], [2.0]]), 0.05, 0.95)[:3, 0]
+    array([1.5, 2. , 0.5])
+    """
+    diff = b - a
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = b / a
+    out = np.empty((10, a.shape[1]))
+    out[0], out[1], out[2] = a.mean(axis=0), b.mean(axis=0), diff.mean(axis=0)
+    out[3] = diff.std(axis=0, ddof=1) if diff.shape[0] > 1 else np.nan
+    out[4:6] = np.quantile(diff, [lo, hi], axis=0)
+    out[6:9] = np.quantile(ratio, [0.5, lo, hi], axis=0)
+    out[9] = (b > a).mean(axis=0)
+    return out
+
+
+def contrast_table(out: np.ndarray, label: dict[str, str], iv: options.Interval,
+                    index: pd.Index) -> pd.DataFrame:
+    """The contrast table: the rows of :func:`compare_draws` named, labels in front."""
+    lo_name, hi_name = iv.names
+    cols = ["base", "scenario", "difference", "difference sd", f"difference {lo_name}",
+            f"difference {hi_name}", "ratio (median)", f"ratio {lo_name}", f"ratio {hi_name}",
+            "P(ratio > 1)"]
+    table = pd.DataFrame(dict(zip(cols, out, strict=True)), index=index)
+    for pos, (key, val) in enumerate(label.items()):
+        table.insert(pos, key, val)
+    return table
+
+
+def comparison_row(label: dict[str, str], comparison: str, per_draw: np.ndarray,
+                   n_pairs: int, iv: options.Interval) -> dict[str, Any]:
+    """One row of the comparison table: the summaries of one comparison's draws."""
+    lo_name, hi_name = iv.names
+    qs = np.quantile(per_draw, [iv.lower, iv.upper])
+    return {**label, "comparison": comparison, "mean": per_draw.mean(),
+            "sd": per_draw.std(ddof=1) if len(per_draw) > 1 else np.nan,
+            lo_name: qs[0], hi_name: qs[1], "P(> 0)": (per_draw > 0).mean(),
+            "pairs": n_pairs}

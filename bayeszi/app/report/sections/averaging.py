@@ -14,7 +14,6 @@ Example
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from typing import TYPE_CHECKING
 
 import pandas as pd
@@ -27,6 +26,7 @@ from bayeszi.answers.averaged import (
 )
 from bayeszi.app.report.context import ReportContext, plain
 from bayeszi.app.report.document import Text
+from bayeszi.app.report.sections.common import label_contrast
 
 if TYPE_CHECKING:
     from bayeszi.app.study import Scenario
@@ -71,12 +71,9 @@ def averaged_scenario_table(ctx: ReportContext, scn: Scenario) -> pd.DataFrame:
     return label_rows(t, scn, frame, AVERAGED)
 
 
-def averaged_contrast_tables(ctx: ReportContext,
-                             scenario_label: Callable[[Scenario, pd.Series], str]
-                             ) -> tuple[list[pd.DataFrame], list[str]]:
+def averaged_contrast_tables(ctx: ReportContext) -> tuple[list[pd.DataFrame], list[str]]:
     """The averaged model's contrasts (one table per contrast and quantity), and the
-    contrasts that no weighted model can answer (it uses none of the changed columns);
-    ``scenario_label`` names a scenario row in the ``setting`` column."""
+    contrasts that no weighted model can answer (it uses none of the changed columns)."""
     inp = ctx.inp
     weights = ctx.stacking_weights()
     kept = list(plan_mixture(dict(ctx.fits), weights).weights)
@@ -93,11 +90,7 @@ def averaged_contrast_tables(ctx: ReportContext,
                            dict(ctx.fits), base, set_to=dict(ct.change), what=what,
                            groups=scn.groups, interval=inp.interval, weights=weights,
                            seed=inp.seed)
-            t = plain(t).reset_index(drop=True)
-            t.insert(0, "setting", [scenario_label(scn, r) for _, r in base.iterrows()])
-            t.insert(0, "model", AVERAGED)
-            t.insert(0, "contrast", ct.name)
-            tables.append(t)
+            tables.append(label_contrast(t, ct.name, AVERAGED, scn, base))
     return tables, skipped
 
 

@@ -15,7 +15,7 @@ from typing import Any
 
 import pandas as pd
 
-from bayeszi.app.report.context import ReportInput
+from bayeszi.app.report.context import ReportInput, plain
 from bayeszi.app.report.document import Table, Text
 from bayeszi.app.report.write import slug
 from bayeszi.base import names
@@ -71,3 +71,19 @@ def table_blocks(name: str, frame: pd.DataFrame, caption: str, index: bool = Fal
 
 __all__ = ["OK_VERDICT", "SHOWN_ROWS", "interval_labels", "pct", "table_blocks", "unit",
            "zeros_label"]
+
+
+def scenario_label(scn: Any, row: pd.Series) -> str:
+    """The varied settings of one scenario row ("water_temp = 8.0"), or "as given"."""
+    parts = [f"{k} = {row[k]}" for k in scn.vary]
+    return ", ".join(parts) if parts else "as given"
+
+
+def label_contrast(t: pd.DataFrame, contrast_name: str, model: str, scn: Any,
+                   base: pd.DataFrame) -> pd.DataFrame:
+    """A contrast table for the report: the contrast, the model and each row's setting."""
+    t = plain(t).reset_index(drop=True)
+    t.insert(0, "setting", [scenario_label(scn, r) for _, r in base.iterrows()])
+    t.insert(0, "model", model)
+    t.insert(0, "contrast", contrast_name)
+    return t

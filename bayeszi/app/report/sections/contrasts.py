@@ -14,23 +14,17 @@ from typing import TYPE_CHECKING
 import pandas as pd
 
 from bayeszi.answers.contrast import contrast
-from bayeszi.app.report.context import ReportContext, plain
+from bayeszi.app.report.context import ReportContext
 from bayeszi.app.report.document import Text
 from bayeszi.app.report.sections.averaging import (
     averaged_contrast_tables,
     shows_average,
     shows_models,
 )
-from bayeszi.app.report.sections.common import interval_labels, table_blocks, unit
+from bayeszi.app.report.sections.common import interval_labels, label_contrast, table_blocks, unit
 
 if TYPE_CHECKING:
-    from bayeszi.app.study import Scenario
-
-
-def scenario_label(scn: Scenario, row: pd.Series) -> str:
-    """The varied settings of one scenario row ("water_temp = 8.0"), or "as given"."""
-    parts = [f"{k} = {row[k]}" for k in scn.vary]
-    return ", ".join(parts) if parts else "as given"
+    pass
 
 
 def _tables(ctx: ReportContext) -> tuple[list[pd.DataFrame], list[str]]:
@@ -51,11 +45,7 @@ def _tables(ctx: ReportContext) -> tuple[list[pd.DataFrame], list[str]]:
                 t = ctx.caught(f"contrast '{ct.name}', model {name}", contrast, f,
                                base, set_to=used, what=what, groups=mode,
                                interval=inp.interval, seed=inp.seed)
-                t = plain(t).reset_index(drop=True)
-                t.insert(0, "setting", [scenario_label(scn, r) for _, r in base.iterrows()])
-                t.insert(0, "model", name)
-                t.insert(0, "contrast", ct.name)
-                tables.append(t)
+                tables.append(label_contrast(t, ct.name, name, scn, base))
     return tables, skipped
 
 
@@ -63,7 +53,7 @@ def contrast_blocks(ctx: ReportContext) -> list:
     """The contrasts' introduction, table and the note on contrasts not computed."""
     tables, skipped = _tables(ctx)
     if shows_average(ctx):
-        more, not_done = averaged_contrast_tables(ctx, scenario_label)
+        more, not_done = averaged_contrast_tables(ctx)
         tables += more
         skipped += not_done
     blocks: list = [Text(
@@ -84,4 +74,4 @@ def contrast_blocks(ctx: ReportContext) -> list:
     return blocks
 
 
-__all__ = ["contrast_blocks", "scenario_label"]
+__all__ = ["contrast_blocks"]
