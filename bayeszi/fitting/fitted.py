@@ -68,10 +68,11 @@ class FittedModel(FitRecord):
     def coefficients(self, interval: float = 0.9, groups: bool = True) -> pd.DataFrame:
         """Coefficient table of both parts on the user's scale.
 
-        Rows are labelled by part and term; columns: posterior mean, sd, the central
-        ``interval`` bounds, the exp scale (rate ratio for counts, odds ratio for zeros) with
-        its bounds, R-hat, bulk and tail ESS and a flag. Group sds (and correlations) and the
-        NB dispersion are listed too, without an exp scale.
+        Rows are labelled by part and term (its readable label, e.g. ``substrate: gravel
+        (vs cobble)``; see :mod:`bayeszi.model.term_labels`); columns: posterior mean, sd, the
+        central ``interval`` bounds, the exp scale (rate ratio for counts, odds ratio for
+        zeros) with its bounds, R-hat, bulk and tail ESS and a flag. Group sds (and
+        correlations) and the NB dispersion are listed too, without an exp scale.
         """
         iv = options.interval_bounds(interval)
         rows: list[dict] = []
@@ -81,9 +82,9 @@ class FittedModel(FitRecord):
             if pdes is None:
                 continue
             var = post[names.coef(part)]
-            for term in pdes.terms:
-                add(part, term, var.sel({names.term_dim(part): term}).values,
-                    names.summary_key(names.coef(part), term),
+            for term, label in zip(pdes.terms, pdes.labels, strict=True):
+                add(part, label, var.sel({names.term_dim(part): term}).values,
+                    names.summary_key(names.coef(part), label),
                     _label(part, self.spec.family, term))
         if names.DISPERSION in post:
             add("counts", "dispersion (alpha)", post[names.DISPERSION].values, names.DISPERSION,
