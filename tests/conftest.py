@@ -112,8 +112,11 @@ cores = 1
 [[model]]
 name = "zinb-reach"
 family = "zinb"
-counts = "water_temp + C(substrate) + depth"
+counts = "water_temp + substrate + depth"
 zeros = "barrier"
+
+[model.priors.counts]
+"substrate: silt (vs cobble)" = {{ distribution = "normal", mean = 0, sd = 0.8 }}
 
 [[model]]
 name = "poisson"

@@ -201,7 +201,8 @@ def test_fit_candidates_gives_one_fit_per_candidate_on_the_same_data(zinb_fits):
 def test_candidate_names_and_zeros_settings():
     cands = candidate_specs("y ~ x", ["poisson", "zip", "hurdle-negbin"],
                             {"flat": "~ 1", "by w": "~ w"}, groups="site",
-                            varying={"zeros": ["w"]}, priors={"zeros": {"w": ["normal", 0, 1]}})
+                            varying={"zeros": ["w"]},
+                            priors={"zeros": {"w": bz.priors.normal(sd=1)}})
     assert [c.name for c in cands] == ["poisson", "zip flat", "zip by w",
                                        "hurdle-negbin flat", "hurdle-negbin by w"]
     assert cands[0].spec.varying == {} and "zeros" not in cands[0].spec.priors

@@ -130,6 +130,12 @@ def test_coefficients_equal_the_api(report):
         csv = pd.read_csv(report["out"] / "tables" / f"coefficients_{name}.csv",
                           keep_default_na=False, na_values=[""])
         assert list(csv["term"]) == list(api["term"])
+        # the readable labels, not the formula library's names (the study writes `substrate`
+        # without C(); cobble, first in sorted order, is the reference)
+        assert not csv["term"].str.contains(r"\[T\.|C\(", regex=True).any()
+        if name == "zinb-reach":
+            assert {"substrate: gravel (vs cobble)", "substrate: silt (vs cobble)"} <= \
+                set(csv["term"])
         for col in ("mean", "sd", "5%", "95%", "exp(mean)", "exp 5%", "exp 95%", "r_hat",
                     "ess_bulk"):
             np.testing.assert_allclose(csv[col].to_numpy(float), api[col].to_numpy(float),
@@ -137,6 +143,17 @@ def test_coefficients_equal_the_api(report):
         page = report["tables"][f"coefficients_{name}"]
         for col in ("mean", "exp(mean)", "exp 95%"):
             assert list(page[col]) == [format_number(v) for v in api[col]], col
+
+
+def test_priors_table_shows_labels_and_the_study_files_prior(report):
+    """The study gives "substrate: silt (vs cobble)" a prior by its label, as an inline
+    table; the priors CSV shows it in words beside the default of the other level."""
+    csv = pd.read_csv(report["out"] / "tables" / "priors.csv")
+    rows = csv[csv["model"] == "zinb-reach"].set_index(["part", "term"])["prior"]
+    assert rows[("counts", "substrate: silt (vs cobble)")] == "Normal, mean 0, sd 0.8"
+    assert rows[("counts", "substrate: gravel (vs cobble)")] == "Normal, mean 0, sd 1"
+    assert rows[("counts", "group sd")] == "Half-normal, sd 1"
+    assert not csv["term"].str.contains(r"\[T\.|C\(", regex=True).any()
 
 
 def test_loo_table_equals_the_api(report):
