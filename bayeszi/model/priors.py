@@ -41,6 +41,7 @@ from bayeszi.base.names import zero_mechanism
 from bayeszi.model.distributions import (
     PARAMETERS,
     REAL_LINE,
+    Prior,  # noqa: F401  (0.1's import path: says what to write)
     PriorDistribution,
     as_distribution,
     exponential,
