@@ -19,6 +19,7 @@ import sys
 from typing import Any
 
 from bayeszi.base.errors import BayesziError
+from bayeszi.base.renamed import refuse_renamed_function
 from bayeszi.base.version import __version__
 
 _LAZY = {
@@ -34,7 +35,7 @@ _LAZY = {
     "SamplerSettings": "bayeszi.base.spec",
     "BayesziWarning": "bayeszi.base.errors",
     "FittedModel": "bayeszi.fitting.fitted",
-    "compare": "bayeszi.answers.comparison",
+    "rank_models": "bayeszi.answers.comparison",
     "average_predictions": "bayeszi.answers.averaged",
     "average_prediction_draws": "bayeszi.answers.averaged",
     "average_contrast": "bayeszi.answers.averaged",
@@ -50,6 +51,7 @@ def __getattr__(name: str) -> Any:
         value = getattr(importlib.import_module(_LAZY[name]), name)
         globals()[name] = value
         return value
+    refuse_renamed_function("bayeszi", name)
     raise AttributeError(f"module 'bayeszi' has no attribute {name!r}")
 
 

@@ -34,7 +34,7 @@ from bayeszi.engine.draws import fitted_rows, linear_predictors
 from bayeszi.families import get_family
 from bayeszi.fitting.fitted import FittedModel
 
-SMALL = dict(draws=400, tune=400, chains=2, cores=1, seed=3, progressbar=False)
+SMALL = dict(draws=400, warmup_steps=400, chains=2, cores=1, seed=3, progressbar=False)
 
 
 # ------------------------------------------------------------------------- fits
@@ -86,7 +86,7 @@ def hurdle_groups(cached_fit):
     df, _ = simulate("hurdle-poisson", n=400, seed=14, n_sites=8, site_sd=(0.3, 0.3))
     return cached_fit("checks-hurdle-groups", lambda: bz.fit(
         df, counts="y ~ x1 + x2", zeros="~ w", family="hurdle-poisson", exposure="exposure",
-        groups="site", draws=200, tune=200, chains=2, cores=1, seed=3, progressbar=False))
+        groups="site", draws=200, warmup_steps=200, chains=2, cores=1, seed=3, progressbar=False))
 
 
 # ------------------------------------------------------------------------- no fit needed
@@ -481,7 +481,7 @@ def test_pearson_draws_do_not_depend_on_the_chunks():
 def negbin_pair(cached_fit):
     """Negative binomial data (alpha 0.5), 300 records, fitted by a Poisson and a negbin."""
     df = simulate("negbin", n=300, seed=16)[0]
-    small = dict(draws=300, tune=300, chains=2, cores=1, seed=3, progressbar=False)
+    small = dict(draws=300, warmup_steps=300, chains=2, cores=1, seed=3, progressbar=False)
     return {fam: cached_fit(f"checks-negbin-{fam}", lambda fam=fam: bz.fit(
         df, counts="y ~ x1 + x2", family=fam, exposure="exposure", **small))
         for fam in ("poisson", "negbin")}

@@ -153,8 +153,8 @@ def test_fit_command_writes_a_loadable_fit(tmp_path, capsys):
     data.to_csv(csv, index=False)
     out = tmp_path / "m.nc"
     rc = main(["fit", "--data", str(csv), "--counts", "crayfish ~ depth", "--family", "poisson",
-               "--exposure", "trap_nights", "--draws", "100", "--tune", "150", "--seed", "2",
-               "--out", str(out), "--quiet"])
+               "--exposure", "trap_nights", "--draws", "100", "--warmup-steps", "150",
+               "--seed", "2", "--out", str(out), "--quiet"])
     assert rc == 0
     printed = capsys.readouterr().out
     fitted = bayeszi.load(str(out))

@@ -147,8 +147,8 @@ def test_counts_formula_without_response():
 
 
 def test_bad_sampler_setting():
-    with pytest.raises(bz.BayesziError, match=r"target_accept"):
-        bz.make_spec("y ~ x", target_accept=1.5)
+    with pytest.raises(bz.BayesziError, match=r"acceptance_target"):
+        bz.make_spec("y ~ x", acceptance_target=1.5)
     with pytest.raises(bz.BayesziError, match=r"'draw'.*did you mean 'draws'"):
         bz.make_spec("y ~ x", draw=10)
 

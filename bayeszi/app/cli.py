@@ -26,6 +26,7 @@ from collections.abc import Sequence
 from typing import Any, NoReturn
 
 from bayeszi.base.errors import BayesziError
+from bayeszi.base.renamed import refuse_renamed_flags
 
 __all__ = ["build_parser", "main"]
 
@@ -63,7 +64,8 @@ def _command_line(argv: Sequence[str]) -> str:
 
 # ---------------------------------------------------------------------- subcommands
 def _overrides(args: argparse.Namespace) -> dict[str, Any]:
-    return {"draws": args.draws, "tune": args.tune, "chains": args.chains, "cores": args.cores}
+    return {"draws": args.draws, "warmup_steps": args.warmup_steps, "chains": args.chains,
+            "cores": args.cores}
 
 
 def _run(args: argparse.Namespace) -> int:
@@ -107,8 +109,8 @@ def _fit(args: argparse.Namespace) -> int:
     data = read_table(args.data)
     spec = make_spec(args.counts, args.zeros, args.family, exposure=args.exposure,
                      offset=args.offset, groups=args.groups or None, draws=args.draws,
-                     tune=args.tune, chains=args.chains, cores=args.cores,
-                     target_accept=args.target_accept, seed=args.seed)
+                     warmup_steps=args.warmup_steps, chains=args.chains, cores=args.cores,
+                     acceptance_target=args.acceptance_target, seed=args.seed)
     name = args.name or spec.family
     checked = check_candidates(data, [Candidate(name, spec)], noun="model")  # before sampling
     args.console(f"fitting {spec.family} to {len(data)} records of {args.data} ...")
@@ -174,9 +176,9 @@ def _sampler_flags(p: argparse.ArgumentParser, defaults: bool) -> None:
     p.add_argument("--draws", type=int, default=1000 if defaults else None,
                    help="posterior draws per chain" + (" (default: %(default)s)" if defaults
                                                        else note))
-    p.add_argument("--tune", type=int, default=1000 if defaults else None,
-                   help="tuning steps per chain" + (" (default: %(default)s)" if defaults
-                                                    else note))
+    p.add_argument("--warmup-steps", type=int, default=1000 if defaults else None,
+                   help="warm-up (adaptation) steps per chain"
+                   + (" (default: %(default)s)" if defaults else note))
     p.add_argument("--chains", type=int, default=2 if defaults else None,
                    help="chains" + (" (default: %(default)s)" if defaults else note))
     p.add_argument("--cores", type=int, default=None,
@@ -245,7 +247,7 @@ def _add_fit(sub: Any) -> None:
     f.add_argument("--offset", metavar="COLUMN", help="a ready-made log-offset column")
     f.add_argument("--groups", nargs="+", metavar="COLUMN", help="grouping column(s)")
     _sampler_flags(f, defaults=True)
-    f.add_argument("--target-accept", type=float, default=0.9,
+    f.add_argument("--acceptance-target", type=float, default=0.9,
                    help="NUTS target acceptance (default: %(default)s)")
     f.add_argument("--seed", type=int, default=None, help="random seed")
     f.add_argument("--name", default=None, help="the model's name in later reports "
@@ -303,6 +305,11 @@ def _common_run_flags(p: argparse.ArgumentParser) -> None:
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit code."""
     argv = list(sys.argv[1:] if argv is None else argv)
+    try:
+        refuse_renamed_flags(argv)
+    except BayesziError as err:
+        print(f"bayeszi: error: {err}", file=sys.stderr)
+        return 2
     try:
         parser = build_parser()
         args = parser.parse_args(argv)

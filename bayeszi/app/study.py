@@ -35,6 +35,7 @@ import pandas as pd
 
 from bayeszi.base.errors import BayesziError
 from bayeszi.base.options import GROUP_MODES, check_group_mode
+from bayeszi.base.renamed import refuse_renamed
 from bayeszi.base.spec import ModelSpec, SamplerSettings
 from bayeszi.fitting.candidates import Candidate, CheckedCandidates, check_candidates
 
@@ -42,10 +43,10 @@ from bayeszi.fitting.candidates import Candidate, CheckedCandidates, check_candi
 TOP_KEYS = ("study", "sampler", "model", "scenario", "contrast")
 STUDY_KEYS = ("title", "summary", "data", "response", "exposure", "offset", "exposure_unit",
               "groups", "nested", "seed", "interval", "preferred", "predictions")
-SAMPLER_KEYS = ("draws", "tune", "chains", "cores", "target_accept", "sampler")
+SAMPLER_KEYS = ("draws", "warmup_steps", "chains", "cores", "acceptance_target", "sampler")
 MODEL_KEYS = ("name", "family", "counts", "zeros", "groups", "varying", "nested",
               "correlated", "priors", "sampler")
-MODEL_SAMPLER_KEYS = ("draws", "tune", "target_accept")
+MODEL_SAMPLER_KEYS = ("draws", "warmup_steps", "acceptance_target")
 SCENARIO_KEYS = ("name", "values", "vary", "groups")
 CONTRAST_KEYS = ("name", "scenario", "change")
 #: values of ``predictions`` in [study]: every model's scenario predictions (the default),
@@ -66,6 +67,7 @@ def _strict(table: Any, known: tuple[str, ...], where: str) -> dict[str, Any]:
     """Refuse a non-table or any key not in ``known``, naming it and listing the known ones."""
     if not isinstance(table, Mapping):
         raise BayesziError(f"{where} must be a table of settings, got {type(table).__name__}")
+    refuse_renamed(table, where)
     for key in table:
         if key not in known:
             near = difflib.get_close_matches(str(key), known, n=1)

@@ -21,6 +21,7 @@ from bayeszi.answers import contrast as contrast_answers
 from bayeszi.answers import groups as group_answers
 from bayeszi.answers import predict as predict_answers
 from bayeszi.base import names, options
+from bayeszi.base.renamed import refusing_renamed
 from bayeszi.engine import archive
 from bayeszi.engine.record import FitRecord
 from bayeszi.families import get_family
@@ -256,12 +257,13 @@ class FittedModel(FitRecord):
         """
         return check_answers.zero_sources(self, by=by, interval=interval, draws=draws)
 
-    # ------------------------------------------------------------------ LOO (compare.py)
-    def loo(self, exact_refits: bool = False, k_threshold: float = 0.7, max_refits: int = 20,
+    # ------------------------------------------------------------------ LOO (comparison.py)
+    @refusing_renamed
+    def loo(self, exact_refits: bool = False, k_limit: float = 0.7, max_refits: int = 20,
             refit_settings: dict[str, Any] | None = None) -> Any:
         """Expected log predictive density by PSIS-LOO, with each row's Pareto k.
 
-        Rows with k above ``k_threshold`` (0.7, Vehtari et al. 2024) are named in a warning;
+        Rows with k above ``k_limit`` (0.7, Vehtari et al. 2024) are named in a warning;
         ``exact_refits=True`` refits the model without each of them (at most ``max_refits``)
         and uses the exact leave-one-out value. Returns a
         :class:`bayeszi.answers.comparison.LooEstimate` (``.elpd``, ``.se``, ``.p_loo``,
@@ -272,8 +274,8 @@ class FittedModel(FitRecord):
         >>> est = fitted.loo()                                   # doctest: +SKIP
         >>> round(est.elpd), est.k_counts()                      # doctest: +SKIP
         """
-        return loo_answers.loo(self, exact_refits=exact_refits, k_threshold=k_threshold,
-                   max_refits=max_refits, refit_settings=refit_settings)
+        return loo_answers.loo(self, exact_refits=exact_refits, k_limit=k_limit,
+                               max_refits=max_refits, refit_settings=refit_settings)
 
     # ------------------------------------------------------------------ predictions
     def predict(self, data: pd.DataFrame | None = None, what: str | list[str] = "mean",
@@ -378,7 +380,7 @@ class _RowAdder:
             row["exp(mean)"] = float(e.mean())
             row[f"exp {lo_name}"], row[f"exp {hi_name}"] = np.exp([lo, hi])
         if key in self.diag.index:
-            row.update(self.diag.loc[key, ["r_hat", "ess_bulk", "ess_tail"]].to_dict())
+            row.update(self.diag.loc[key, list(names.DIAGNOSTIC_COLUMNS)].to_dict())
         self.rows.append(row)
 
 
@@ -388,25 +390,25 @@ def _group_rows(m: FitRecord, add: _RowAdder, group: str) -> None:
     for part in names.PARTS:
         name = names.group_sd(part, group)
         if name in post:
-            add(part, f"sd({group})", post[name].values, name, None)
+            add(part, names.group_sd_label(group), post[name].values, name, None)
         sname = names.slope_sd(part, group)
         if sname in post:
             pdes = m.design.counts if part == "counts" else m.design.zeros
             for t in m.spec.varying.get(part, ()):
                 j = pdes.terms.index(t)
                 v = post[sname].sel({names.slope_term_dim(part): t}).values / pdes.scale[j]
-                add(part, f"sd({group}: {t})", v, names.summary_key(sname, t), None)
+                add(part, names.slope_sd_label(group, t), v, names.summary_key(sname, t), None)
     if names.corr(group) in post:
-        add("both", f"corr({group})", post[names.corr(group)].values, names.corr(group),
-            None)
+        add("both", names.corr_label(group), post[names.corr(group)].values,
+            names.corr(group), None)
 
 
 def _flag_for(row: dict, th: Any) -> str:
     out = []
-    r = row.get("r_hat")
+    r = row.get(names.RHAT)
     if r is not None and np.isfinite(r) and r > th.rhat:
         out.append("R-hat")
-    eb, et = row.get("ess_bulk"), row.get("ess_tail")
+    eb, et = row.get(names.BULK_ESS), row.get(names.TAIL_ESS)
     if eb is not None and np.isfinite(eb) and (eb < th.ess or et < th.ess):
         out.append("low ESS")
     return " ".join(out)
@@ -432,7 +434,7 @@ def format_fit(m: FittedModel) -> str:
     table = m.coefficients()
     with pd.option_context("display.width", 140, "display.max_columns", 20,
                            "display.float_format", lambda v: f"{v:.3g}"):
-        shown = table.drop(columns=["ess_tail"], errors="ignore")
+        shown = table.drop(columns=[names.TAIL_ESS], errors="ignore")
         lines.append("")
         lines.append(shown.to_string(na_rep=""))
     probs = m.sampler_problems()

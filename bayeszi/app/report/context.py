@@ -24,7 +24,7 @@ from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
-from bayeszi.answers.comparison import LooEstimate, compare, loo
+from bayeszi.answers.comparison import WEIGHT, LooEstimate, loo, rank_models
 
 if TYPE_CHECKING:
     from bayeszi.app.study import Contrast, Scenario
@@ -144,9 +144,9 @@ class ReportContext:
         >>> ctx.stacking_weights()                                     # doctest: +SKIP
         {'zinb': 0.71, 'hurdle': 0.29}
         """
-        if self.comparison is None or "weight" not in self.comparison.columns:
+        if self.comparison is None or WEIGHT not in self.comparison.columns:
             return None
-        return {str(n): float(w) for n, w in self.comparison["weight"].items()}
+        return {str(n): float(w) for n, w in self.comparison[WEIGHT].items()}
 
     def caught(self, where: str, fn: Callable[..., Any], *args: Any, **kwargs: Any) -> Any:
         """Call ``fn`` recording its warnings under ``where`` (see :class:`WarningLog`)."""
@@ -168,7 +168,7 @@ def loo_answers(fits: Mapping[str, FittedModel], log: WarningLog
                 ) -> tuple[dict[str, LooEstimate], pd.DataFrame | None]:
     """PSIS-LOO of every model, once each, and with two or more models their comparison.
 
-    With several models the estimates' own warnings are left to :func:`compare`, which
+    With several models the estimates' own warnings are left to :func:`rank_models`, which
     repeats them for every model it ranks.
     """
     if len(fits) < 2:
@@ -176,7 +176,7 @@ def loo_answers(fits: Mapping[str, FittedModel], log: WarningLog
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         ests = {n: loo(f, label=n) for n, f in fits.items()}
-    return ests, plain(log.caught("LOO comparison", compare, ests))
+    return ests, plain(log.caught("LOO comparison", rank_models, ests))
 
 
 def choose_preferred(inp: ReportInput, comparison: pd.DataFrame | None) -> tuple[str, str]:

@@ -49,7 +49,7 @@ class _StudyProgress:
         spec = self.specs[name]
         s = spec.sampler
         self.say(f"[{self.position[name]}/{len(self.specs)}] fitting {name} ({spec.family}, "
-                 f"{s.chains} chains x {s.tune} tune + {s.draws} draws) ...")
+                 f"{s.chains} chains x {s.warmup_steps} warm-up steps + {s.draws} draws) ...")
 
     def finish(self, name: str, seconds: float, warned: Sequence[str] = ()) -> None:
         self.say(f"[{self.position[name]}/{len(self.specs)}] {name} done in {seconds:.0f} s"
