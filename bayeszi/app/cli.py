@@ -173,15 +173,16 @@ def _report(args: argparse.Namespace) -> int:
 # ---------------------------------------------------------------------- parser
 def _sampler_flags(p: argparse.ArgumentParser, defaults: bool) -> None:
     note = "" if defaults else " (default: as the study file says)"
-    p.add_argument("--draws", type=int, default=1000 if defaults else None,
+    p.add_argument("--draws", type=int, metavar="N", default=1000 if defaults else None,
                    help="posterior draws per chain" + (" (default: %(default)s)" if defaults
                                                        else note))
-    p.add_argument("--warmup-steps", type=int, default=1000 if defaults else None,
+    p.add_argument("--warmup-steps", type=int, metavar="N",
+                   default=1000 if defaults else None,
                    help="warm-up (adaptation) steps per chain"
                    + (" (default: %(default)s)" if defaults else note))
-    p.add_argument("--chains", type=int, default=2 if defaults else None,
+    p.add_argument("--chains", type=int, metavar="N", default=2 if defaults else None,
                    help="chains" + (" (default: %(default)s)" if defaults else note))
-    p.add_argument("--cores", type=int, default=None,
+    p.add_argument("--cores", type=int, metavar="N", default=None,
                    help="cores to run chains on (default: one per chain, up to the machine's)")
 
 
@@ -247,8 +248,9 @@ def _add_fit(sub: Any) -> None:
     f.add_argument("--offset", metavar="COLUMN", help="a ready-made log-offset column")
     f.add_argument("--groups", nargs="+", metavar="COLUMN", help="grouping column(s)")
     _sampler_flags(f, defaults=True)
-    f.add_argument("--acceptance-target", type=float, default=0.9,
-                   help="NUTS target acceptance (default: %(default)s)")
+    f.add_argument("--acceptance-target", type=float, default=0.9, metavar="P",
+                   help="the acceptance rate the warm-up tunes the step size to, in [0.5, 1); "
+                        "raise toward 0.99 after divergences (default: %(default)s)")
     f.add_argument("--seed", type=int, default=None, help="random seed")
     f.add_argument("--name", default=None, help="the model's name in later reports "
                    "(default: the family)")
