@@ -282,7 +282,8 @@ def test_format_number():
 # ---------------------------------------------------------------------- a real browser
 @pytest.mark.skipif(shutil.which("chromium") is None, reason="Debian's chromium is not installed")
 def test_chromium_renders_without_broken_images(report, tmp_path):
-    """Render the page headless: every image loads, and the screenshot is not blank."""
+    """Render the page headless at 1280 px: every image loads, no table makes the page wider
+    than the window (wide tables scroll inside their box), the screenshot is not blank."""
     from PIL import Image
 
     page = tmp_path / "check.html"
@@ -291,17 +292,19 @@ def test_chromium_renders_without_broken_images(report, tmp_path):
              "for (var i = 0; i < imgs.length; i++) {"
              " if (!imgs[i].complete || imgs[i].naturalWidth === 0) bad++; }"
              "var p = document.createElement('p'); p.id = 'probe';"
-             "p.textContent = 'images=' + imgs.length + ' broken=' + bad;"
+             "var wide = document.documentElement.scrollWidth > window.innerWidth;"
+             "p.textContent = 'images=' + imgs.length + ' broken=' + bad + ' wide=' + wide;"
              "document.body.appendChild(p); });</script>")
     page.write_text(report["html"].replace("</body>", probe + "</body>"), encoding="utf-8")
     base = ["chromium", "--headless", "--no-sandbox", "--disable-gpu", "--hide-scrollbars",
             "--virtual-time-budget=10000"]
-    dom = subprocess.run([*base, "--dump-dom", page.as_uri()], capture_output=True,
-                         text=True, timeout=120)
-    m = re.search(r"images=(\d+) broken=(\d+)", dom.stdout)
+    dom = subprocess.run([*base, "--window-size=1280,4000", "--dump-dom", page.as_uri()],
+                         capture_output=True, text=True, timeout=120)
+    m = re.search(r"images=(\d+) broken=(\d+) wide=(\w+)", dom.stdout)
     assert m, dom.stderr[-500:]
     n_figs = len(list((report["out"] / "figures").glob("*.png")))
     assert int(m.group(1)) == n_figs and int(m.group(2)) == 0
+    assert m.group(3) == "false", "the page is wider than a 1280 px window: a table overflows"
     shot = tmp_path / "report.png"
     subprocess.run([*base, "--window-size=1280,4000", f"--screenshot={shot}",
                     (report["out"] / "report.html").as_uri()], capture_output=True,

@@ -42,7 +42,8 @@ from bayeszi.fitting.candidates import Candidate, CheckedCandidates, check_candi
 # Allowed keys, per table. Kept here so that the error messages and docs/study-file.md agree.
 TOP_KEYS = ("study", "sampler", "model", "scenario", "contrast")
 STUDY_KEYS = ("title", "summary", "data", "response", "exposure", "offset", "exposure_unit",
-              "groups", "nested", "seed", "interval", "preferred", "predictions")
+              "groups", "nested", "seed", "interval", "preferred", "predictions",
+              "exact_refits")
 SAMPLER_KEYS = ("draws", "warmup_steps", "chains", "cores", "acceptance_target", "sampler")
 MODEL_KEYS = ("name", "family", "counts", "zeros", "groups", "varying", "nested",
               "correlated", "priors", "sampler")
@@ -160,6 +161,7 @@ class Study:
     interval: float = 0.9
     preferred: str | None = None
     predictions: str = "models"
+    exact_refits: bool = False
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
     scenarios: tuple[Scenario, ...] = ()
     contrasts: tuple[Contrast, ...] = ()
@@ -381,9 +383,17 @@ def parse_study(raw: Mapping[str, Any], path: str) -> Study:
         exposure=exposure, offset=offset,
         exposure_unit=_text(st.get("exposure_unit"), "exposure_unit", "[study]"),
         groups=groups, seed=seed, interval=float(interval), preferred=preferred,
-        predictions=_predictions(st), sampler=sampler, scenarios=tuple(scenarios),
-        contrasts=tuple(contrasts),
+        predictions=_predictions(st), exact_refits=_flag(st, "exact_refits"),
+        sampler=sampler, scenarios=tuple(scenarios), contrasts=tuple(contrasts),
     )
+
+
+def _flag(st: Mapping[str, Any], key: str) -> bool:
+    """A true/false key of [study] (false when absent)."""
+    value = st.get(key, False)
+    if not isinstance(value, bool):
+        raise BayesziError(f"'{key}' in [study] must be true or false, got {value!r}")
+    return value
 
 
 def _predictions(st: Mapping[str, Any]) -> str:

@@ -18,6 +18,7 @@ import os
 from collections.abc import Callable, Sequence
 from typing import TYPE_CHECKING, Any
 
+from bayeszi.answers.comparison import refit_advice
 from bayeszi.app.report.context import ReportInput
 from bayeszi.app.report.output import OutputFolder
 from bayeszi.app.report.sections import build_document
@@ -73,12 +74,18 @@ def save_fit(fitted: FittedModel, path: str, provenance: dict[str, Any]) -> str:
         fitted.idata.posterior.attrs.pop(PROVENANCE_ATTR, None)
 
 
+#: How a report's reader asks for exact LOO refits (they ran a study, not Python).
+REFIT_ADVICE = ("set exact_refits = true in the study file's [study] table, or add "
+                "--exact-refits to bayeszi run or bayeszi report")
+
+
 def run_study(study: Study, out: str, command: str = "", progress: Progress = _quiet,
-              save_fits: bool = False) -> str:
+              save_fits: bool = False, exact_refits: bool | None = None) -> str:
     """Fit, compare, check and predict as ``study`` says; write the report folder ``out``.
 
     Nothing is sampled before the output folder, the data and every candidate and scenario
-    have been checked. Returns the absolute path of the finished folder.
+    have been checked. ``exact_refits`` (None: as the study says) refits the rows of high
+    Pareto k exactly for LOO. Returns the absolute path of the finished folder.
     """
     folder = OutputFolder(out)  # fails before any work when out cannot be written
     with folder:
@@ -107,13 +114,16 @@ def run_study(study: Study, out: str, command: str = "", progress: Progress = _q
             title=study.title, summary=study.summary, fits=fits, data=data,
             interval=study.interval, unit=study.exposure_unit, seed=study.seed,
             scenarios=study.scenarios, contrasts=study.contrasts, preferred=study.preferred,
-            predictions=study.predictions, provenance=provenance, notes=notes)
+            predictions=study.predictions,
+            exact_refits=study.exact_refits if exact_refits is None else exact_refits,
+            provenance=provenance, notes=notes)
         return _finish(inp, folder, progress)
 
 
 def _finish(inp: ReportInput, folder: OutputFolder, progress: Progress) -> str:
     progress("building the report ...")
-    doc, footer, warned = build_document(inp, progress=lambda s: progress(f"  {s}"))
+    with refit_advice(REFIT_ADVICE):
+        doc, footer, warned = build_document(inp, progress=lambda s: progress(f"  {s}"))
     for w in warned:
         progress(f"      warning: {' '.join(w.split())}")
     files = write_document(doc, folder, footer)
@@ -159,8 +169,10 @@ def load_saved(paths: Sequence[str]) -> tuple[dict[str, FittedModel], dict[str, 
 
 
 def report_saved(paths: Sequence[str], out: str, command: str = "", title: str | None = None,
-                 interval: float = 0.9, progress: Progress = _quiet) -> str:
-    """Write a report folder ``out`` from saved fits (no scenarios: the study is not known)."""
+                 interval: float = 0.9, progress: Progress = _quiet,
+                 exact_refits: bool = False) -> str:
+    """Write a report folder ``out`` from saved fits (no scenarios: the study is not known);
+    ``exact_refits`` refits the rows of high Pareto k exactly for LOO."""
     folder = OutputFolder(out)
     with folder:
         fits, provenance = load_saved(paths)
@@ -171,5 +183,5 @@ def report_saved(paths: Sequence[str], out: str, command: str = "", title: str |
         inp = ReportInput(
             title=title or f"bayeszi report: {', '.join(fits)}", fits=fits, data=data,
             interval=interval, seed=seeds.pop() if len(seeds) == 1 else None,
-            provenance=provenance)
+            exact_refits=exact_refits, provenance=provenance)
         return _finish(inp, folder, progress)
