@@ -163,7 +163,8 @@ def _report(args: argparse.Namespace) -> int:
 
     interval_bounds(args.interval, name="--interval")
     dest = report_saved(args.saved, args.out, command=args.command_line, title=args.title,
-                        interval=args.interval, progress=args.console)
+                        interval=args.interval, progress=args.console,
+                        residuals_against=args.residuals_against)
     print(os.path.join(dest, "report.html"))
     return 0
 
@@ -289,6 +290,9 @@ def _add_report(sub: Any) -> None:
     rp.add_argument("--title", default=None, help="the report's title")
     rp.add_argument("--interval", type=float, default=0.9,
                     help="central interval in the tables (default: %(default)s)")
+    rp.add_argument("--residuals-against", default=None, metavar="COLUMN",
+                    help="bin the residuals by this column of the fitted data in the residual "
+                    "figure (default: the log of the expected count)")
     rp.add_argument("--quiet", action="store_true", help="no progress messages")
     rp.set_defaults(func=_report)
 

@@ -41,7 +41,8 @@ from bayeszi.fitting.candidates import Candidate, CheckedCandidates, check_candi
 # Allowed keys, per table. Kept here so that the error messages and docs/study-file.md agree.
 TOP_KEYS = ("study", "sampler", "model", "scenario", "contrast")
 STUDY_KEYS = ("title", "summary", "data", "response", "exposure", "offset", "exposure_unit",
-              "groups", "nested", "seed", "interval", "preferred", "predictions")
+              "groups", "nested", "seed", "interval", "preferred", "predictions",
+              "residuals_against")
 SAMPLER_KEYS = ("draws", "tune", "chains", "cores", "target_accept", "sampler")
 MODEL_KEYS = ("name", "family", "counts", "zeros", "groups", "varying", "nested",
               "correlated", "priors", "sampler")
@@ -158,6 +159,7 @@ class Study:
     interval: float = 0.9
     preferred: str | None = None
     predictions: str = "models"
+    residuals_against: str | None = None
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
     scenarios: tuple[Scenario, ...] = ()
     contrasts: tuple[Contrast, ...] = ()
@@ -216,6 +218,7 @@ class Study:
                 f"{os.path.basename(self.data_path)}; columns: {list(map(str, data.columns))[:20]}."
                 f"{hint}"
             )
+        self._check_residuals_against(data)
         checked = check_candidates(data, self.candidates, noun="model")
         designs = checked.designs
         used = sorted({c for d in designs.values() for c in d.used_columns} - {self.response})
@@ -234,6 +237,16 @@ class Study:
                 self._check_rows(f"{ct.scenario}' changed by contrast '{ct.name}", rows, d,
                                  s.groups, name)
         return checked
+
+    def _check_residuals_against(self, data: pd.DataFrame) -> None:
+        col = self.residuals_against
+        if col is not None and col not in data.columns:
+            near = difflib.get_close_matches(col, [str(c) for c in data.columns], n=1)
+            hint = f" (did you mean {near[0]!r}?)" if near else ""
+            raise BayesziError(
+                f"'residuals_against' in [study] names {col!r}{hint}, which is not a column of "
+                f"{os.path.basename(self.data_path)}; columns available: "
+                f"{list(map(str, data.columns))}")
 
     @staticmethod
     def _check_rows(label: str, rows: pd.DataFrame, design: Any, groups: str, model: str
@@ -379,7 +392,9 @@ def parse_study(raw: Mapping[str, Any], path: str) -> Study:
         exposure=exposure, offset=offset,
         exposure_unit=_text(st.get("exposure_unit"), "exposure_unit", "[study]"),
         groups=groups, seed=seed, interval=float(interval), preferred=preferred,
-        predictions=_predictions(st), sampler=sampler, scenarios=tuple(scenarios),
+        predictions=_predictions(st),
+        residuals_against=_text(st.get("residuals_against"), "residuals_against", "[study]"),
+        sampler=sampler, scenarios=tuple(scenarios),
         contrasts=tuple(contrasts),
     )
 

@@ -107,7 +107,8 @@ def run_study(study: Study, out: str, command: str = "", progress: Progress = _q
             title=study.title, summary=study.summary, fits=fits, data=data,
             interval=study.interval, unit=study.exposure_unit, seed=study.seed,
             scenarios=study.scenarios, contrasts=study.contrasts, preferred=study.preferred,
-            predictions=study.predictions, provenance=provenance, notes=notes)
+            predictions=study.predictions, residuals_against=study.residuals_against,
+            provenance=provenance, notes=notes)
         return _finish(inp, folder, progress)
 
 
@@ -159,17 +160,27 @@ def load_saved(paths: Sequence[str]) -> tuple[dict[str, FittedModel], dict[str, 
 
 
 def report_saved(paths: Sequence[str], out: str, command: str = "", title: str | None = None,
-                 interval: float = 0.9, progress: Progress = _quiet) -> str:
-    """Write a report folder ``out`` from saved fits (no scenarios: the study is not known)."""
+                 interval: float = 0.9, progress: Progress = _quiet,
+                 residuals_against: str | None = None) -> str:
+    """Write a report folder ``out`` from saved fits (no scenarios: the study is not known).
+
+    ``residuals_against`` names a column of the fitted data to bin the residuals by in the
+    residual figure (default: the log of the expected count).
+    """
     folder = OutputFolder(out)
     with folder:
         fits, provenance = load_saved(paths)
         provenance["command"] = command
         first = next(iter(fits.values()))
         data = first.data
+        if residuals_against is not None and residuals_against not in data.columns:
+            raise BayesziError(
+                f"residuals_against={residuals_against!r} is not a column of the fitted data "
+                f"(a saved fit keeps the columns its model uses); columns available: "
+                f"{list(map(str, data.columns))}")
         seeds = {f.spec.sampler.seed for f in fits.values()}
         inp = ReportInput(
             title=title or f"bayeszi report: {', '.join(fits)}", fits=fits, data=data,
             interval=interval, seed=seeds.pop() if len(seeds) == 1 else None,
-            provenance=provenance)
+            residuals_against=residuals_against, provenance=provenance)
         return _finish(inp, folder, progress)
