@@ -102,6 +102,7 @@ exposure_unit = "trap night"
 groups = ["reach"]
 seed = 7
 interval = 0.9
+residuals_against = "depth"
 
 [sampler]
 draws = 150

@@ -181,6 +181,22 @@ def test_pearson_table_equals_the_api(report):
     assert (rows["residual df"] == api.attrs["residual df"]).all()
 
 
+def test_residual_summary_equals_the_api_and_the_figure_is_binned_by_depth(report):
+    from bayeszi.answers.checks import residuals
+    from bayeszi.answers.residual_checks import residual_statistics
+
+    csv = pd.read_csv(report["out"] / "tables" / "residuals_summary.csv").set_index("model")
+    for name in ("zinb-reach", "poisson"):
+        api = residual_statistics(residuals(_fit(report, name), seed=7))  # the study's seed
+        for col, value in api.items():
+            assert csv.loc[name, col] == pytest.approx(value, rel=1e-9, abs=1e-12), col
+    assert "p-value of that gap (KS test)" in csv.columns
+    # the study file's residuals_against = "depth" reaches the figure's caption
+    section = report["html"].split('data-section="residuals"')[1].split("</section>")[0]
+    assert "bins of the column depth" in section
+    assert len(list((report["out"] / "figures").glob("residuals_*.png"))) == 1
+
+
 def test_scenario_predictions_equal_the_api(report):
     from bayeszi.app.study import load_study
 

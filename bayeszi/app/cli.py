@@ -166,7 +166,8 @@ def _report(args: argparse.Namespace) -> int:
     interval_bounds(args.interval, name="--interval")
     dest = report_saved(args.saved, args.out, command=args.command_line, title=args.title,
                         interval=args.interval, progress=args.console,
-                        exact_refits=args.exact_refits)
+                        exact_refits=args.exact_refits,
+                        residuals_against=args.residuals_against)
     print(os.path.join(dest, "report.html"))
     return 0
 
@@ -297,6 +298,9 @@ def _add_report(sub: Any) -> None:
     rp.add_argument("--exact-refits", action="store_true",
                     help="refit each model without every record whose Pareto k is above 0.7 "
                     "and use the exact leave-one-out value (each refit is a full fit)")
+    rp.add_argument("--residuals-against", default=None, metavar="COLUMN",
+                    help="bin the residuals by this column of the fitted data in the residual "
+                    "figure (default: the log of the expected count)")
     rp.add_argument("--quiet", action="store_true", help="no progress messages")
     rp.set_defaults(func=_report)
 

@@ -44,6 +44,8 @@ class ReportInput:
     ``saved_fits``); ``notes`` holds warnings raised while fitting, per model.
     ``predictions`` says whose scenario predictions the report shows: ``"models"`` (each
     model's), ``"averaged"`` (the models averaged by their stacking weights) or ``"both"``.
+    ``residuals_against`` names the column of ``data`` that the residual figure bins the
+    residuals by (None: the log of the expected count).
 
     Example
     -------
@@ -63,6 +65,7 @@ class ReportInput:
     preferred: str | None = None
     predictions: str = "models"
     exact_refits: bool = False
+    residuals_against: str | None = None
     provenance: dict[str, Any] = field(default_factory=dict)
     notes: dict[str, list[str]] = field(default_factory=dict)
 

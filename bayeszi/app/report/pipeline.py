@@ -116,6 +116,7 @@ def run_study(study: Study, out: str, command: str = "", progress: Progress = _q
             scenarios=study.scenarios, contrasts=study.contrasts, preferred=study.preferred,
             predictions=study.predictions,
             exact_refits=study.exact_refits if exact_refits is None else exact_refits,
+            residuals_against=study.residuals_against,
             provenance=provenance, notes=notes)
         return _finish(inp, folder, progress)
 
@@ -170,18 +171,28 @@ def load_saved(paths: Sequence[str]) -> tuple[dict[str, FittedModel], dict[str, 
 
 def report_saved(paths: Sequence[str], out: str, command: str = "", title: str | None = None,
                  interval: float = 0.9, progress: Progress = _quiet,
-                 exact_refits: bool = False) -> str:
-    """Write a report folder ``out`` from saved fits (no scenarios: the study is not known);
-    ``exact_refits`` refits the rows of high Pareto k exactly for LOO."""
+                 exact_refits: bool = False, residuals_against: str | None = None) -> str:
+    """Write a report folder ``out`` from saved fits (no scenarios: the study is not known).
+
+    ``exact_refits`` refits the rows of high Pareto k exactly for LOO; ``residuals_against``
+    names a column of the fitted data to bin the residuals by in the residual figure
+    (default: the log of the expected count).
+    """
     folder = OutputFolder(out)
     with folder:
         fits, provenance = load_saved(paths)
         provenance["command"] = command
         first = next(iter(fits.values()))
         data = first.data
+        if residuals_against is not None and residuals_against not in data.columns:
+            raise BayesziError(
+                f"residuals_against={residuals_against!r} is not a column of the fitted data "
+                f"(a saved fit keeps the columns its model uses); columns available: "
+                f"{list(map(str, data.columns))}")
         seeds = {f.spec.sampler.seed for f in fits.values()}
         inp = ReportInput(
             title=title or f"bayeszi report: {', '.join(fits)}", fits=fits, data=data,
             interval=interval, seed=seeds.pop() if len(seeds) == 1 else None,
-            exact_refits=exact_refits, provenance=provenance)
+            exact_refits=exact_refits, residuals_against=residuals_against,
+            provenance=provenance)
         return _finish(inp, folder, progress)
