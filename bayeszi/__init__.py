@@ -19,6 +19,7 @@ import sys
 from typing import Any
 
 from bayeszi.base.errors import BayesziError
+from bayeszi.base.renamed import refuse_renamed_function
 from bayeszi.base.version import __version__
 
 _LAZY = {
@@ -33,7 +34,7 @@ _LAZY = {
     "SamplerSettings": "bayeszi.base.spec",
     "BayesziWarning": "bayeszi.base.errors",
     "FittedModel": "bayeszi.fitting.fitted",
-    "compare": "bayeszi.answers.comparison",
+    "rank_models": "bayeszi.answers.comparison",
     "average_predictions": "bayeszi.answers.averaged",
     "average_prediction_draws": "bayeszi.answers.averaged",
     "average_contrast": "bayeszi.answers.averaged",
@@ -55,6 +56,7 @@ def __getattr__(name: str) -> Any:
     elif name in _LAZY or name in _REFUSED:
         value = getattr(importlib.import_module({**_LAZY, **_REFUSED}[name]), name)
     else:
+        refuse_renamed_function("bayeszi", name)
         raise AttributeError(f"module 'bayeszi' has no attribute {name!r}")
     globals()[name] = value
     return value

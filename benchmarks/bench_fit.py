@@ -5,7 +5,7 @@ reach intercepts in the counts and the zeros part, continuous or discrete covari
 
 (a) ``plain``: the model as one would write it by hand in PyMC, covariates as they come,
     ``pm.ZeroInflatedNegativeBinomial``, non-centred reach effects, ``pm.sample`` defaults
-    (1,000 tune + 1,000 draws, 2 chains on 2 cores).
+    (1,000 warm-up steps + 1,000 draws, 2 chains on 2 cores).
 (b) ``bayeszi``: ``bayeszi.fit`` with its defaults, with the sampler named after the colon
     (``bayeszi:pymc`` or ``bayeszi:nutpie``). Its wall time includes everything a user waits
     for: design, model, compile, sampling, the pointwise log-likelihood and the diagnostics.

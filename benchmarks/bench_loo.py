@@ -2,8 +2,8 @@
 
 The data are benchmarks/bench_data.py's invented crayfish survey (discrete layout by
 default, so records pool into patterns). In one process the script fits with bayeszi's
-defaults (2 chains x (1,000 tune + 1,000 draws); sampler ``auto``), then computes
-``fitted.loo()`` and ``bayeszi.compare`` of the fit with itself, and reports:
+defaults (2 chains x (1,000 warm-up steps + 1,000 draws); sampler ``auto``), then computes
+``fitted.loo()`` and ``bayeszi.rank_models`` of the fit with itself, and reports:
 
 - wall seconds of the fit (split into build and sampling, which includes the pointwise
   log-likelihood) and of LOO;
@@ -67,7 +67,7 @@ def run(n: int, layout: str = "discrete", seed: int = SEED, sampler: str = "auto
     tracemalloc.start()
     t1 = time.perf_counter()
     est = fitted.loo()
-    table = bz.compare({"a": fitted, "b": fitted})
+    table = bz.rank_models({"a": fitted, "b": fitted})
     loo_s = time.perf_counter() - t1
     _, traced_peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()

@@ -54,6 +54,7 @@ PUBLIC_MODULES: dict[str, str] = {
     "bayeszi.plots.compareplots": "compare.md",
     "bayeszi.engine.loglik": "compare.md",
     "bayeszi.answers.checks": "checks.md",
+    "bayeszi.answers.residual_checks": "checks.md",
     "bayeszi.plots.checkplots": "checks.md",
     "bayeszi.answers.groups": "groups.md",
     "bayeszi.answers.predict": "predict.md",

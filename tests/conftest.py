@@ -86,7 +86,7 @@ def tiny_fit() -> Any:
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         return bz.fit(tiny_data(), counts="y ~ x + C(f)", zeros="~ w", family="zinb",
-                      exposure="e", groups="g", draws=100, tune=150, chains=2, cores=1,
+                      exposure="e", groups="g", draws=100, warmup_steps=150, chains=2, cores=1,
                       seed=5, progressbar=False)
 
 
@@ -102,10 +102,11 @@ exposure_unit = "trap night"
 groups = ["reach"]
 seed = 7
 interval = 0.9
+residuals_against = "depth"
 
 [sampler]
 draws = 150
-tune = 200
+warmup_steps = 200
 chains = 2
 cores = 1
 

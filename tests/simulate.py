@@ -142,7 +142,7 @@ def fitted_from_user_draws(df: pd.DataFrame, spec, b: np.ndarray, g: np.ndarray 
         post.update({"dispersion": alpha[None], "dispersion_sqrt": np.sqrt(alpha)[None]})
     idata = az.from_dict(posterior=post, coords=coords, dims=dims)
     add_user_scale(idata, design)
-    diag = Diagnostics(table=pd.DataFrame(columns=["r_hat", "ess_bulk", "ess_tail"]),
+    diag = Diagnostics(table=pd.DataFrame(columns=["R-hat", "bulk ESS", "tail ESS"]),
                        divergences=0, draws=len(b), chains=2)
     return FittedModel(spec, design, idata, resolve(design, None),
                        df[design.used_columns].copy(), diag)

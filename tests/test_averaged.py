@@ -93,7 +93,7 @@ def test_plan_leaves_out_small_weights_and_renormalises() -> None:
     assert mix.draws == {"zip": 30} and mix.total == 30
     mix = plan_mixture(FITS, {"pois": 3, "zip": 1}, draws=20)
     assert mix.weights == {"pois": 0.75, "zip": 0.25} and mix.draws == {"pois": 15, "zip": 5}
-    table = pd.DataFrame({"weight": [0.4, 0.6]}, index=["zip", "pois"])
+    table = pd.DataFrame({"stacking weight": [0.4, 0.6]}, index=["zip", "pois"])
     assert plan_mixture(FITS, table).draws == {"pois": 18, "zip": 12}
 
 
@@ -262,7 +262,7 @@ def _section(predictions: str, weights: dict[str, float]):
                    groups="typical")
     inp = ReportInput("t", FITS, DATA, seed=3, scenarios=[scn],
                       contrasts=[Contrast("x2 on", "deep", {"x2": 1})], predictions=predictions)
-    comparison = pd.DataFrame({"weight": list(weights.values())}, index=list(weights))
+    comparison = pd.DataFrame({"stacking weight": list(weights.values())}, index=list(weights))
     ctx = ReportContext(inp=inp, log=WarningLog(), loo={}, comparison=comparison,
                         preferred="pois", preferred_reason="", coefficients={}, problems={})
     return section_predictions(ctx), scn
@@ -375,9 +375,10 @@ def test_default_weights_are_the_stacking_weights_of_compare() -> None:
             ll = np.log(np.where(y == 0, p, 0.0) + (1 - p) * np.exp(ll))
         loglik.store(fit.idata, ll[None], obs=list(range(len(DATA))))
         fits[name] = fit
-    table = bz.compare(fits)
-    assert abs(table["weight"].sum() - 1) < 1e-9
+    table = bz.rank_models(fits)
+    assert abs(table["stacking weight"].sum() - 1) < 1e-9
     got = average_predictions(fits, NEW, groups="typical")
     want = average_predictions(fits, NEW, groups="typical", weights=table)
     pd.testing.assert_frame_equal(got, want, check_exact=True)
-    assert got.attrs["given_weights"] == pytest.approx(table["weight"].to_dict(), abs=1e-12)
+    assert got.attrs["given_weights"] == pytest.approx(table["stacking weight"].to_dict(),
+                                                      abs=1e-12)

@@ -39,7 +39,7 @@ def _fit(df: pd.DataFrame, seed: int = 3):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         return bz.fit(df, counts="y ~ x", zeros=None, family="negbin", groups="site",
-                      draws=600, tune=600, chains=2, seed=seed, progressbar=False)
+                      draws=600, warmup_steps=600, chains=2, seed=seed, progressbar=False)
 
 
 def test_which_levels_are_centred():

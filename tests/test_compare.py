@@ -41,12 +41,12 @@ from statsmodels.discrete.truncated_model import (
 )
 
 import bayeszi as bz
-from bayeszi.answers.comparison import RefitWrapper, check_same_data, compare, loo
+from bayeszi.answers.comparison import RefitWrapper, check_same_data, loo, rank_models
 from bayeszi.engine.draws import linear_predictors
 from bayeszi.fitting.candidates import ProgressDisplay, candidate_specs, fit_candidates
 from bayeszi.plots.compareplots import plot_comparison
 
-SMALL = {"draws": 400, "tune": 400, "chains": 2}
+SMALL = {"draws": 400, "warmup_steps": 400, "chains": 2}
 SIX = ["poisson", "negbin", "zip", "zinb", "hurdle-poisson", "hurdle-negbin"]
 
 
@@ -106,35 +106,35 @@ def small_fit(cached_fit):
 
 # ---------------------------------------------------------------------------- rankings
 def test_zinb_data_rank_zinb_far_above_poisson_and_above_zip(zinb_fits):
-    table = compare(zinb_fits)
+    table = rank_models(zinb_fits)
     best = table.index[0]
     # Source: simulated truth (ZINB); the hurdle-negbin fits such data nearly as well.
     assert best in ("zinb", "hurdle-negbin"), table
-    assert table.loc["poisson", "diff_in_se"] < -4, table
-    pair = compare({best: zinb_fits[best], "zip": zinb_fits["zip"]})
+    assert table.loc["poisson", "behind in se"] < -4, table
+    pair = rank_models({best: zinb_fits[best], "zip": zinb_fits["zip"]})
     assert pair.index[0] == best
-    assert pair.loc["zip", "elpd_diff"] < -2 * pair.loc["zip", "diff_se"], pair
+    assert pair.loc["zip", "behind best"] < -2 * pair.loc["zip", "behind se"], pair
     # The table's own arithmetic, checked from the pointwise values (Vehtari et al. 2017,
     # Stat. Comput., eq. for se of a paired difference: sqrt(n var(d_i))).
     e_best = zinb_fits[best].loo().pointwise["elpd_i"].to_numpy()
     e_poi = zinb_fits["poisson"].loo().pointwise["elpd_i"].to_numpy()
     d = e_poi - e_best
-    assert table.loc["poisson", "elpd_diff"] == pytest.approx(d.sum(), rel=1e-10)
-    assert table.loc["poisson", "diff_se"] == pytest.approx(np.sqrt(d.size * d.var()), rel=1e-10)
+    assert table.loc["poisson", "behind best"] == pytest.approx(d.sum(), rel=1e-10)
+    assert table.loc["poisson", "behind se"] == pytest.approx(np.sqrt(d.size * d.var()), rel=1e-10)
     ref = az.loo(zinb_fits["poisson"].idata)
-    assert table.loc["poisson", "elpd_loo"] == pytest.approx(ref.elpd_loo, rel=1e-12)
-    assert table["weight"].sum() == pytest.approx(1.0, abs=1e-6)
-    assert list(table["rank"]) == list(range(1, 7))
-    assert (table["values"] == "PSIS").all()
+    assert table.loc["poisson", "LOO log score"] == pytest.approx(ref.elpd_loo, rel=1e-12)
+    assert table["stacking weight"].sum() == pytest.approx(1.0, abs=1e-6)
+    assert list(table["place"]) == list(range(1, 7))
+    assert (table["values from"] == "PSIS").all()
     assert set(table["family"]) == set(SIX)
-    assert (table[["k_good", "k_ok", "k_bad"]].sum(axis=1) == 1500).all()
+    assert (table[["rows low k", "rows moderate k", "rows high k"]].sum(axis=1) == 1500).all()
 
 
 def test_poisson_data_leave_poisson_and_zip_within_two_se(poisson_fits):
-    table = compare(poisson_fits)
+    table = rank_models(poisson_fits)
     second = table.index[1]
     # Source: simulated truth (no extra zeros): the two models predict alike.
-    assert abs(table.loc[second, "elpd_diff"]) < 2 * table.loc[second, "diff_se"], table
+    assert abs(table.loc[second, "behind best"]) < 2 * table.loc[second, "behind se"], table
 
 
 def _aic(family: str, df: pd.DataFrame) -> float:
@@ -295,14 +295,14 @@ def test_high_pareto_k_rows_are_named_and_refitted_exactly(small_fit):
     ref = stats.poisson.logpmf(22, np.exp(eta))
     assert np.allclose(ll, ref, rtol=0, atol=1e-9)
     assert exact.pointwise.loc["r20", "elpd_i"] == pytest.approx(_logmeanexp(ref), abs=1e-9)
-    # compare() says which values are exact.
+    # rank_models() says which values are exact.
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        table = compare({"exact": exact, "psis": small_fit})
-    assert table.loc["exact", "values"] == "PSIS + exact"
-    assert table.loc["psis", "values"] == "PSIS"
-    assert table.loc["exact", "exact_rows"] == len(est.flagged_rows)
-    assert "r20" in table.loc["exact", "bad_k_rows"]
+        table = rank_models({"exact": exact, "psis": small_fit})
+    assert table.loc["exact", "values from"] == "PSIS + exact"
+    assert table.loc["psis", "values from"] == "PSIS"
+    assert table.loc["exact", "exact refits"] == len(est.flagged_rows)
+    assert "r20" in table.loc["exact", "high-k rows"]
     fig = plot_comparison(table)  # the unresolved model is drawn hollow, with its row count
     notes = [t.get_text() for t in fig.axes[0].texts]
     assert any(f"k > 0.7: {len(est.flagged_rows)} rows" in t for t in notes), notes
@@ -337,10 +337,36 @@ def test_refits_are_refused_past_the_budget(small_fit):
         warnings.simplefilter("ignore")
         with pytest.raises(bz.BayesziError, match="max_refits=0"):
             small_fit.loo(exact_refits=True, max_refits=0)
-        with pytest.raises(bz.BayesziError, match="k_threshold"):
-            loo(small_fit, k_threshold="high")
+        with pytest.raises(bz.BayesziError, match="k_limit"):
+            loo(small_fit, k_limit="high")
         with pytest.raises(bz.BayesziError, match="refit_settings"):
             loo(small_fit, exact_refits=True, refit_settings={"drawz": 10})
+
+
+def test_high_k_advice_is_phrased_for_where_the_reader_is(small_fit):
+    """In Python the warning names the keyword; in a report of a study run it names the
+    study-file key and the command-line flag (a reader of a report did not write Python)."""
+    from bayeszi.answers.comparison import refit_advice
+    from bayeszi.app.report.pipeline import REFIT_ADVICE
+
+    with pytest.warns(bz.BayesziWarning, match=r"exact_refits=True") as plain:
+        loo(small_fit, k_limit=-np.inf)
+    with refit_advice(REFIT_ADVICE), pytest.warns(bz.BayesziWarning) as study:
+        loo(small_fit, k_limit=-np.inf)
+    text = " ".join(str(w.message) for w in study)
+    assert "exact_refits = true in the study file" in text and "--exact-refits" in text
+    assert "exact_refits=True" not in text
+    assert "exact_refits = true" not in " ".join(str(w.message) for w in plain)
+
+
+def test_study_file_exact_refits_key(write_small_study, tmp_path):
+    from bayeszi.app.study import load_study
+
+    path = write_small_study(tmp_path, **{"interval = 0.9": "interval = 0.9\nexact_refits = true"})
+    assert load_study(str(path)).exact_refits is True
+    path = write_small_study(tmp_path, **{"interval = 0.9": "interval = 0.9\nexact_refits = 1"})
+    with pytest.raises(bz.BayesziError, match=r"'exact_refits' in \[study\] must be true or false"):
+        load_study(str(path))
 
 
 # ---------------------------------------------------------------------------- refusals
@@ -356,30 +382,30 @@ def test_compare_refuses_different_data(small_fit):
     y2[3] += 1
     with pytest.raises(bz.BayesziError, match=r"response differs at 1 row\(s\), e\.g\. "
                                               r"row\(s\) r3"):
-        compare({"a": m, "b": _variant(m, y=y2)})
+        rank_models({"a": m, "b": _variant(m, y=y2)})
     with_hours = _variant(m, log_offset=np.log(_small_data()["hours"].to_numpy()))
     with_hours.spec = dataclasses.replace(m.spec, exposure="hours")
     with pytest.raises(bz.BayesziError, match=r"exposure differs \(no exposure vs log\(hours\)\) "
                                               "at 40 row"):
-        compare({"a": m, "b": with_hours})
+        rank_models({"a": m, "b": with_hours})
     moved = _variant(m)
     moved.data["x"] = moved.data["x"] + np.where(np.arange(40) == 7, 0.5, 0.0)
     with pytest.raises(bz.BayesziError, match="column 'x' differs at 1 row.*r7"):
-        compare({"a": m, "b": moved})
+        rank_models({"a": m, "b": moved})
     relabelled = _variant(m)
     relabelled.data.index = [f"q{i}" for i in range(40)]
     with pytest.raises(bz.BayesziError, match="row labels differ"):
-        compare({"a": m, "b": relabelled})
+        rank_models({"a": m, "b": relabelled})
     w = RefitWrapper(m)
     kept, _ = w.sel_observations([5])
     shorter = dataclasses.replace(m, design=dataclasses.replace(m.design, n=39))
     shorter.data = kept
     with pytest.raises(bz.BayesziError, match="40 rows vs 39 rows"):
-        compare({"a": m, "b": shorter})
+        rank_models({"a": m, "b": shorter})
     with pytest.raises(bz.BayesziError, match="at least two"):
-        compare({"a": m})
+        rank_models({"a": m})
     with pytest.raises(bz.BayesziError, match="not a fitted model"):
-        compare({"a": m, "b": "zip"})
+        rank_models({"a": m, "b": "zip"})
     bare = _variant(m)
     bare.idata = az.InferenceData(posterior=m.idata.posterior)
     with pytest.raises(bz.BayesziError, match="no stored pointwise log-likelihood"):
@@ -388,7 +414,7 @@ def test_compare_refuses_different_data(small_fit):
 
 # ---------------------------------------------------------------------------- plot
 def test_comparison_plot(zinb_fits, tmp_path):
-    table = compare(zinb_fits)
+    table = rank_models(zinb_fits)
     path = tmp_path / "comparison.png"
     fig = plot_comparison(table, path=path)
     ax = fig.axes[0]
@@ -398,7 +424,7 @@ def test_comparison_plot(zinb_fits, tmp_path):
     with pytest.raises(bz.BayesziError, match="folder"):
         plot_comparison(table, path=tmp_path / "nope" / "c.png")
     with pytest.raises(bz.BayesziError, match="lacks column"):
-        plot_comparison(table.drop(columns=["weight"]))
+        plot_comparison(table.drop(columns=["stacking weight"]))
 
 
 # ---------------------------------------------------------------------------- brute force

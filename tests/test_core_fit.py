@@ -27,14 +27,14 @@ def small_fit(cached_fit):
     df["kind"] = np.where(df["x2"] == 1, "b", "a")
     return cached_fit("core-small-zip", lambda: bz.fit(
         df, counts="y ~ x1 + C(kind)", zeros="~ w", family="zip", exposure="exposure",
-        draws=200, tune=300, chains=2, seed=7, prior_draws=50))
+        draws=200, warmup_steps=300, chains=2, seed=7, prior_draws=50))
 
 
 def test_table_layout(small_fit):
     t = small_fit.coefficients(interval=0.8)
     assert list(t.index.names) == ["part", "term"]
     assert ("counts", "kind: b (vs a)") in t.index and ("zeros", "w") in t.index
-    assert {"mean", "sd", "10%", "90%", "exp scale", "r_hat", "ess_bulk", "flag"} <= set(t)
+    assert {"mean", "sd", "10%", "90%", "exp scale", "R-hat", "bulk ESS", "flag"} <= set(t)
     assert t.loc[("counts", "x1"), "exp scale"] == "rate ratio"
     assert t.loc[("zeros", "w"), "exp scale"] == "odds ratio of P(extra zero)"
     row = t.loc[("counts", "x1")]
@@ -94,7 +94,7 @@ def test_save_to_missing_folder(small_fit, tmp_path):
 def test_sampler_trouble_is_warned():
     df, _ = simulate("poisson", n=200, seed=9)
     with pytest.warns(bz.BayesziWarning, match=r"ESS below 400.*Run more draws"):
-        m = bz.fit(df, counts="y ~ x1", family="poisson", draws=30, tune=30, chains=2,
+        m = bz.fit(df, counts="y ~ x1", family="poisson", draws=30, warmup_steps=30, chains=2,
                    seed=1)
     assert m.sampler_problems()
     assert "Sampler warnings" in str(m)
@@ -136,9 +136,9 @@ def test_offset_equals_exposure():
     df, _ = simulate("poisson", n=300, seed=4)
     df["log_e"] = np.log(df["exposure"])
     a = bz.fit(df, counts="y ~ x1", family="poisson", exposure="exposure", draws=100,
-               tune=200, chains=1, seed=2)
+               warmup_steps=200, chains=1, seed=2)
     b = bz.fit(df, counts="y ~ x1", family="poisson", offset="log_e", draws=100,
-               tune=200, chains=1, seed=2)
+               warmup_steps=200, chains=1, seed=2)
     np.testing.assert_allclose(a.design.log_offset, b.design.log_offset)
     np.testing.assert_allclose(a.idata.posterior["counts_coef"].values,
                                b.idata.posterior["counts_coef"].values)
@@ -164,7 +164,7 @@ def test_public_names_survive_every_submodule_import():
     """Importing a submodule binds its name on the parent package, so a module named like a
     public function (a ``bayeszi/compare.py``, say) would replace ``bayeszi.compare`` once it
     is imported. After importing every module of the package and the old 0.1.0 paths, each
-    public name is the object it was before, none is a module, ``compare``, ``fit_candidates``
+    public name is the object it was before, none is a module, ``rank_models``, ``fit_candidates``
     and ``fit`` are the functions of their home modules, and each old path is the very module
     at its new place."""
     import importlib
@@ -182,6 +182,6 @@ def test_public_names_survive_every_submodule_import():
         assert getattr(bz, name) is before[name], name
         assert not isinstance(before[name], types.ModuleType), name
     home = importlib.import_module
-    assert bz.compare is home("bayeszi.answers.comparison").compare
+    assert bz.rank_models is home("bayeszi.answers.comparison").rank_models
     assert bz.fit_candidates is home("bayeszi.fitting.candidates").fit_candidates
     assert bz.fit is home("bayeszi.fitting.api").fit

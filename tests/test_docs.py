@@ -37,7 +37,7 @@ ROOT = Path(__file__).resolve().parents[1]
 DOCS = ROOT / "docs"
 
 #: Sampler settings of every fit made here: enough to run the code, not to trust its numbers.
-SHORT = {"draws": 150, "tune": 150, "chains": 2, "cores": 1, "progressbar": False}
+SHORT = {"draws": 150, "warmup_steps": 150, "chains": 2, "cores": 1, "progressbar": False}
 #: The guide's first fit; the examples of the FittedModel methods use the same (cached) fit.
 DEMO_FIT = {"counts": "crayfish ~ water_temp + substrate + depth + canopy",
             "zeros": "~ barrier", "family": "zinb", "exposure": "trap_nights",

@@ -57,7 +57,7 @@ def _small_copy(name: str, folder: Path) -> Path:
 def test_example_study_runs_small(name, tmp_path, capsys):
     study_path = _small_copy(name, tmp_path)
     out = tmp_path / "report"
-    rc = main(["run", str(study_path), "--out", str(out), "--draws", "100", "--tune", "150",
+    rc = main(["run", str(study_path), "--out", str(out), "--draws", "100", "--warmup-steps", "150",
                "--cores", "1", "--quiet"])
     err = capsys.readouterr().err
     assert rc == 0, err

@@ -47,7 +47,7 @@ def assert_honest(m: Any, warned: list[str]) -> None:
     table = m.coefficients()
     core = table[["mean", "sd", "5%", "95%"]].to_numpy(dtype=float)
     assert np.isfinite(core).all(), table
-    diag = table[["r_hat", "ess_bulk", "ess_tail"]].to_numpy(dtype=float)
+    diag = table[["R-hat", "bulk ESS", "tail ESS"]].to_numpy(dtype=float)
     if not np.isfinite(diag).all():  # e.g. one chain: R-hat cannot be computed
         assert any("R-hat" in w or "one chain" in w for w in warned), warned
     with warnings.catch_warnings(record=True) as seen:
@@ -78,7 +78,7 @@ def test_counts_up_to_a_million() -> None:
     y = rng.poisson(rng.gamma(1 / alpha, alpha * mu))
     assert y.max() > 5e5
     df = pd.DataFrame({"y": y, "x": x})
-    m, warned = fit_recording(df, counts="y ~ x", family="negbin", draws=150, tune=250,
+    m, warned = fit_recording(df, counts="y ~ x", family="negbin", draws=150, warmup_steps=250,
                               seed=4, **FAST)
     within(coef(m, "counts", "Intercept"), 12.5)
     within(coef(m, "counts", "x"), 0.6)
@@ -123,7 +123,7 @@ def test_all_zero_groups_and_one_record_groups() -> None:
     with pytest.warns(bz.BayesziWarning, match=r"3 level\(s\) with a single record"):
         build_design(df, spec)
     m, warned = fit_recording(df, counts="y ~ x", family="zip", exposure="e", groups="site",
-                              draws=200, tune=300, seed=6, target_accept=0.95, **FAST)
+                              draws=200, warmup_steps=300, seed=6, acceptance_target=0.95, **FAST)
     assert_honest(m, warned)
     sites = m.design.groups[0].levels
     dry = [s for s in sites if s.startswith("dry")]
@@ -176,7 +176,7 @@ def test_perfect_separation_in_the_zeros_part_fits_with_a_warning() -> None:
     y = np.where(x < 0, 0, 1 + rng.poisson(2.0, n))  # zero exactly when x < 0
     df = pd.DataFrame({"y": y, "x": x, "z": rng.normal(size=n)})
     m, warned = fit_recording(df, counts="y ~ z", zeros="~ x", family="hurdle-poisson",
-                              draws=200, tune=300, seed=2, **FAST)
+                              draws=200, warmup_steps=300, seed=2, **FAST)
     assert any("perfect separation" in w and "'x'" in w and "rest on the priors" in w
                for w in warned), warned
     assert_honest(m, warned)
@@ -200,7 +200,8 @@ def test_exactly_collinear_predictors_identify_only_their_combination() -> None:
                        "y": rng.poisson(np.exp(0.5 + 0.4 * x1))})
     with pytest.warns(bz.BayesziWarning, match=r"collinear \(rank 2 of 3\)"):
         build_design(df, bz.make_spec("y ~ x1 + x2", family="poisson"))
-    m, warned = fit_recording(df, counts="y ~ x1 + x2", family="poisson", draws=200, tune=300,
+    m, warned = fit_recording(df, counts="y ~ x1 + x2", family="poisson", draws=200,
+                              warmup_steps=300,
                               seed=3, **FAST)
     assert any("collinear" in w for w in warned)
     assert_honest(m, warned)
@@ -226,7 +227,7 @@ def test_a_factor_with_200_levels() -> None:
     d = build_design(df, spec)
     assert len(d.counts.terms) == 200 and len(d.levels["f"]) == 200
     build_model(d, resolve(d, None))  # builds
-    m, warned = fit_recording(df, counts="y ~ C(f)", family="poisson", draws=150, tune=250,
+    m, warned = fit_recording(df, counts="y ~ C(f)", family="poisson", draws=150, warmup_steps=250,
                               seed=8, **FAST)
     assert_honest(m, warned)
     post = m.idata.posterior["counts_coef"].mean(("chain", "draw")).values
@@ -254,9 +255,9 @@ def test_a_grouping_column_with_200_levels_builds() -> None:
 def test_one_chain_leaves_r_hat_blank_and_says_so() -> None:
     rng = np.random.default_rng(2)
     df = pd.DataFrame({"y": rng.poisson(2.0, 40), "x": rng.normal(size=40)})
-    m, warned = fit_recording(df, counts="y ~ x", family="poisson", draws=100, tune=150,
+    m, warned = fit_recording(df, counts="y ~ x", family="poisson", draws=100, warmup_steps=150,
                               chains=1, cores=1, seed=1, progressbar=False)
-    assert np.isnan(m.coefficients()["r_hat"]).all()
+    assert np.isnan(m.coefficients()["R-hat"]).all()
     assert any("only one chain" in w for w in warned)
     assert_honest(m, warned)
 
@@ -273,7 +274,7 @@ def test_one_hundred_thousand_rows() -> None:
     y = np.where(extra, 0, rng.poisson(np.exp(0.3 + 0.5 * x + np.log(e))))
     df = pd.DataFrame({"y": y, "x": x, "w": w, "e": e})
     m, warned = fit_recording(df, counts="y ~ x", zeros="~ w", family="zip", exposure="e",
-                              draws=300, tune=400, seed=9, **FAST)
+                              draws=300, warmup_steps=400, seed=9, **FAST)
     within(coef(m, "counts", "Intercept"), 0.3)
     within(coef(m, "counts", "x"), 0.5)
     within(coef(m, "zeros", "Intercept"), -1.0)

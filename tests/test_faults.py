@@ -96,7 +96,7 @@ def small_frame() -> pd.DataFrame:
 def test_ctrl_c_raised_in_the_sampler_says_nothing_was_kept(monkeypatch, pymc_sampler):
     monkeypatch.setattr(pm, "sample", _interrupting_sample)
     with pytest.raises(KeyboardInterrupt, match="sampling interrupted: nothing was kept"):
-        bz.fit(small_frame(), counts="y ~ x", family="poisson", draws=20, tune=20,
+        bz.fit(small_frame(), counts="y ~ x", family="poisson", draws=20, warmup_steps=20,
                progressbar=False)
 
 
@@ -124,7 +124,7 @@ def test_real_sigint_during_real_sampling_is_not_swallowed(monkeypatch, pymc_sam
     previous = signal.signal(signal.SIGINT, signal.default_int_handler)
     try:
         with pytest.raises(KeyboardInterrupt, match="sampling interrupted: nothing was kept"):
-            bz.fit(small_frame(), counts="y ~ x", family="poisson", draws=30, tune=30,
+            bz.fit(small_frame(), counts="y ~ x", family="poisson", draws=30, warmup_steps=30,
                    chains=1, cores=1, seed=1, progressbar=False)
         # our handler was removed again
         assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
@@ -142,7 +142,7 @@ def test_a_short_result_from_the_sampler_is_refused(tiny_fit, monkeypatch):
     with pytest.raises(BayesziError, match=r"returned 2 chain\(s\) of 5 draws instead of 2 of "
                                            r"20"):
         bz.fit(tiny_data(), counts="y ~ x + C(f)", zeros="~ w", family="zinb", exposure="e",
-               groups="g", draws=20, tune=20, progressbar=False)
+               groups="g", draws=20, warmup_steps=20, progressbar=False)
 
 
 def test_ctrl_c_in_cli_fit_exits_130_and_writes_nothing(tmp_path, monkeypatch, capsys,

@@ -80,7 +80,7 @@ def test_posterior_matches_mle_and_covers_truth(family, cached_fit):
     df, truth = simulate(family, n=3000, seed=11)
     m = cached_fit(f"mle-{family}", lambda: bz.fit(
         df, counts="y ~ x1 + x2", zeros="~ w", family=family, exposure="exposure",
-        draws=500, tune=500, chains=2, seed=3))
+        draws=500, warmup_steps=500, chains=2, seed=3))
     mle = _mle(family, df)
     post = m.idata.posterior
     for part in ("counts", "zeros"):

@@ -35,7 +35,7 @@ from bayeszi.model.priors import resolve
 TRUE = {"counts": {"Intercept": 0.4, "x": 0.35}, "zeros": {"Intercept": -0.9, "w": 0.8},
         "alpha": 0.3}
 SD = {"counts": 0.5, "zeros": 0.8}
-SAMPLING = {"draws": 500, "tune": 500, "chains": 2, "cores": 1}
+SAMPLING = {"draws": 500, "warmup_steps": 500, "chains": 2, "cores": 1}
 
 
 def reach_survey(seed: int, n_reaches: int = 40, visits: tuple[int, int] = (6, 12),
@@ -259,7 +259,7 @@ def test_true_group_sds_inside_95_percent_intervals(cached_fit):
     m = _main_fit(cached_fit)
     table = m.coefficients(interval=0.95)
     for part in ("counts", "zeros"):
-        row = table.loc[(part, "sd(reach)")]
+        row = table.loc[(part, "reach effects: sd")]
         assert row["2.5%"] < SD[part] < row["97.5%"], (part, row[["2.5%", "97.5%"]])
     assert m.diagnostics().divergences == 0
 
@@ -369,7 +369,7 @@ def _all_options_fit(cached_fit):
     return df, cached_fit("groups-all-options", lambda: bz.fit(
         df, counts="y ~ x", zeros="~ w", family="zinb", exposure="nights",
         groups=["reach", "season"], nested={"reach": "river"}, correlated=True,
-        varying={"counts": ["x"]}, seed=4, draws=200, tune=200, chains=2, cores=1))
+        varying={"counts": ["x"]}, seed=4, draws=200, warmup_steps=200, chains=2, cores=1))
 
 
 def test_nested_crossed_correlated_varying_fit_and_agree_with_the_draws(cached_fit):
@@ -382,9 +382,9 @@ def test_nested_crossed_correlated_varying_fit_and_agree_with_the_draws(cached_f
     table = m.coefficients()
     for g in ("reach", "season"):
         for part in ("counts", "zeros"):
-            assert np.isfinite(table.loc[(part, f"sd({g})"), "mean"])
-        assert -1 < table.loc[("both", f"corr({g})"), "mean"] < 1
-        assert table.loc[("counts", f"sd({g}: x)"), "mean"] > 0
+            assert np.isfinite(table.loc[(part, f"{g} effects: sd"), "mean"])
+        assert -1 < table.loc[("both", f"{g} effects: counts-zeros correlation"), "mean"] < 1
+        assert table.loc[("counts", f"{g} effects: sd of x slopes"), "mean"] > 0
     eff = m.group_effects()
     assert len(eff.loc["reach"]) == 20 * 3  # counts and zeros intercepts, x slope
     assert len(eff.loc["season"]) == 3 * 3
@@ -432,8 +432,8 @@ def test_correlation_of_counts_and_zeros_intercepts_is_recovered():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         m = bz.fit(df, counts="y ~ x", zeros="~ w", family="zinb", exposure="nights",
-                   groups="reach", correlated=True, seed=5, draws=1000, tune=1000, chains=2)
-    row = m.coefficients(interval=0.95).loc[("both", "corr(reach)")]
+                   groups="reach", correlated=True, seed=5, draws=1000, warmup_steps=1000, chains=2)
+    row = m.coefficients(interval=0.95).loc[("both", "reach effects: counts-zeros correlation")]
     assert row["2.5%"] < -0.7 < row["97.5%"], row
     assert row["97.5%"] < 0, row  # the data show the (negative) correlation
 
@@ -456,6 +456,6 @@ def test_demo_fits_with_groups_without_divergences():
     assert m.diagnostics().divergences == 0
     table = m.coefficients(interval=0.95)
     for part in ("counts", "zeros"):
-        row = table.loc[(part, "sd(reach)")]
+        row = table.loc[(part, "reach effects: sd")]
         true_sd = truth["group_sd"][part]["reach"]
         assert row["2.5%"] < true_sd < row["97.5%"], (part, row)

@@ -153,7 +153,7 @@ def spec_cases(draw: st.DrawFn) -> Case:
         [None, {"dispersion": bz.priors.exponential(rate=2)},
          {"group_sd": {"counts": {"distribution": "half_normal", "sd": 0.5}}},
          {"counts": {"Intercept": {"distribution": "normal", "mean": 0, "sd": 2}}}]))
-    sampler = {"draws": 50, "tune": 50, "chains": 2, "target_accept": 0.95, "seed": 3}
+    sampler = {"draws": 50, "warmup_steps": 50, "chains": 2, "acceptance_target": 0.95, "seed": 3}
     for name in draw(st.lists(st.sampled_from(sorted(sampler)), max_size=2, unique=True)):
         kw[name] = sampler[name]
     case = Case({"df": df, "kw": kw})
@@ -321,8 +321,8 @@ SPEC_PERTURBATIONS = [
                          "distribution": "normal", "mean": 0, "sd": 1}})),
     _kw_perturbation("zero draws", ("draws",), lambda kw: kw.update(draws=0)),
     _kw_perturbation("fractional chains", ("chains",), lambda kw: kw.update(chains=1.5)),
-    _kw_perturbation("target_accept 1.5", ("target_accept",),
-                     lambda kw: kw.update(target_accept=1.5)),
+    _kw_perturbation("acceptance_target 1.5", ("acceptance_target",),
+                     lambda kw: kw.update(acceptance_target=1.5)),
     _kw_perturbation("negative seed", ("seed",), lambda kw: kw.update(seed=-3)),
     _kw_perturbation("seed as text", ("seed",), lambda kw: kw.update(seed="7")),
     _kw_perturbation("unknown sampler", ("sampler",), lambda kw: kw.update(sampler="stan")),
@@ -391,7 +391,7 @@ ALWAYS_INVALID = [
     "missing exposure column", "prior for an unknown term", "unknown prior family",
     "negative prior scale", "prior numbers as text", "unknown prior key", "priors a list",
     "lkj_eta text", "dispersion prior on the real line", "zero draws", "fractional chains",
-    "target_accept 1.5", "negative seed", "seed as text", "unknown sampler",
+    "acceptance_target 1.5", "negative seed", "seed as text", "unknown sampler",
     "misspelled setting", "zero cores", "progressbar text",
 ]
 
@@ -609,9 +609,9 @@ COMPARE_PERTURBATIONS = [
              lambda m: {**m, "raw": "idata"}),
     _cmodels("a fit of other data", ("different data",), lambda m: {**m, "other": "other"}),
     _cmodels("names equal as text", ("name",), lambda m: {1: m["a"], "1": m["b"]}),
-    _pkw("k_threshold text", ("k_threshold",), k_threshold="high"),
-    _pkw("k_threshold NaN", ("k_threshold",), k_threshold=float("nan")),
-    _pkw("refit budget exceeded", ("max_refits",), exact_refits=True, k_threshold=-np.inf,
+    _pkw("k_limit text", ("k_limit",), k_limit="high"),
+    _pkw("k_limit NaN", ("k_limit",), k_limit=float("nan")),
+    _pkw("refit budget exceeded", ("max_refits",), exact_refits=True, k_limit=-np.inf,
          max_refits=3),
 ]
 
@@ -643,28 +643,29 @@ def _resolve_models(tiny_fit: Any, models: Any) -> Any:
 @given(case=compare_cases())
 def test_compare_ranks_or_names_the_problem(tiny_fit, case: Case) -> None:
     models = _resolve_models(tiny_fit, case.payload["models"])
-    table = outcome(case, lambda: bz.compare(models, **case.payload["kw"]))
+    table = outcome(case, lambda: bz.rank_models(models, **case.payload["kw"]))
     if table is None:
         return
-    assert list(table["rank"]) == list(range(1, len(models) + 1))
-    assert np.isfinite(table[["elpd_loo", "se", "p_loo", "weight"]].to_numpy()).all()
+    assert list(table["place"]) == list(range(1, len(models) + 1))
+    assert np.isfinite(table[["LOO log score", "score se", "effective parameters",
+                              "stacking weight"]].to_numpy()).all()
 
 
 def test_loo_refit_budget_must_be_a_number(tiny_fit) -> None:
     with pytest.raises(BayesziError, match="max_refits"):
-        tiny_fit.loo(exact_refits=True, k_threshold=-np.inf, max_refits="a")
+        tiny_fit.loo(exact_refits=True, k_limit=-np.inf, max_refits="a")
 
 
 def test_loo_refit_settings_must_be_a_mapping(tiny_fit) -> None:
     with pytest.raises(BayesziError, match="refit_settings"):
-        tiny_fit.loo(exact_refits=True, k_threshold=-np.inf, max_refits=10**6, refit_settings="x")
+        tiny_fit.loo(exact_refits=True, k_limit=-np.inf, max_refits=10**6, refit_settings="x")
 
 
 # ============================================================================ study files
 STUDY = {
     "study": {"data": "data.csv", "response": "y", "exposure": "e", "groups": ["g"],
               "seed": 1, "interval": 0.9, "title": "hardening"},
-    "sampler": {"draws": 10, "tune": 10, "chains": 2},
+    "sampler": {"draws": 10, "warmup_steps": 10, "chains": 2},
     "model": [{"name": "zinb", "family": "zinb", "counts": "x + C(f)", "zeros": "w"},
               {"name": "poisson", "family": "poisson", "counts": "x"}],
     "scenario": [{"name": "s1", "values": {"f": "a", "w": 0}, "vary": {"x": [0.0, 1.0]},
@@ -676,7 +677,7 @@ STUDY_PLACES = [
     ("study", "data"), ("study", "response"), ("study", "exposure"), ("study", "groups"),
     ("study", "seed"), ("study", "interval"), ("study", "nested"), ("study", "preferred"),
     ("study", "offset"), ("study", "title"), ("study", "bogus"), ("sampler", "draws"),
-    ("sampler", "chains"), ("sampler", "cores"), ("sampler", "target_accept"),
+    ("sampler", "chains"), ("sampler", "cores"), ("sampler", "acceptance_target"),
     ("sampler", "sampler"), ("sampler", "seed"), ("model", 0), ("model", 0, "name"),
     ("model", 0, "family"), ("model", 0, "counts"), ("model", 0, "zeros"),
     ("model", 0, "groups"), ("model", 0, "varying"), ("model", 0, "nested"),
@@ -799,9 +800,10 @@ def cli_cases(draw: st.DrawFn) -> list[str]:
                              "poisson", "bogus", "e", "g", "nope", "0", "-1", "1", "2", "0.5",
                              "abc", "nan", "mean", "rate", "new", "known", "at_least", ""])
     flags = {
-        "run": ["--out", "--draws", "--tune", "--chains", "--cores", "--save-fits", "--quiet"],
+        "run": ["--out", "--draws", "--warmup-steps", "--chains", "--cores", "--save-fits",
+                "--quiet"],
         "fit": ["--counts", "--zeros", "--family", "--exposure", "--offset", "--groups",
-                "--draws", "--tune", "--chains", "--cores", "--target-accept", "--seed",
+                "--draws", "--warmup-steps", "--chains", "--cores", "--acceptance-target", "--seed",
                 "--name", "--out", "--quiet"],
         "predict": ["--what", "--groups", "--interval", "--k", "--exposure", "--draws",
                     "--out", "--quiet"],
@@ -870,7 +872,7 @@ def test_odd_but_valid_inputs_fit_predict_and_save(tmp_path) -> None:
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         m = bz.fit(df, counts="y ~ `water temp` + C(f)", zeros="~ w", family="zip",
-                   exposure="e", draws=60, tune=100, chains=2, cores=1, seed=2,
+                   exposure="e", draws=60, warmup_steps=100, chains=2, cores=1, seed=2,
                    progressbar=False)
         table = m.coefficients()
         pred = m.predict(df.head(4), what=["mean", "p_zero"])

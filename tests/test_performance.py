@@ -224,7 +224,7 @@ def test_fit_work_counts_patterns():
     df = _discrete_frame(1500, seed=3)
     design = build_design(df, _spec("zinb"))
     n_pat = build_model(design, resolve(design, None)).n_rows
-    work = S.fit_work(n_pat, SamplerSettings(draws=100, tune=200, chains=3))
+    work = S.fit_work(n_pat, SamplerSettings(draws=100, warmup_steps=200, chains=3))
     assert work == n_pat * 300 * 3
 
 
@@ -235,7 +235,7 @@ def _small_fit(sampler: str):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         return bz.fit(df, counts="y ~ C(f)", zeros="~ w", family="zinb", exposure="effort",
-                      groups="site", draws=150, tune=150, chains=2, cores=1, seed=3,
+                      groups="site", draws=150, warmup_steps=150, chains=2, cores=1, seed=3,
                       sampler=sampler, progressbar=False)
 
 

@@ -44,7 +44,7 @@ GEARS = ["a", "b", "c"]
 # ================================================================= hand-built fitted models
 def _clean_diag(n: int, divergences: int = 0) -> Diagnostics:
     """Diagnostics without problems (two chains: one chain is a problem of its own)."""
-    return Diagnostics(table=pd.DataFrame(columns=["r_hat", "ess_bulk", "ess_tail"]),
+    return Diagnostics(table=pd.DataFrame(columns=["R-hat", "bulk ESS", "tail ESS"]),
                        divergences=divergences, draws=n, chains=2)
 
 
@@ -280,7 +280,7 @@ def _zinb(cached_fit):
     def make():
         df, truth = simulate("zinb", n=1000, seed=21, n_sites=15, site_sd=(0.6, 0.8))
         m = bz.fit(df, counts="y ~ x1 + x2", zeros="~ w", family="zinb",
-                   exposure="exposure", groups="site", draws=300, tune=400, chains=2,
+                   exposure="exposure", groups="site", draws=300, warmup_steps=400, chains=2,
                    seed=4, progressbar=False)
         return m, df
     return cached_fit("predict-zinb", make)
@@ -488,7 +488,8 @@ ANSWERS = {
     "coefficients": (lambda m, **kw: m.coefficients(**kw), ("interval",)),
     "group_effects": (lambda m, **kw: m.group_effects(**kw), ("interval",)),
     "zero_check": (lambda m, **kw: m.zero_check(**kw), ("interval", "draws", "seed")),
-    "count_frequencies": (lambda m, **kw: m.count_frequencies(**kw), ("interval", "draws")),
+    "count_frequencies": (lambda m, **kw: m.count_frequencies(**kw),
+                          ("interval", "draws", "seed")),
     "dispersion_check": (lambda m, **kw: m.dispersion_check(**kw),
                          ("interval", "draws", "seed")),
     "max_count_check": (lambda m, **kw: m.max_count_check(**kw),

@@ -136,8 +136,8 @@ def test_coefficients_equal_the_api(report):
         if name == "zinb-reach":
             assert {"substrate: gravel (vs cobble)", "substrate: silt (vs cobble)"} <= \
                 set(csv["term"])
-        for col in ("mean", "sd", "5%", "95%", "exp(mean)", "exp 5%", "exp 95%", "r_hat",
-                    "ess_bulk"):
+        for col in ("mean", "sd", "5%", "95%", "exp(mean)", "exp 5%", "exp 95%", "R-hat",
+                    "bulk ESS"):
             np.testing.assert_allclose(csv[col].to_numpy(float), api[col].to_numpy(float),
                                        rtol=1e-12, equal_nan=True, err_msg=f"{name} {col}")
         page = report["tables"][f"coefficients_{name}"]
@@ -157,16 +157,16 @@ def test_priors_table_shows_labels_and_the_study_files_prior(report):
 
 
 def test_loo_table_equals_the_api(report):
-    from bayeszi.answers.comparison import compare
+    from bayeszi.answers.comparison import rank_models
 
     fits = {n: _fit(report, n) for n in ("zinb-reach", "poisson")}
-    api = compare(fits)
+    api = rank_models(fits)
     csv = pd.read_csv(report["out"] / "tables" / "loo_comparison.csv").set_index("model")
     assert list(csv.index) == list(api.index)
-    np.testing.assert_allclose(csv["elpd_loo"], api["elpd_loo"], rtol=1e-12)
-    np.testing.assert_allclose(csv["elpd_diff"], api["elpd_diff"], rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(csv["LOO log score"], api["LOO log score"], rtol=1e-12)
+    np.testing.assert_allclose(csv["behind best"], api["behind best"], rtol=1e-12, atol=1e-12)
     page = report["tables"]["loo_comparison"]
-    assert list(page["elpd_loo"]) == [format_number(v) for v in api["elpd_loo"]]
+    assert list(page["LOO log score"]) == [format_number(v) for v in api["LOO log score"]]
     # the reading names the model that LOO ranks first
     assert f"The preferred model is {api.index[0]}" in report["html"]
 
@@ -196,6 +196,22 @@ def test_pearson_table_equals_the_api(report):
     for col in ("observed mean", "replicated 95%", "tail prob"):
         np.testing.assert_allclose(rows[col], api[col], rtol=1e-12, err_msg=col)
     assert (rows["residual df"] == api.attrs["residual df"]).all()
+
+
+def test_residual_summary_equals_the_api_and_the_figure_is_binned_by_depth(report):
+    from bayeszi.answers.checks import residuals
+    from bayeszi.answers.residual_checks import residual_statistics
+
+    csv = pd.read_csv(report["out"] / "tables" / "residuals_summary.csv").set_index("model")
+    for name in ("zinb-reach", "poisson"):
+        api = residual_statistics(residuals(_fit(report, name), seed=7))  # the study's seed
+        for col, value in api.items():
+            assert csv.loc[name, col] == pytest.approx(value, rel=1e-9, abs=1e-12), col
+    assert "p-value of that gap (KS test)" in csv.columns
+    # the study file's residuals_against = "depth" reaches the figure's caption
+    section = report["html"].split('data-section="residuals"')[1].split("</section>")[0]
+    assert "bins of the column depth" in section
+    assert len(list((report["out"] / "figures").glob("residuals_*.png"))) == 1
 
 
 def test_scenario_predictions_equal_the_api(report):
@@ -299,7 +315,8 @@ def test_format_number():
 # ---------------------------------------------------------------------- a real browser
 @pytest.mark.skipif(shutil.which("chromium") is None, reason="Debian's chromium is not installed")
 def test_chromium_renders_without_broken_images(report, tmp_path):
-    """Render the page headless: every image loads, and the screenshot is not blank."""
+    """Render the page headless at 1280 px: every image loads, no table makes the page wider
+    than the window (wide tables scroll inside their box), the screenshot is not blank."""
     from PIL import Image
 
     page = tmp_path / "check.html"
@@ -308,17 +325,19 @@ def test_chromium_renders_without_broken_images(report, tmp_path):
              "for (var i = 0; i < imgs.length; i++) {"
              " if (!imgs[i].complete || imgs[i].naturalWidth === 0) bad++; }"
              "var p = document.createElement('p'); p.id = 'probe';"
-             "p.textContent = 'images=' + imgs.length + ' broken=' + bad;"
+             "var wide = document.documentElement.scrollWidth > window.innerWidth;"
+             "p.textContent = 'images=' + imgs.length + ' broken=' + bad + ' wide=' + wide;"
              "document.body.appendChild(p); });</script>")
     page.write_text(report["html"].replace("</body>", probe + "</body>"), encoding="utf-8")
     base = ["chromium", "--headless", "--no-sandbox", "--disable-gpu", "--hide-scrollbars",
             "--virtual-time-budget=10000"]
-    dom = subprocess.run([*base, "--dump-dom", page.as_uri()], capture_output=True,
-                         text=True, timeout=120)
-    m = re.search(r"images=(\d+) broken=(\d+)", dom.stdout)
+    dom = subprocess.run([*base, "--window-size=1280,4000", "--dump-dom", page.as_uri()],
+                         capture_output=True, text=True, timeout=120)
+    m = re.search(r"images=(\d+) broken=(\d+) wide=(\w+)", dom.stdout)
     assert m, dom.stderr[-500:]
     n_figs = len(list((report["out"] / "figures").glob("*.png")))
     assert int(m.group(1)) == n_figs and int(m.group(2)) == 0
+    assert m.group(3) == "false", "the page is wider than a 1280 px window: a table overflows"
     shot = tmp_path / "report.png"
     subprocess.run([*base, "--window-size=1280,4000", f"--screenshot={shot}",
                     (report["out"] / "report.html").as_uri()], capture_output=True,

@@ -118,6 +118,19 @@ def test_text_response(df):
         design(df)
 
 
+def test_true_false_response_is_not_counts(df):
+    df["y"] = df["y"] > 0
+    with pytest.raises(bz.BayesziError, match=r"response column 'y' holds True/False: "
+                                              r"presence/absence.*Bernoulli.*astype\(int\)"):
+        design(df)
+
+
+def test_zero_one_response_warns_it_may_be_presence(df):
+    df["y"] = (df["y"] > 0).astype(int)
+    with pytest.warns(bz.BayesziWarning, match=r"only 0 and 1.*presence/absence"):
+        design(df)
+
+
 def test_no_zeros_hurdle_is_error(df):
     df["y"] = df["y"] + 1
     with pytest.raises(bz.BayesziError, match=r"no zeros.*hurdle"):
@@ -147,8 +160,8 @@ def test_counts_formula_without_response():
 
 
 def test_bad_sampler_setting():
-    with pytest.raises(bz.BayesziError, match=r"target_accept"):
-        bz.make_spec("y ~ x", target_accept=1.5)
+    with pytest.raises(bz.BayesziError, match=r"acceptance_target"):
+        bz.make_spec("y ~ x", acceptance_target=1.5)
     with pytest.raises(bz.BayesziError, match=r"'draw'.*did you mean 'draws'"):
         bz.make_spec("y ~ x", draw=10)
 

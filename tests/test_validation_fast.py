@@ -110,7 +110,7 @@ def test_sbc_runs_end_to_end(tmp_path):
     the coverage table computed, figures written. The truth also sits within 5 posterior sds
     of the posterior mean (P(|z| > 5) is below 1e-6 for a near-normal posterior, so a sign
     or scale error in the pipeline fails here)."""
-    cfg = sbc.Config(rows=60, draws=100, tune=150, seed=3)
+    cfg = sbc.Config(rows=60, draws=100, warmup_steps=150, seed=3)
     res = sbc.run(["poisson"], (False,), reps=3, cfg=cfg, out=str(tmp_path), quiet=True)
     ranks = res["ranks"]
     assert (ranks["status"] == "ok").all() and len(ranks) == 3 * 4
@@ -139,12 +139,12 @@ def test_sbc_runs_end_to_end(tmp_path):
 def test_one_coverage_replicate():
     """One coverage replicate of ZIP with sites: every reported interval is ordered and
     the truth lies within a few interval widths of it."""
-    cfg = coverage.Config(rows=120, n_groups=6, draws=150, tune=200, seed=5)
+    cfg = coverage.Config(rows=120, n_groups=6, draws=150, warmup_steps=200, seed=5)
     rows = pd.DataFrame(coverage.replicate("zip", 0, cfg))
     assert (rows["status"] == "ok").all()
     assert set(rows["quantity"]) == {
         "counts: Intercept", "counts: x", "counts: b", "zeros: Intercept", "zeros: w",
-        "counts sd(site)", "zeros sd(site)",
+        "counts site effects: sd", "zeros site effects: sd",
         *[f"mean count, row {i}" for i in (1, 2, 3)],
         *[f"mean count, new site, row {i}" for i in (1, 2, 3)]}
     assert (rows["lo90"] < rows["hi90"]).all()

@@ -9,7 +9,7 @@ Usage (from the repository root)::
     python -m validation.answers_snapshot write OUT_DIR
     python -m validation.answers_snapshot compare OLD_DIR NEW_DIR
 
-Only public names are used (``bayeszi.fit``, ``bayeszi.compare`` and the fitted model's
+Only public names are used (``bayeszi.fit``, ``bayeszi.rank_models`` and the fitted model's
 methods), so the script runs unchanged on both sides of a refactor.
 
 Example
@@ -27,7 +27,7 @@ import numpy as np
 import pandas as pd
 
 COUNTS = "crayfish ~ water_temp + C(substrate) + depth + canopy"
-SETTINGS = dict(exposure="trap_nights", draws=300, tune=300, chains=2, seed=20261202,
+SETTINGS = dict(exposure="trap_nights", draws=300, warmup_steps=300, chains=2, seed=20261202,
                 progressbar=False, sampler="pymc")
 
 
@@ -71,7 +71,7 @@ def tables() -> dict[str, pd.DataFrame]:
             loo = m.loo()
             out[f"{name}_loo"] = pd.DataFrame({"elpd": [loo.elpd], "se": [loo.se],
                                                "p_loo": [loo.p_loo]})
-        out["compare"] = bz.compare(fits).reset_index()
+        out["compare"] = bz.rank_models(fits).reset_index()
         reach = fits["zinb"].group_effects().reset_index()
         out["zinb_group_effects"] = reach
     return out

@@ -24,7 +24,7 @@ Example
 >>> truth = draw_truth(rng, "zinb", SimPrior(), n_groups=5)
 >>> df["y"] = simulate_counts(rng, "zinb", df, truth)
 >>> sorted(true_quantities("zinb", df, truth, groups=True))[:3]
-['counts effect s01', 'counts sd(site)', 'counts: Intercept']
+['counts effect s01', 'counts site effects: sd', 'counts: Intercept']
 """
 
 from __future__ import annotations
@@ -198,10 +198,10 @@ def true_quantities(family: str, df: pd.DataFrame, truth: dict[str, Any], groups
     if "alpha" in truth:
         out["dispersion"] = float(truth["alpha"])
     if groups:
-        out[f"counts sd({GROUP})"] = truth["sd_counts"]
+        out[f"counts {GROUP} effects: sd"] = truth["sd_counts"]
         out["counts effect s01"] = float(truth["effect_counts"][0])
         if "sd_zeros" in truth:
-            out[f"zeros sd({GROUP})"] = truth["sd_zeros"]
+            out[f"zeros {GROUP} effects: sd"] = truth["sd_zeros"]
             out["zeros effect s01"] = float(truth["effect_zeros"][0])
     mean = expected_count(family, *linear_predictors(family, df, truth))
     for i in range(n_mean_rows):
@@ -224,11 +224,11 @@ def posterior_quantities(fitted: Any, df: pd.DataFrame, groups: bool, n_mean_row
     if "dispersion" in post:
         out["dispersion"] = post["dispersion"].values.ravel()
     if groups:
-        out[f"counts sd({GROUP})"] = post[f"counts_sd_{GROUP}"].values.ravel()
+        out[f"counts {GROUP} effects: sd"] = post[f"counts_sd_{GROUP}"].values.ravel()
         out["counts effect s01"] = post[f"counts_effect_{GROUP}"].sel(
             {GROUP: "s01"}).values.ravel()
         if f"zeros_sd_{GROUP}" in post:
-            out[f"zeros sd({GROUP})"] = post[f"zeros_sd_{GROUP}"].values.ravel()
+            out[f"zeros {GROUP} effects: sd"] = post[f"zeros_sd_{GROUP}"].values.ravel()
             out["zeros effect s01"] = post[f"zeros_effect_{GROUP}"].sel(
                 {GROUP: "s01"}).values.ravel()
     with warnings.catch_warnings():  # sampler trouble is recorded by fit(), not repeated
@@ -245,10 +245,10 @@ class FitSettings:
     """NUTS settings of every validation fit (cores=1 and two chains: a shared machine)."""
 
     draws: int = 300
-    tune: int = 400
+    warmup_steps: int = 400
     chains: int = 2
     cores: int = 1
-    target_accept: float = 0.9
+    acceptance_target: float = 0.9
 
 
 def fit(df: pd.DataFrame, family: str, groups: bool, prior: SimPrior, settings: FitSettings,
@@ -263,8 +263,8 @@ def fit(df: pd.DataFrame, family: str, groups: bool, prior: SimPrior, settings: 
         m = bz.fit(df, counts=COUNTS, zeros=ZEROS if fam.zeros_kind else None, family=family,
                    exposure="exposure", groups=GROUP if groups else None,
                    priors=prior.bayeszi_priors(family, groups), draws=settings.draws,
-                   tune=settings.tune, chains=settings.chains, cores=settings.cores,
-                   target_accept=settings.target_accept, seed=seed, progressbar=False)
+                   warmup_steps=settings.warmup_steps, chains=settings.chains, cores=settings.cores,
+                   acceptance_target=settings.acceptance_target, seed=seed, progressbar=False)
     diag = m.diagnostics()
     table = diag.table
     record = {

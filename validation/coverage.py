@@ -28,7 +28,7 @@ Writes ``validation/results/coverage_replicates.csv``, ``coverage_summary.csv``,
 
 Example
 -------
->>> rows = replicate("zip", 0, Config(draws=100, tune=150))     # doctest: +SKIP
+>>> rows = replicate("zip", 0, Config(draws=100, warmup_steps=150))     # doctest: +SKIP
 >>> {r["quantity"] for r in rows} >= {"counts: x", "mean count, new site, row 1"}  # doctest: +SKIP
 True
 """
@@ -62,22 +62,22 @@ class Config:
     n_groups: int = 8
     mean_rows: int = 3          # fitted records and new-site records whose means are checked
     draws: int = 500            # per chain
-    tune: int = 500
+    warmup_steps: int = 500
     seed: int = 20240902
     prior: C.SimPrior = field(default_factory=C.SimPrior)
 
     @property
     def fit_settings(self) -> C.FitSettings:
         """NUTS settings of the fits."""
-        return C.FitSettings(draws=self.draws, tune=self.tune)
+        return C.FitSettings(draws=self.draws, warmup_steps=self.warmup_steps)
 
 
 TABLE_ROWS = {  # (part, term) of fitted.coefficients() -> quantity name in common.py
     ("counts", "Intercept"): "counts: Intercept", ("counts", "x"): "counts: x",
     ("counts", "b"): "counts: b", ("zeros", "Intercept"): "zeros: Intercept",
     ("zeros", "w"): "zeros: w", ("counts", "dispersion (alpha)"): "dispersion",
-    ("counts", f"sd({C.GROUP})"): f"counts sd({C.GROUP})",
-    ("zeros", f"sd({C.GROUP})"): f"zeros sd({C.GROUP})",
+    ("counts", f"{C.GROUP} effects: sd"): f"counts {C.GROUP} effects: sd",
+    ("zeros", f"{C.GROUP} effects: sd"): f"zeros {C.GROUP} effects: sd",
 }
 
 
@@ -259,7 +259,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     ap.add_argument("--reps", type=int, default=50, help="replicates per family")
     ap.add_argument("--families", nargs="+", default=list(DEFAULT_FAMILIES))
     ap.add_argument("--draws", type=int, default=Config.draws)
-    ap.add_argument("--tune", type=int, default=Config.tune)
+    ap.add_argument("--warmup-steps", type=int, default=Config.warmup_steps)
     ap.add_argument("--seed", type=int, default=Config.seed)
     ap.add_argument("--out", default=C.RESULTS)
     ap.add_argument("--resume", action="store_true", help="continue an interrupted run")
@@ -269,7 +269,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     if a.summarise_only:
         res = summarise(out=a.out)
     else:
-        res = run(a.families, a.reps, Config(draws=a.draws, tune=a.tune, seed=a.seed), a.out,
+        res = run(a.families, a.reps, Config(draws=a.draws, warmup_steps=a.warmup_steps,
+                                             seed=a.seed), a.out,
                   a.resume)
     with pd.option_context("display.width", 200, "display.max_columns", 20):
         print(res["families"].to_string(index=False))

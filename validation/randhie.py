@@ -25,13 +25,13 @@ Checks, with the reasons for the tolerances:
    one-dimensional profile likelihood x prior, computed on a grid from statsmodels'
    log-likelihood alone (:func:`profile_posterior`). A gap beyond 0.5 sd means the fit and
    the likelihood describe different models.
-2. The LOO ranking (``bayeszi.compare``) agrees with AIC = -2 log L + 2 k from the MLE fits:
+2. The LOO ranking (``bayeszi.rank_models``) agrees with AIC = -2 log L + 2 k from the MLE fits:
    every pair of models is ordered the same way, unless LOO itself calls the pair a tie
    (difference within 2 standard errors of the difference).
 
 Run from the repository root::
 
-    python -m validation.randhie                 # draws=1000, tune=1000, 2 chains
+    python -m validation.randhie                 # draws=1000, warmup_steps=1000, 2 chains
     python -m validation.randhie --rows 4000     # a quicker look on a random subset
 
 Writes ``validation/results/randhie_estimates.csv`` (one row per family and parameter),
@@ -205,14 +205,15 @@ def mle_fit(family: str, df: pd.DataFrame) -> MLE:
     raise ValueError(f"no reference fit for family {family!r}")
 
 
-def bayes_fit(family: str, df: pd.DataFrame, draws: int, tune: int, seed: int
+def bayes_fit(family: str, df: pd.DataFrame, draws: int, warmup_steps: int, seed: int
               ) -> tuple[Any, dict[str, Any]]:
     """bayeszi's fit with its default priors; returns the fit and its sampler record."""
     t0 = time.perf_counter()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         m = bz.fit(df, counts=f"{RESPONSE} ~ {RHS}", zeros=f"~ {RHS}", family=family,
-                   draws=draws, tune=tune, chains=2, cores=1, seed=seed, progressbar=False)
+                   draws=draws, warmup_steps=warmup_steps, chains=2, cores=1, seed=seed,
+                   progressbar=False)
     diag = m.diagnostics()
     return m, {"divergences": int(diag.divergences),
                "max_rhat": float(diag.table["r_hat"].max()),
@@ -305,10 +306,10 @@ def agreement(family: str, fitted: Any, mle: MLE) -> pd.DataFrame:
 
 
 def loo_vs_aic(fits: dict[str, Any], mles: dict[str, MLE]) -> pd.DataFrame:
-    """``bayeszi.compare`` with each model's AIC and the pairwise consistency check."""
+    """``bayeszi.rank_models`` with each model's AIC and the pairwise consistency check."""
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        table = bz.compare(fits)
+        table = bz.rank_models(fits)
     table = table.copy()
     table["AIC"] = [mles[n].aic for n in table.index]
     table["-2 elpd_loo"] = -2.0 * table["elpd_loo"]
@@ -385,22 +386,22 @@ def plot(est: pd.DataFrame, path: str) -> str:
     return path
 
 
-def cached_fit(family: str, df: pd.DataFrame, draws: int, tune: int, seed: int,
+def cached_fit(family: str, df: pd.DataFrame, draws: int, warmup_steps: int, seed: int,
                cache: str | None) -> tuple[Any, dict[str, Any]]:
     """:func:`bayes_fit`, kept in ``cache`` (a folder, or None for no cache) through
     ``fitted.save`` / ``bayeszi.load`` so that rerunning the checks needs no new sampling.
-    A cached fit is used only when its family, draws, tune, seed and rows match."""
+    A cached fit is used only when its family, draws, warmup_steps, seed and rows match."""
     path = None
     if cache:
         os.makedirs(cache, exist_ok=True)
-        path = os.path.join(cache, f"randhie_{family}_{len(df)}_{draws}_{tune}_{seed}.nc")
+        path = os.path.join(cache, f"randhie_{family}_{len(df)}_{draws}_{warmup_steps}_{seed}.nc")
         rec_path = path + ".json"
         if os.path.exists(path) and os.path.exists(rec_path):
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 m = bz.load(path)
             return m, {**C.read_json(rec_path), "cached": True}
-    m, record = bayes_fit(family, df, draws, tune, seed)
+    m, record = bayes_fit(family, df, draws, warmup_steps, seed)
     if path:
         m.save(path)
         C.write_json(record, path + ".json")
@@ -408,18 +409,19 @@ def cached_fit(family: str, df: pd.DataFrame, draws: int, tune: int, seed: int,
 
 
 def run(families: Sequence[str] = FAMILIES, rows: int | None = None, draws: int = 1000,
-        tune: int = 1000, seed: int = 7, out: str = C.RESULTS, quiet: bool = False,
+        warmup_steps: int = 1000, seed: int = 7, out: str = C.RESULTS, quiet: bool = False,
         figures: bool = True, cache: str | None = None) -> dict[str, Any]:
     """Fit, compare and write the tables and figure; returns them and the fits."""
     df = load(rows)
-    settings = {"families": list(families), "rows": len(df), "draws": draws, "tune": tune,
+    settings = {"families": list(families), "rows": len(df), "draws": draws,
+                "warmup_steps": warmup_steps,
                 "chains": 2, "cores": 1, "seed": seed, "priors": "bayeszi defaults",
                 "tolerance_sd": TOLERANCE_SD, "tie_se": TIE_SE}
     info = C.run_info(settings)
     fits, mles, records, tables = {}, {}, {}, []
     for family in families:
         mles[family] = mle_fit(family, df)
-        fits[family], records[family] = cached_fit(family, df, draws, tune, seed, cache)
+        fits[family], records[family] = cached_fit(family, df, draws, warmup_steps, seed, cache)
         records[family]["sampler"] = fits[family].idata.sample_stats.attrs.get(
             "bayeszi_sampler")
         C.say(f"randhie {family}: {records[family]['seconds']:.0f} s, "
@@ -455,13 +457,13 @@ def main(argv: Sequence[str] | None = None) -> int:
     ap.add_argument("--families", nargs="+", default=list(FAMILIES))
     ap.add_argument("--rows", type=int, default=None, help="random subset (default: all)")
     ap.add_argument("--draws", type=int, default=1000)
-    ap.add_argument("--tune", type=int, default=1000)
+    ap.add_argument("--warmup-steps", type=int, default=1000)
     ap.add_argument("--seed", type=int, default=7)
     ap.add_argument("--out", default=C.RESULTS)
     ap.add_argument("--cache", default=None,
                     help="folder to keep the fits in (about 0.5 GB each) for reruns")
     a = ap.parse_args(argv)
-    res = run(a.families, a.rows, a.draws, a.tune, a.seed, a.out, cache=a.cache)
+    res = run(a.families, a.rows, a.draws, a.warmup_steps, a.seed, a.out, cache=a.cache)
     est = res["estimates"]
     with pd.option_context("display.width", 200, "display.max_columns", 20):
         print(est.groupby("family", sort=False)["gap (posterior sd)"]

@@ -25,7 +25,7 @@ rank-histogram figure per family, ``sbc_<family>.png``.
 
 Example
 -------
->>> rows = replicate("poisson", False, 0, Config(draws=100, tune=150))  # doctest: +SKIP
+>>> rows = replicate("poisson", False, 0, Config(draws=100, warmup_steps=150))  # doctest: +SKIP
 >>> rows[0]["rank"] in range(100)                                      # doctest: +SKIP
 True
 """
@@ -56,14 +56,14 @@ class Config:
     n_groups: int = 6               # sites (a few groups)
     keep: int = 99                  # thinned draws per fit: ranks 0 .. 99
     draws: int = 300                # per chain
-    tune: int = 400
+    warmup_steps: int = 400
     seed: int = 20240901
     prior: C.SimPrior = field(default_factory=C.SimPrior)
 
     @property
     def fit_settings(self) -> C.FitSettings:
         """NUTS settings of the fits."""
-        return C.FitSettings(draws=self.draws, tune=self.tune)
+        return C.FitSettings(draws=self.draws, warmup_steps=self.warmup_steps)
 
 
 def replicate(family: str, groups: bool, rep: int, cfg: Config) -> list[dict[str, Any]]:
@@ -286,7 +286,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     ap.add_argument("--families", nargs="+", default=list(bz.FAMILY_NAMES))
     ap.add_argument("--groups", choices=["no", "yes", "both"], default="both")
     ap.add_argument("--draws", type=int, default=Config.draws)
-    ap.add_argument("--tune", type=int, default=Config.tune)
+    ap.add_argument("--warmup-steps", type=int, default=Config.warmup_steps)
     ap.add_argument("--seed", type=int, default=Config.seed)
     ap.add_argument("--group-rows", type=int, default=Config.group_rows,
                     help="records per data set with groups (6 sites)")
@@ -299,7 +299,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     if a.summarise_only:
         res = summarise(out=a.out)
     else:
-        res = run(a.families, g, a.reps, Config(draws=a.draws, tune=a.tune, seed=a.seed,
+        res = run(a.families, g, a.reps, Config(draws=a.draws, warmup_steps=a.warmup_steps,
+                                                seed=a.seed,
                                                 group_rows=a.group_rows), a.out, a.resume)
     with pd.option_context("display.width", 200, "display.max_columns", 20):
         print(res["families"].to_string(index=False))

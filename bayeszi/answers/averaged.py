@@ -3,14 +3,14 @@
 When several candidates fitted to the same data predict about equally well, picking one
 discards the others' view. Stacking (Yao, Vehtari, Simpson & Gelman 2018, Bayesian Analysis
 13(3)) chooses the weights w_m of a mixture of the models' posterior predictive
-distributions that maximise its leave-one-out log score; :func:`bayeszi.compare` reports
+distributions that maximise its leave-one-out log score; :func:`bayeszi.rank_models` reports
 them in its ``weight`` column. The averaged answer is the mixture: its draws are the pooled
 draws of the models, each model giving a share of them equal to its weight, so intervals
 carry the uncertainty about which model is right as well as each model's own.
 
 The rule (:func:`plan_mixture`):
 
-1. weights (default: the stacking weights of :func:`bayeszi.compare`) are divided by their
+1. weights (default: the stacking weights of :func:`bayeszi.rank_models`) are divided by their
    sum; models below ``min_weight`` (default :data:`MIN_WEIGHT` = 0.01) are left out and the
    others' weights divided again by their sum;
 2. of S draws in all (``draws``; default the fewest draws any kept model holds), model m
@@ -46,7 +46,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from bayeszi.answers.comparison import check_same_data, compare
+from bayeszi.answers.comparison import WEIGHT, check_same_data, rank_models
 from bayeszi.answers.evaluation import (
     QUANTITIES,
     Rows,
@@ -159,15 +159,15 @@ def _given_weights(fits: Mapping[str, FitRecord], weights: object) -> dict[str, 
             return {next(iter(fits)): 1.0}
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            weights = compare(fits)
+            weights = rank_models(fits)
     if isinstance(weights, pd.DataFrame):
-        if "weight" not in weights.columns:
-            raise BayesziError("weights is a table without a 'weight' column; pass the table "
-                               "of bayeszi.compare or a dict model name -> weight")
-        weights = {str(n): float(w) for n, w in weights["weight"].items()}
+        if WEIGHT not in weights.columns:
+            raise BayesziError(f"weights is a table without a {WEIGHT!r} column; pass the "
+                               "table of bayeszi.rank_models or a dict model name -> weight")
+        weights = {str(n): float(w) for n, w in weights[WEIGHT].items()}
     if not isinstance(weights, Mapping):
         raise BayesziError(f"weights must be a dict model name -> weight, the table of "
-                           f"bayeszi.compare, or None (stacking weights); got {weights!r}")
+                           f"bayeszi.rank_models, or None (stacking weights); got {weights!r}")
     missing = [n for n in fits if n not in weights]
     extra = [str(n) for n in weights if n not in fits]
     if missing or extra:
@@ -361,7 +361,7 @@ def average_predictions(fits: Mapping[str, FitRecord], data: pd.DataFrame | None
     Parameters
     ----------
     fits : model name -> fitted model, all fitted to the same data.
-    weights : model name -> weight, the table of :func:`bayeszi.compare`, or None (compute
+    weights : model name -> weight, the table of :func:`bayeszi.rank_models`, or None (compute
         the stacking weights, which runs PSIS-LOO for every model).
     min_weight : models below this weight are left out (see the module docstring).
     combine : None (row by row), ``"sum"`` (the rows' total per draw, e.g. a total catch

@@ -7,7 +7,7 @@ exceeds 0.7 (Vehtari et al. 2024, JMLR). On request those rows are re-evaluated 
 ``arviz.reloo`` refits the model without each of them through :class:`RefitWrapper` and
 scores the held-out row under the refit's draws.
 
-:func:`compare` checks that all models were fitted to the same rows, response and exposure,
+:func:`rank_models` checks that all models were fitted to the same rows, response and exposure,
 and returns a table ranked by elpd with its standard error, the difference to the best model
 and the standard error of that difference, p_loo, stacking weights, Pareto-k counts, and a
 column saying which values are PSIS estimates and which come from exact refits.
@@ -17,15 +17,17 @@ Example
 >>> import bayeszi as bz                                              # doctest: +SKIP
 >>> fits = bz.fit_candidates(df, counts="y ~ x", zeros="~ w",
 ...                          families=["poisson", "zip", "zinb"])    # doctest: +SKIP
->>> table = bz.compare(fits)                                          # doctest: +SKIP
->>> table[["elpd_loo", "se", "elpd_diff", "diff_se", "weight"]]       # doctest: +SKIP
+>>> table = bz.rank_models(fits)                                      # doctest: +SKIP
+>>> table[["LOO log score", "behind best", "behind se", "stacking weight"]]  # doctest: +SKIP
 """
 
 from __future__ import annotations
 
+import contextlib
+import contextvars
 import dataclasses
 import warnings
-from collections.abc import Mapping
+from collections.abc import Iterator, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -35,20 +37,62 @@ import pandas as pd
 import xarray as xr
 
 from bayeszi.base.errors import BayesziError, BayesziWarning
+from bayeszi.base.renamed import refusing_renamed
 from bayeszi.engine import loglik
 from bayeszi.engine.fit import fit_record
 from bayeszi.engine.record import FitRecord
 from bayeszi.families import get_family
 
-#: Pareto k at or below this is "good" (Vehtari, Gelman & Gabry 2017, Stat. Comput.; from memory).
-K_GOOD = 0.5
+#: Pareto k at or below this counts as low: PSIS is reliable and converges quickly (Vehtari,
+#: Gelman & Gabry 2017, Stat. Comput.; from memory).
+K_LOW_LIMIT = 0.5
 #: Pareto k above this makes the PSIS estimate of a row unreliable (Vehtari et al. 2024, JMLR).
-K_BAD = 0.7
+K_LIMIT = 0.7
 #: Most exact refits one model may ask for before :func:`loo` refuses (each is a full fit).
 MAX_REFITS = 20
 
 PSIS = "PSIS"
 EXACT = "exact refit"
+
+# The ranking table's headings, in plain words (docs/glossary.md; elpd and p_loo, the paper's
+# symbols, appear in the prose only).
+PLACE = "place"
+SCORE = "LOO log score"
+SCORE_SE = "score se"
+BEHIND = "behind best"
+BEHIND_SE = "behind se"
+BEHIND_IN_SE = "behind in se"
+EFFECTIVE = "effective parameters"
+WEIGHT = "stacking weight"
+K_LOW = "rows low k"
+K_MODERATE = "rows moderate k"
+K_HIGH = "rows high k"
+HIGH_K_ROWS = "high-k rows"
+EXACT_ROWS = "exact refits"
+VALUES = "values from"
+SAMPLER = "sampler"
+
+
+#: How the reader asks for exact refits, phrased for where they are: the Python default here;
+#: the command line and the report set their own with :func:`refit_advice`.
+_REFIT_ADVICE: contextvars.ContextVar[str] = contextvars.ContextVar(
+    "refit_advice", default="pass exact_refits=True (fitted.loo or bayeszi.rank_models)")
+
+
+@contextlib.contextmanager
+def refit_advice(text: str) -> Iterator[None]:
+    """Within the block, warnings about high Pareto k say ``text`` as the way to ask for
+    exact refits (e.g. a study-file key or a command-line flag instead of a keyword).
+
+    >>> with refit_advice("add --exact-refits"):
+    ...     _REFIT_ADVICE.get()
+    'add --exact-refits'
+    """
+    token = _REFIT_ADVICE.set(text)
+    try:
+        yield
+    finally:
+        _REFIT_ADVICE.reset(token)
 
 
 # ---------------------------------------------------------------------------- results
@@ -64,7 +108,7 @@ class LooEstimate:
         ``y``, ``elpd_i`` (the row's log predictive density when left out), ``pareto_k`` (from
         PSIS, kept even after an exact refit) and ``value_from`` (``"PSIS"`` or
         ``"exact refit"``).
-    k_threshold : rows with Pareto k above this are flagged (0.7 by default).
+    k_limit : rows with Pareto k above this are flagged (0.7 by default).
     elpd_data : the ArviZ ``ELPDData`` behind the numbers (after ``reloo`` the refitted rows
         carry k = 0 there, as ArviZ does).
     notes : what happened during exact refits (rows that could not be refitted, sampler
@@ -81,7 +125,7 @@ class LooEstimate:
     se: float
     p_loo: float
     pointwise: pd.DataFrame = field(repr=False)
-    k_threshold: float
+    k_limit: float
     elpd_data: Any = field(repr=False)
     notes: list[str] = field(default_factory=list)
 
@@ -94,7 +138,7 @@ class LooEstimate:
     def flagged_rows(self) -> list:
         """Row labels whose Pareto k exceeds the threshold and that are still PSIS values."""
         p = self.pointwise
-        return list(p.index[(p["pareto_k"] > self.k_threshold) & (p["value_from"] == PSIS)])
+        return list(p.index[(p["pareto_k"] > self.k_limit) & (p["value_from"] == PSIS)])
 
     @property
     def exact_rows(self) -> list:
@@ -103,27 +147,28 @@ class LooEstimate:
         return list(p.index[p["value_from"] == EXACT])
 
     def k_counts(self) -> dict[str, int]:
-        """Rows by PSIS Pareto k: ``good`` (k <= 0.5), ``ok`` (0.5 < k <= threshold) and
-        ``bad`` (k > threshold), counted before any exact refit."""
+        """Rows by PSIS Pareto k: ``low`` (k <= 0.5), ``moderate`` (0.5 < k <= the limit)
+        and ``high`` (k > the limit), counted before any exact refit."""
         k = self.pointwise["pareto_k"].to_numpy()
-        return {"good": int(np.sum(k <= K_GOOD)),
-                "ok": int(np.sum((k > K_GOOD) & (k <= self.k_threshold))),
-                "bad": int(np.sum(k > self.k_threshold))}
+        return {"low": int(np.sum(k <= K_LOW_LIMIT)),
+                "moderate": int(np.sum((k > K_LOW_LIMIT) & (k <= self.k_limit))),
+                "high": int(np.sum(k > self.k_limit))}
 
     def __str__(self) -> str:
         c = self.k_counts()
         lines = [
             f"PSIS-LOO of a {self.fitted.spec.family} fit to {len(self.pointwise)} rows "
             f"({self.n_draws} draws)",
-            f"  elpd_loo {self.elpd:.1f} (se {self.se:.1f}), p_loo {self.p_loo:.1f}",
-            f"  Pareto k: {c['good']} good (<= {K_GOOD}), {c['ok']} ok, {c['bad']} above "
-            f"{self.k_threshold}",
+            f"  LOO log score {self.elpd:.1f} (se {self.se:.1f}), effective parameters "
+            f"{self.p_loo:.1f}",
+            f"  Pareto k: {c['low']} rows at most {K_LOW_LIMIT}, {c['moderate']} in "
+            f"({K_LOW_LIMIT}, {self.k_limit}], {c['high']} above {self.k_limit}",
         ]
         if self.exact_rows:
             lines.append(f"  exact refits for row(s) {_labels(self.exact_rows)}")
         if self.flagged_rows:
             lines.append(f"  unreliable PSIS values for row(s) {_labels(self.flagged_rows)}; "
-                         "pass exact_refits=True to refit without them")
+                         f"{_REFIT_ADVICE.get()} to refit without them")
         lines.extend(f"  note: {n}" for n in self.notes)
         return "\n".join(lines)
 
@@ -261,7 +306,7 @@ def _check_loglik(fitted: FitRecord, label: str) -> None:
                            f"the design {fitted.design.n}; the fit is inconsistent, refit it")
 
 
-def _psis(fitted: FitRecord, k_threshold: float, label: str) -> LooEstimate:
+def _psis(fitted: FitRecord, k_limit: float, label: str) -> LooEstimate:
     """PSIS-LOO of one fit, without warnings (callers warn)."""
     _check_loglik(fitted, label)
     with warnings.catch_warnings():
@@ -277,17 +322,17 @@ def _psis(fitted: FitRecord, k_threshold: float, label: str) -> LooEstimate:
         "value_from": PSIS,
     }, index=data.index)
     return LooEstimate(fitted, float(elpd.elpd_loo), float(elpd.se), float(elpd.p_loo),
-                       pointwise, float(k_threshold), elpd)
+                       pointwise, float(k_limit), elpd)
 
 
-def _check_threshold(k_threshold: float) -> float:
+def _check_threshold(k_limit: float) -> float:
     try:
-        k = float(k_threshold)
+        k = float(k_limit)
     except (TypeError, ValueError):
-        raise BayesziError(f"k_threshold must be a number, got {k_threshold!r}; 0.7 is the "
+        raise BayesziError(f"k_limit must be a number, got {k_limit!r}; 0.7 is the "
                            "usual limit (Vehtari et al. 2024)") from None
     if not np.isfinite(k) and k != -np.inf:
-        raise BayesziError(f"k_threshold must be finite, got {k_threshold!r}")
+        raise BayesziError(f"k_limit must be finite, got {k_limit!r}")
     return k
 
 
@@ -307,7 +352,7 @@ def _check_refit_budget(est: LooEstimate, max_refits: int, label: str) -> None:
     n = len(est.flagged_rows)
     if n > max_refits:
         raise BayesziError(
-            f"model {label!r} has {n} rows with Pareto k above {est.k_threshold} (e.g. rows "
+            f"model {label!r} has {n} rows with Pareto k above {est.k_limit} (e.g. rows "
             f"{_labels(est.flagged_rows, 5)}); exact refits would take {n} full fits, more than "
             f"max_refits={max_refits}. Raise max_refits to go ahead, or first improve the model "
             "for these rows (many high k values usually mean the model is misspecified or very "
@@ -322,7 +367,7 @@ def _refine(est: LooEstimate, refit_settings: Mapping[str, Any] | None) -> LooEs
         return est
     fitted = est.fitted
     positions = [int(i) for i in np.flatnonzero(
-        (est.pointwise["pareto_k"].to_numpy() > est.k_threshold)
+        (est.pointwise["pareto_k"].to_numpy() > est.k_limit)
         & (est.pointwise["value_from"].to_numpy() == PSIS))]
     notes = list(est.notes)
     to_refit = []
@@ -340,12 +385,12 @@ def _refine(est: LooEstimate, refit_settings: Mapping[str, Any] | None) -> LooEs
     skip = np.ones(len(est.pointwise), dtype=bool)
     skip[to_refit] = False
     k_for_reloo = orig.pareto_k.copy()
-    k_for_reloo.values[skip & (k_for_reloo.values > est.k_threshold)] = -np.inf
+    k_for_reloo.values[skip & (k_for_reloo.values > est.k_limit)] = -np.inf
     orig["pareto_k"] = k_for_reloo
     wrapper = RefitWrapper(fitted, refit_settings)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UserWarning)
-        new = az.reloo(wrapper, loo_orig=orig, k_thresh=est.k_threshold, verbose=False)
+        new = az.reloo(wrapper, loo_orig=orig, k_thresh=est.k_limit, verbose=False)
     notes.extend(wrapper.notes)
     pointwise = est.pointwise.copy()
     pointwise["elpd_i"] = np.asarray(new.loo_i).ravel()
@@ -355,23 +400,24 @@ def _refine(est: LooEstimate, refit_settings: Mapping[str, Any] | None) -> LooEs
     k_out[skip] = est.pointwise["pareto_k"].to_numpy()[skip]
     new.pareto_k.values[:] = k_out
     return LooEstimate(fitted, float(new.elpd_loo), float(new.se), float(new.p_loo),
-                       pointwise, est.k_threshold, new, notes)
+                       pointwise, est.k_limit, new, notes)
 
 
 def _warn_flagged(est: LooEstimate, label: str) -> None:
     rows = est.flagged_rows
     if rows:
         warnings.warn(
-            f"model {label!r}: {len(rows)} row(s) have Pareto k above {est.k_threshold} "
+            f"model {label!r}: {len(rows)} row(s) have Pareto k above {est.k_limit} "
             f"(rows {_labels(rows)}), so their PSIS-LOO values are unreliable (Vehtari et al. "
-            "2024). Pass exact_refits=True to refit without each of them, or see "
+            f"2024). To refit without each of them, {_REFIT_ADVICE.get()}; see "
             "docs/compare.md for what high k says about the model",
             BayesziWarning, stacklevel=3)
     for note in est.notes:
         warnings.warn(f"model {label!r}: {note}", BayesziWarning, stacklevel=3)
 
 
-def loo(fitted: FitRecord, exact_refits: bool = False, k_threshold: float = K_BAD,
+@refusing_renamed
+def loo(fitted: FitRecord, exact_refits: bool = False, k_limit: float = K_LIMIT,
         max_refits: int = MAX_REFITS, refit_settings: Mapping[str, Any] | None = None,
         label: str | None = None) -> LooEstimate:
     """PSIS-LOO of one fit, with exact refits of the rows PSIS cannot handle on request.
@@ -379,10 +425,10 @@ def loo(fitted: FitRecord, exact_refits: bool = False, k_threshold: float = K_BA
     Parameters
     ----------
     fitted : a model from :func:`bayeszi.fit` (or :func:`bayeszi.load`).
-    exact_refits : refit the model without each row whose Pareto k exceeds ``k_threshold``
+    exact_refits : refit the model without each row whose Pareto k exceeds ``k_limit``
         and use the exact leave-one-out value for it (``arviz.reloo``); each refit is a full
         fit with the model's own sampler settings.
-    k_threshold : Pareto k above which a row's PSIS value is unreliable (0.7, Vehtari et al.
+    k_limit : Pareto k above which a row's PSIS value is unreliable (0.7, Vehtari et al.
         2024, JMLR).
     max_refits : refuse exact refits when more rows than this are flagged.
     refit_settings : sampler settings for the refits (e.g. ``{"draws": 500}``); the seed of
@@ -400,7 +446,7 @@ def loo(fitted: FitRecord, exact_refits: bool = False, k_threshold: float = K_BA
     """
     label = label or fitted.spec.family
     _check_refit_args(max_refits, refit_settings)
-    est = _psis(fitted, _check_threshold(k_threshold), label)
+    est = _psis(fitted, _check_threshold(k_limit), label)
     if exact_refits and est.flagged_rows:
         _check_refit_budget(est, max_refits, label)
         est = _refine(est, refit_settings)
@@ -490,38 +536,41 @@ def _sampler_flag(m: FitRecord) -> str:
     return ", ".join(out) if out else "ok"
 
 
-def compare(models: Mapping[str, FitRecord | LooEstimate], exact_refits: bool = False,
-            k_threshold: float = K_BAD, max_refits: int = MAX_REFITS,
+@refusing_renamed
+def rank_models(models: Mapping[str, FitRecord | LooEstimate], exact_refits: bool = False,
+            k_limit: float = K_LIMIT, max_refits: int = MAX_REFITS,
             refit_settings: Mapping[str, Any] | None = None) -> pd.DataFrame:
     """Rank models fitted to the same data by PSIS-LOO elpd (higher is better).
 
     Parameters
     ----------
     models : name -> fitted model (or a :class:`LooEstimate` already computed for one).
-    exact_refits, k_threshold, max_refits, refit_settings : as in :func:`loo`; the refit
+    exact_refits, k_limit, max_refits, refit_settings : as in :func:`loo`; the refit
         budget is checked for every model before any refit starts.
 
     Returns
     -------
-    DataFrame indexed by model name, best first, with columns ``rank`` (1 = best),
-    ``family``, ``elpd_loo``, ``se``, ``elpd_diff`` (this model minus the best, so 0 or
-    negative), ``diff_se`` (standard error of that difference, from the paired pointwise
-    values), ``diff_in_se`` (their ratio), ``p_loo``, ``weight`` (stacking weights, Yao et al.
-    2018, Bayesian Anal.), ``k_good`` / ``k_ok`` / ``k_bad`` (rows with PSIS Pareto k <= 0.5,
-    in (0.5, threshold], above threshold), ``bad_k_rows`` (their labels), ``exact_rows`` (how
-    many values come from exact refits), ``values`` (``"PSIS"`` or ``"PSIS + exact"``), and
-    ``sampler`` (``"ok"`` or the sampler trouble of that fit).
+    DataFrame indexed by model name, best first, with columns ``place`` (1 = best),
+    ``family``, ``LOO log score`` (elpd_loo, the expected log predictive density of a new
+    record, estimated by leaving each out) and its ``score se``, ``behind best`` (this model
+    minus the best, so 0 or negative), ``behind se`` (standard error of that difference, from
+    the paired pointwise values), ``behind in se`` (their ratio), ``effective parameters``
+    (p_loo), ``stacking weight`` (Yao et al. 2018, Bayesian Anal.), ``rows low k`` /
+    ``rows moderate k`` / ``rows high k`` (rows with PSIS Pareto k <= 0.5, in (0.5, limit],
+    above the limit), ``high-k rows`` (their labels), ``exact refits`` (how many values come
+    from exact refits), ``values from`` (``"PSIS"`` or ``"PSIS + exact"``), and ``sampler``
+    (``"ok"`` or the sampler trouble of that fit).
 
     Example
     -------
-    >>> table = compare({"poisson": m1, "zinb": m2})        # doctest: +SKIP
-    >>> table.loc["poisson", "diff_in_se"] < -2             # doctest: +SKIP
+    >>> table = rank_models({"poisson": m1, "zinb": m2})    # doctest: +SKIP
+    >>> table.loc["poisson", "behind in se"] < -2          # doctest: +SKIP
     """
     fits, given = _fits_of(models)
     check_same_data(fits)
-    k_threshold = _check_threshold(k_threshold)
-    ests = {name: g if (g := given.get(name)) is not None and g.k_threshold == k_threshold
-            else _psis(m, k_threshold, name) for name, m in fits.items()}
+    k_limit = _check_threshold(k_limit)
+    ests = {name: g if (g := given.get(name)) is not None and g.k_limit == k_limit
+            else _psis(m, k_limit, name) for name, m in fits.items()}
     if exact_refits:
         for name, est in ests.items():
             _check_refit_budget(est, max_refits, name)
@@ -540,11 +589,11 @@ def compare(models: Mapping[str, FitRecord | LooEstimate], exact_refits: bool = 
                               method="stacking", scale="log")
     order = list(az_table.index)
     best_i = ests[order[0]].pointwise["elpd_i"].to_numpy()
-    rows = [_ranked_row(name, rank, ests[name], best_i, name == order[0],
-                        float(az_table.loc[name, "weight"]), troubled[name], k_threshold)
-            for rank, name in enumerate(order, start=1)]
+    rows = [_ranked_row(name, place, ests[name], best_i, name == order[0],
+                        float(az_table.loc[name, "weight"]), troubled[name], k_limit)
+            for place, name in enumerate(order, start=1)]
     table = pd.DataFrame(rows).set_index("model")
-    table.attrs.update({"k_threshold": k_threshold, "n_rows": len(best_i), "scale": "log",
+    table.attrs.update({"k_limit": k_limit, "n_rows": len(best_i), "scale": "log",
                         "weights": "stacking"})
     return table
 
@@ -552,7 +601,7 @@ def compare(models: Mapping[str, FitRecord | LooEstimate], exact_refits: bool = 
 def _fits_of(models: object) -> tuple[dict[str, FitRecord], dict[str, LooEstimate]]:
     """The fits to compare by name, and the LOO estimates given for some of them."""
     if not isinstance(models, Mapping) or len(models) < 2:
-        raise BayesziError("compare() needs a dict of at least two named fits, e.g. "
+        raise BayesziError("rank_models() needs a dict of at least two named fits, e.g. "
                            "{'zip': fit_a, 'zinb': fit_b}; for one fit use fitted.loo()")
     fits: dict[str, FitRecord] = {}
     given: dict[str, LooEstimate] = {}
@@ -563,16 +612,16 @@ def _fits_of(models: object) -> tuple[dict[str, FitRecord], dict[str, LooEstimat
         elif isinstance(value, FitRecord):
             fits[str(name)] = value
         else:
-            raise BayesziError(f"compare(): {name!r} is a {type(value).__name__}, not a fitted "
+            raise BayesziError(f"rank_models(): {name!r} is a {type(value).__name__}, not a fitted "
                                "model; pass the results of bayeszi.fit")
     if len(fits) < len(models):
-        raise BayesziError("compare(): two models share a name once turned into text; rename")
+        raise BayesziError("rank_models(): two models share a name once turned into text; rename")
     return fits, given
 
 
-def _ranked_row(name: str, rank: int, est: LooEstimate, best_i: np.ndarray, is_best: bool,
-                weight: float, sampler: str, k_threshold: float) -> dict[str, Any]:
-    """One row of :func:`compare`: a model's LOO against the best model's pointwise values."""
+def _ranked_row(name: str, place: int, est: LooEstimate, best_i: np.ndarray, is_best: bool,
+                weight: float, sampler: str, k_limit: float) -> dict[str, Any]:
+    """One row of :func:`rank_models`: a model's LOO against the best model's pointwise values."""
     diff_i = est.pointwise["elpd_i"].to_numpy() - best_i
     diff = float(diff_i.sum())
     diff_se = float(np.sqrt(len(best_i) * np.var(diff_i)))
@@ -580,16 +629,20 @@ def _ranked_row(name: str, rank: int, est: LooEstimate, best_i: np.ndarray, is_b
     k = est.pointwise["pareto_k"].to_numpy()
     n_exact = len(est.exact_rows)
     return {
-        "model": name, "rank": rank, "family": est.fitted.spec.family,
-        "elpd_loo": est.elpd, "se": est.se, "elpd_diff": diff, "diff_se": diff_se,
-        "diff_in_se": diff / diff_se if not is_best and diff_se > 0 else np.nan,
-        "p_loo": est.p_loo, "weight": weight,
-        "k_good": counts["good"], "k_ok": counts["ok"], "k_bad": counts["bad"],
-        "bad_k_rows": _labels(list(est.pointwise.index[k > k_threshold])),
-        "exact_rows": n_exact, "values": "PSIS + exact" if n_exact else PSIS,
-        "sampler": sampler,
+        "model": name, PLACE: place, "family": est.fitted.spec.family,
+        SCORE: est.elpd, SCORE_SE: est.se, BEHIND: diff, BEHIND_SE: diff_se,
+        BEHIND_IN_SE: diff / diff_se if not is_best and diff_se > 0 else np.nan,
+        EFFECTIVE: est.p_loo, WEIGHT: weight,
+        K_LOW: counts["low"], K_MODERATE: counts["moderate"], K_HIGH: counts["high"],
+        HIGH_K_ROWS: _labels(list(est.pointwise.index[k > k_limit])),
+        EXACT_ROWS: n_exact, VALUES: "PSIS + exact" if n_exact else PSIS,
+        SAMPLER: sampler,
     }
 
 
-__all__ = ["K_BAD", "K_GOOD", "LooEstimate", "RefitWrapper", "check_same_data", "compare",
-           "loo"]
+HEADINGS = (PLACE, "family", SCORE, SCORE_SE, BEHIND, BEHIND_SE, BEHIND_IN_SE, EFFECTIVE, WEIGHT,
+            K_LOW, K_MODERATE, K_HIGH, HIGH_K_ROWS, EXACT_ROWS, VALUES, SAMPLER)
+
+
+__all__ = ["HEADINGS", "K_LIMIT", "K_LOW_LIMIT", "LooEstimate", "RefitWrapper",
+           "check_same_data", "loo", "rank_models", "refit_advice"]

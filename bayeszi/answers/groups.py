@@ -135,8 +135,8 @@ def group_effects(fitted: FitRecord, interval: float = 0.9, part: str | None = N
     term as written). Columns: ``records`` (of the level in the fitted data), posterior
     ``mean``, ``sd``, the central ``interval`` bounds, ``exp scale`` (what the exp columns
     mean), ``exp(mean)`` (posterior mean of the exp) and exp bounds, ``pooling`` (about 1:
-    pulled to the typical level; about 0: the level's own data decide), ``r_hat``,
-    ``ess_bulk``, ``ess_tail`` and ``flag``.
+    pulled to the typical level; about 0: the level's own data decide), ``R-hat``,
+    ``bulk ESS``, ``tail ESS`` and ``flag``.
 
     Example
     -------
@@ -162,12 +162,12 @@ def group_effects(fitted: FitRecord, interval: float = 0.9, part: str | None = N
             f"exp {lo_name}": np.exp(lo), f"exp {hi_name}": np.exp(hi),
             "pooling": level_pooling(draws, sd),
         })
-        stats = table.reindex(keys)[["r_hat", "ess_bulk", "ess_tail"]].to_numpy()
-        frame[["r_hat", "ess_bulk", "ess_tail"]] = stats
+        stats = table.reindex(keys)[list(names.DIAGNOSTIC_COLUMNS)].to_numpy()
+        frame[list(names.DIAGNOSTIC_COLUMNS)] = stats
         frames.append(frame)
     out = pd.concat(frames, ignore_index=True)
     flags = []
-    for r, eb, et in out[["r_hat", "ess_bulk", "ess_tail"]].itertuples(index=False):
+    for r, eb, et in out[list(names.DIAGNOSTIC_COLUMNS)].itertuples(index=False):
         f = []
         if np.isfinite(r) and r > th.rhat:
             f.append("R-hat")

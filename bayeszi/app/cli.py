@@ -26,6 +26,7 @@ from collections.abc import Sequence
 from typing import Any, NoReturn
 
 from bayeszi.base.errors import BayesziError
+from bayeszi.base.renamed import refuse_renamed_flags
 
 __all__ = ["build_parser", "main"]
 
@@ -63,7 +64,8 @@ def _command_line(argv: Sequence[str]) -> str:
 
 # ---------------------------------------------------------------------- subcommands
 def _overrides(args: argparse.Namespace) -> dict[str, Any]:
-    return {"draws": args.draws, "tune": args.tune, "chains": args.chains, "cores": args.cores}
+    return {"draws": args.draws, "warmup_steps": args.warmup_steps, "chains": args.chains,
+            "cores": args.cores}
 
 
 def _run(args: argparse.Namespace) -> int:
@@ -72,7 +74,7 @@ def _run(args: argparse.Namespace) -> int:
 
     study = load_study(args.study).with_sampler(**_overrides(args))
     dest = run_study(study, args.out, command=args.command_line, progress=args.console,
-                     save_fits=args.save_fits)
+                     save_fits=args.save_fits, exact_refits=args.exact_refits or None)
     print(os.path.join(dest, "report.html"))
     return 0
 
@@ -107,8 +109,8 @@ def _fit(args: argparse.Namespace) -> int:
     data = read_table(args.data)
     spec = make_spec(args.counts, args.zeros, args.family, exposure=args.exposure,
                      offset=args.offset, groups=args.groups or None, draws=args.draws,
-                     tune=args.tune, chains=args.chains, cores=args.cores,
-                     target_accept=args.target_accept, seed=args.seed)
+                     warmup_steps=args.warmup_steps, chains=args.chains, cores=args.cores,
+                     acceptance_target=args.acceptance_target, seed=args.seed)
     name = args.name or spec.family
     checked = check_candidates(data, [Candidate(name, spec)], noun="model")  # before sampling
     args.console(f"fitting {spec.family} to {len(data)} records of {args.data} ...")
@@ -163,7 +165,9 @@ def _report(args: argparse.Namespace) -> int:
 
     interval_bounds(args.interval, name="--interval")
     dest = report_saved(args.saved, args.out, command=args.command_line, title=args.title,
-                        interval=args.interval, progress=args.console)
+                        interval=args.interval, progress=args.console,
+                        exact_refits=args.exact_refits,
+                        residuals_against=args.residuals_against)
     print(os.path.join(dest, "report.html"))
     return 0
 
@@ -171,15 +175,16 @@ def _report(args: argparse.Namespace) -> int:
 # ---------------------------------------------------------------------- parser
 def _sampler_flags(p: argparse.ArgumentParser, defaults: bool) -> None:
     note = "" if defaults else " (default: as the study file says)"
-    p.add_argument("--draws", type=int, default=1000 if defaults else None,
+    p.add_argument("--draws", type=int, metavar="N", default=1000 if defaults else None,
                    help="posterior draws per chain" + (" (default: %(default)s)" if defaults
                                                        else note))
-    p.add_argument("--tune", type=int, default=1000 if defaults else None,
-                   help="tuning steps per chain" + (" (default: %(default)s)" if defaults
-                                                    else note))
-    p.add_argument("--chains", type=int, default=2 if defaults else None,
+    p.add_argument("--warmup-steps", type=int, metavar="N",
+                   default=1000 if defaults else None,
+                   help="warm-up (adaptation) steps per chain"
+                   + (" (default: %(default)s)" if defaults else note))
+    p.add_argument("--chains", type=int, metavar="N", default=2 if defaults else None,
                    help="chains" + (" (default: %(default)s)" if defaults else note))
-    p.add_argument("--cores", type=int, default=None,
+    p.add_argument("--cores", type=int, metavar="N", default=None,
                    help="cores to run chains on (default: one per chain, up to the machine's)")
 
 
@@ -245,8 +250,9 @@ def _add_fit(sub: Any) -> None:
     f.add_argument("--offset", metavar="COLUMN", help="a ready-made log-offset column")
     f.add_argument("--groups", nargs="+", metavar="COLUMN", help="grouping column(s)")
     _sampler_flags(f, defaults=True)
-    f.add_argument("--target-accept", type=float, default=0.9,
-                   help="NUTS target acceptance (default: %(default)s)")
+    f.add_argument("--acceptance-target", type=float, default=0.9, metavar="P",
+                   help="the acceptance rate the warm-up tunes the step size to, in [0.5, 1); "
+                        "raise toward 0.99 after divergences (default: %(default)s)")
     f.add_argument("--seed", type=int, default=None, help="random seed")
     f.add_argument("--name", default=None, help="the model's name in later reports "
                    "(default: the family)")
@@ -289,6 +295,12 @@ def _add_report(sub: Any) -> None:
     rp.add_argument("--title", default=None, help="the report's title")
     rp.add_argument("--interval", type=float, default=0.9,
                     help="central interval in the tables (default: %(default)s)")
+    rp.add_argument("--exact-refits", action="store_true",
+                    help="refit each model without every record whose Pareto k is above 0.7 "
+                    "and use the exact leave-one-out value (each refit is a full fit)")
+    rp.add_argument("--residuals-against", default=None, metavar="COLUMN",
+                    help="bin the residuals by this column of the fitted data in the residual "
+                    "figure (default: the log of the expected count)")
     rp.add_argument("--quiet", action="store_true", help="no progress messages")
     rp.set_defaults(func=_report)
 
@@ -297,12 +309,20 @@ def _common_run_flags(p: argparse.ArgumentParser) -> None:
     _sampler_flags(p, defaults=False)
     p.add_argument("--save-fits", action="store_true",
                    help="also save every fit under DIR/fits/ (for predict and report)")
+    p.add_argument("--exact-refits", action="store_true",
+                   help="refit each model without every record whose Pareto k is above 0.7 "
+                   "and use the exact leave-one-out value (each refit is a full fit)")
     p.add_argument("--quiet", action="store_true", help="no progress messages")
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit code."""
     argv = list(sys.argv[1:] if argv is None else argv)
+    try:
+        refuse_renamed_flags(argv)
+    except BayesziError as err:
+        print(f"bayeszi: error: {err}", file=sys.stderr)
+        return 2
     try:
         parser = build_parser()
         args = parser.parse_args(argv)

@@ -35,17 +35,19 @@ import pandas as pd
 
 from bayeszi.base.errors import BayesziError
 from bayeszi.base.options import GROUP_MODES, check_group_mode
+from bayeszi.base.renamed import refuse_renamed
 from bayeszi.base.spec import ModelSpec, SamplerSettings
 from bayeszi.fitting.candidates import Candidate, CheckedCandidates, check_candidates
 
 # Allowed keys, per table. Kept here so that the error messages and docs/study-file.md agree.
 TOP_KEYS = ("study", "sampler", "model", "scenario", "contrast")
 STUDY_KEYS = ("title", "summary", "data", "response", "exposure", "offset", "exposure_unit",
-              "groups", "nested", "seed", "interval", "preferred", "predictions")
-SAMPLER_KEYS = ("draws", "tune", "chains", "cores", "target_accept", "sampler")
+              "groups", "nested", "seed", "interval", "preferred", "predictions",
+              "exact_refits", "residuals_against")
+SAMPLER_KEYS = ("draws", "warmup_steps", "chains", "cores", "acceptance_target", "sampler")
 MODEL_KEYS = ("name", "family", "counts", "zeros", "groups", "varying", "nested",
               "correlated", "priors", "sampler")
-MODEL_SAMPLER_KEYS = ("draws", "tune", "target_accept")
+MODEL_SAMPLER_KEYS = ("draws", "warmup_steps", "acceptance_target")
 SCENARIO_KEYS = ("name", "values", "vary", "groups")
 CONTRAST_KEYS = ("name", "scenario", "change")
 #: values of ``predictions`` in [study]: every model's scenario predictions (the default),
@@ -66,6 +68,7 @@ def _strict(table: Any, known: tuple[str, ...], where: str) -> dict[str, Any]:
     """Refuse a non-table or any key not in ``known``, naming it and listing the known ones."""
     if not isinstance(table, Mapping):
         raise BayesziError(f"{where} must be a table of settings, got {type(table).__name__}")
+    refuse_renamed(table, where)
     for key in table:
         if key not in known:
             near = difflib.get_close_matches(str(key), known, n=1)
@@ -158,6 +161,8 @@ class Study:
     interval: float = 0.9
     preferred: str | None = None
     predictions: str = "models"
+    exact_refits: bool = False
+    residuals_against: str | None = None
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
     scenarios: tuple[Scenario, ...] = ()
     contrasts: tuple[Contrast, ...] = ()
@@ -216,6 +221,7 @@ class Study:
                 f"{os.path.basename(self.data_path)}; columns: {list(map(str, data.columns))[:20]}."
                 f"{hint}"
             )
+        self._check_residuals_against(data)
         checked = check_candidates(data, self.candidates, noun="model")
         designs = checked.designs
         used = sorted({c for d in designs.values() for c in d.used_columns} - {self.response})
@@ -234,6 +240,16 @@ class Study:
                 self._check_rows(f"{ct.scenario}' changed by contrast '{ct.name}", rows, d,
                                  s.groups, name)
         return checked
+
+    def _check_residuals_against(self, data: pd.DataFrame) -> None:
+        col = self.residuals_against
+        if col is not None and col not in data.columns:
+            near = difflib.get_close_matches(col, [str(c) for c in data.columns], n=1)
+            hint = f" (did you mean {near[0]!r}?)" if near else ""
+            raise BayesziError(
+                f"'residuals_against' in [study] names {col!r}{hint}, which is not a column of "
+                f"{os.path.basename(self.data_path)}; columns available: "
+                f"{list(map(str, data.columns))}")
 
     @staticmethod
     def _check_rows(label: str, rows: pd.DataFrame, design: Any, groups: str, model: str
@@ -379,9 +395,18 @@ def parse_study(raw: Mapping[str, Any], path: str) -> Study:
         exposure=exposure, offset=offset,
         exposure_unit=_text(st.get("exposure_unit"), "exposure_unit", "[study]"),
         groups=groups, seed=seed, interval=float(interval), preferred=preferred,
-        predictions=_predictions(st), sampler=sampler, scenarios=tuple(scenarios),
-        contrasts=tuple(contrasts),
+        predictions=_predictions(st), exact_refits=_flag(st, "exact_refits"),
+        residuals_against=_text(st.get("residuals_against"), "residuals_against", "[study]"),
+        sampler=sampler, scenarios=tuple(scenarios), contrasts=tuple(contrasts),
     )
+
+
+def _flag(st: Mapping[str, Any], key: str) -> bool:
+    """A true/false key of [study] (false when absent)."""
+    value = st.get(key, False)
+    if not isinstance(value, bool):
+        raise BayesziError(f"'{key}' in [study] must be true or false, got {value!r}")
+    return value
 
 
 def _predictions(st: Mapping[str, Any]) -> str:

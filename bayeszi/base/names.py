@@ -208,6 +208,30 @@ def corr_raw(group: str) -> str:
     return f"z_corr_{group}"
 
 
+# ---------------------------------------------------------------- what a reader sees
+#: Sampler-diagnostic headings, spelled as the trade writes them (Vehtari, Gelman, Simpson,
+#: Carpenter & Buerkner 2021, Bayesian Anal.: rank-normalized R-hat, bulk-ESS, tail-ESS).
+RHAT = "R-hat"
+BULK_ESS = "bulk ESS"
+TAIL_ESS = "tail ESS"
+DIAGNOSTIC_COLUMNS: tuple[str, str, str] = (RHAT, BULK_ESS, TAIL_ESS)
+
+
+def group_sd_label(group: str) -> str:
+    """The table label of a group's intercept sd, e.g. ``reach effects: sd``."""
+    return f"{group} effects: sd"
+
+
+def slope_sd_label(group: str, term: str) -> str:
+    """The table label of the sd of a group's slopes on ``term``."""
+    return f"{group} effects: sd of {term} slopes"
+
+
+def corr_label(group: str) -> str:
+    """The table label of the correlation of a group's counts and zeros intercepts."""
+    return f"{group} effects: counts-zeros correlation"
+
+
 DISPERSION = "dispersion"
 """The negative binomial's overdispersion alpha."""
 

@@ -26,6 +26,7 @@ import numpy as np
 
 from bayeszi.base import names
 from bayeszi.base.errors import BayesziError
+from bayeszi.base.renamed import refuse_renamed, translate_saved
 
 PARTS = ("counts", "zeros")
 
@@ -35,19 +36,19 @@ class SamplerSettings:
     """NUTS settings. ``cores=None`` uses as many cores as chains (up to the machine's)."""
 
     draws: int = 1000
-    tune: int = 1000
+    warmup_steps: int = 1000
     chains: int = 2
     cores: int | None = None
-    target_accept: float = 0.9
+    acceptance_target: float = 0.9
     seed: int | None = None
     progressbar: bool | None = None
     sampler: str = "auto"
 
     def __post_init__(self) -> None:
-        for name in ("draws", "tune", "chains"):
+        for name in ("draws", "warmup_steps", "chains"):
             value = getattr(self, name)
             if not _is_whole(value) or value < 1:
-                example = {"draws": 1000, "tune": 1000, "chains": 2}[name]
+                example = {"draws": 1000, "warmup_steps": 1000, "chains": 2}[name]
                 raise BayesziError(
                     f"setting '{name}' must be a positive whole number, got {value!r}; "
                     f"for example {name}={example}"
@@ -58,14 +59,14 @@ class SamplerSettings:
                 raise BayesziError(f"setting 'cores' must be a positive whole number or None, "
                                    f"got {self.cores!r}")
             object.__setattr__(self, "cores", int(self.cores))
-        ta = self.target_accept
+        ta = self.acceptance_target
         if isinstance(ta, (bool, np.bool_)) or not isinstance(ta, (int, float, np.number)) \
                 or not 0.5 <= float(ta) < 1.0:
             raise BayesziError(
-                f"setting 'target_accept' must lie in [0.5, 1), got {ta!r}; 0.9 is the default, "
-                "raise it toward 0.99 if there are divergences"
+                f"setting 'acceptance_target' must lie in [0.5, 1), got {ta!r}; 0.9 is the "
+                "default, raise it toward 0.99 if there are divergences"
             )
-        object.__setattr__(self, "target_accept", float(ta))
+        object.__setattr__(self, "acceptance_target", float(ta))
         if self.seed is not None:
             if not _is_whole(self.seed) or self.seed < 0:
                 raise BayesziError(f"setting 'seed' must be a non-negative whole number or None, "
@@ -88,6 +89,7 @@ class SamplerSettings:
             return d
         if not isinstance(d, Mapping):
             raise BayesziError(f"{where} must be a mapping like {{'draws': 1000}}, got {d!r}")
+        refuse_renamed(d, where)
         known = {f.name for f in dataclasses.fields(cls)}
         bad = sorted(str(k) for k in set(d) - known)
         if bad:
@@ -255,7 +257,9 @@ class ModelSpec:
             raise BayesziError(f"unknown model setting(s) {unknown}; known: {sorted(known)}")
         d = dict(d)
         if "sampler" in d and d["sampler"] is not None:
-            d["sampler"] = SamplerSettings.from_mapping(d["sampler"])
+            raw = d["sampler"]
+            d["sampler"] = SamplerSettings.from_mapping(
+                translate_saved(raw) if isinstance(raw, Mapping) else raw)
         return cls(**d)
 
 

@@ -4,7 +4,7 @@
 data against every candidate before any sampling starts (so a problem in the data, e.g. no
 zeros for a hurdle family, is reported at once and each data warning is shown once, not once
 per candidate), then fits the candidates one after the other behind a single progress
-display. The result is a dict ``name -> FittedModel`` ready for :func:`bayeszi.compare`.
+display. The result is a dict ``name -> FittedModel`` ready for :func:`bayeszi.rank_models`.
 
 The steps are public and shared with the study runner and the command line, so there is one
 of each: :class:`Candidate` (a name and a spec), :func:`check_candidates` (the pre-sampling
@@ -23,7 +23,7 @@ Example
 ...                          exposure="trap_nights", groups="reach", seed=1)  # doctest: +SKIP
 >>> list(fits)                                                               # doctest: +SKIP
 ['poisson', 'negbin', 'zip ~ 1', 'zip ~ barrier', 'zinb ~ 1', 'zinb ~ barrier']
->>> bz.compare(fits)                                                         # doctest: +SKIP
+>>> bz.rank_models(fits)                                                         # doctest: +SKIP
 """
 
 from __future__ import annotations
@@ -38,6 +38,7 @@ from typing import IO, Any, Protocol
 import pandas as pd
 
 from bayeszi.base.errors import BayesziError, BayesziWarning
+from bayeszi.base.renamed import refusing_renamed
 from bayeszi.base.spec import ModelSpec
 from bayeszi.families import FAMILY_NAMES, get_family
 from bayeszi.fitting import api
@@ -340,6 +341,7 @@ def _show(caught: Sequence[warnings.WarningMessage], who: str, shown: set[str]) 
     return mine
 
 
+@refusing_renamed
 def fit_candidates(data: pd.DataFrame, counts: str,
                    families: str | Sequence[str] = FAMILY_NAMES,
                    zeros: str | Sequence[str] | Mapping[str, str] | None = "~ 1",
@@ -348,8 +350,8 @@ def fit_candidates(data: pd.DataFrame, counts: str,
                    varying: Mapping[str, Sequence[str]] | None = None,
                    nested: Mapping[str, str] | None = None, correlated: bool = False,
                    priors: Mapping[str, Any] | None = None, draws: int = 1000,
-                   tune: int = 1000, chains: int = 2, cores: int | None = None,
-                   target_accept: float = 0.9, seed: int | None = None,
+                   warmup_steps: int = 1000, chains: int = 2, cores: int | None = None,
+                   acceptance_target: float = 0.9, seed: int | None = None,
                    progressbar: bool | None = None, sampler: str = "auto"
                    ) -> dict[str, FittedModel]:
     """Fit every family in ``families`` with every zeros formula in ``zeros`` to ``data``.
@@ -361,7 +363,7 @@ def fit_candidates(data: pd.DataFrame, counts: str,
     families : family names (default: all six).
     zeros : one zeros formula, a list of them, or a dict label -> formula (labels name the
         candidates). Families without a zeros part are fitted once.
-    draws, tune, chains, cores, target_accept, seed, sampler : NUTS settings for every
+    draws, warmup_steps, chains, cores, acceptance_target, seed, sampler : NUTS settings for every
         candidate (each gets the same seed).
     progressbar : one progress display for the whole set (default: when stderr is a
         terminal); the per-fit sampler bars are off.
@@ -381,8 +383,9 @@ def fit_candidates(data: pd.DataFrame, counts: str,
     data = check_frame(data)
     cands = candidate_specs(counts, families, zeros, exposure=exposure, offset=offset,
                             groups=groups, varying=varying, nested=nested,
-                            correlated=correlated, priors=priors, draws=draws, tune=tune,
-                            chains=chains, cores=cores, target_accept=target_accept, seed=seed,
+                            correlated=correlated, priors=priors, draws=draws,
+                            warmup_steps=warmup_steps, chains=chains, cores=cores,
+                            acceptance_target=acceptance_target, seed=seed,
                             progressbar=False, sampler=sampler)
     checked = check_candidates(data, cands)
     show = sys.stderr.isatty() if progressbar is None else bool(progressbar)

@@ -21,6 +21,7 @@ from bayeszi.answers import contrast as contrast_answers
 from bayeszi.answers import groups as group_answers
 from bayeszi.answers import predict as predict_answers
 from bayeszi.base import names, options
+from bayeszi.base.renamed import refusing_renamed
 from bayeszi.engine import archive
 from bayeszi.engine.record import FitRecord
 from bayeszi.families import get_family
@@ -156,19 +157,22 @@ class FittedModel(FitRecord):
                                                  seed=seed))
 
     def count_frequencies(self, kmax: int | None = None, interval: float = 0.9,
-                          draws: int | None = None) -> pd.DataFrame:
+                          draws: int | None = None, seed: options.Seed = 0) -> pd.DataFrame:
         """Observed against expected number of records with each count 0..K and K+1 or more.
 
-        See :func:`bayeszi.answers.checks.count_frequencies`.
+        With the posterior interval of the expected number and the interval of the number
+        in replicated data sets (seeded by ``seed``). See
+        :func:`bayeszi.answers.checks.count_frequencies`.
 
         Example
         -------
         >>> m.count_frequencies().loc["0", ["observed", "expected"]]   # doctest: +SKIP
         """
-        return check_answers.count_frequencies(self, kmax=kmax, interval=interval, draws=draws)
+        return check_answers.count_frequencies(self, kmax=kmax, interval=interval, draws=draws,
+                                               seed=seed)
 
     def rootogram(self, kmax: int | None = None, interval: float = 0.9,
-                  draws: int | None = None, ax: Any = None):
+                  draws: int | None = None, ax: Any = None, seed: options.Seed = 0):
         """Hanging rootogram (Tukey 1977) of :meth:`count_frequencies`, as a Figure.
 
         Example
@@ -176,7 +180,7 @@ class FittedModel(FitRecord):
         >>> m.rootogram().savefig("rootogram.png")                # doctest: +SKIP
         """
         return checkplots.rootogram_figure(self.count_frequencies(kmax=kmax, interval=interval,
-                                                       draws=draws), ax=ax)
+                                                                  draws=draws, seed=seed), ax=ax)
 
     def dispersion_check(self, interval: float = 0.9, draws: int | None = None,
                          seed: options.Seed = 0) -> pd.DataFrame:
@@ -235,14 +239,22 @@ class FittedModel(FitRecord):
         return check_answers.residuals(self, method=method, seed=seed, draws=draws)
 
     def residual_plots(self, method: str = "posterior", seed: options.Seed = 0,
-                       draws: int | None = None):
-        """Figure: QQ plot and residual-versus-expected plot of :meth:`residuals`.
+                       draws: int | None = None, against: Any = None,
+                       bins: int | None = None):
+        """Figure of :meth:`residuals`: their PIT values against the uniform, and their mean
+        in bins of ``against``.
+
+        ``against`` is a column of the fitted data (or a Series of the fitted frame; default:
+        the log of the expected count); ``bins`` the number of equal-count bins (default:
+        about 30 records each, at most 20). See
+        :func:`bayeszi.plots.checkplots.residual_figure`.
 
         Example
         -------
-        >>> m.residual_plots().savefig("residuals.png")           # doctest: +SKIP
+        >>> m.residual_plots(against="depth").savefig("residuals.png")   # doctest: +SKIP
         """
-        return checkplots.residual_figure(self.residuals(method=method, seed=seed, draws=draws))
+        res = self.residuals(method=method, seed=seed, draws=draws)
+        return checkplots.residual_figure(res, against=against, data=self.data, bins=bins)
 
     def zero_sources(self, by: str | list | pd.Series | None = None, interval: float = 0.9,
                      draws: int | None = None) -> pd.DataFrame:
@@ -257,12 +269,13 @@ class FittedModel(FitRecord):
         """
         return check_answers.zero_sources(self, by=by, interval=interval, draws=draws)
 
-    # ------------------------------------------------------------------ LOO (compare.py)
-    def loo(self, exact_refits: bool = False, k_threshold: float = 0.7, max_refits: int = 20,
+    # ------------------------------------------------------------------ LOO (comparison.py)
+    @refusing_renamed
+    def loo(self, exact_refits: bool = False, k_limit: float = 0.7, max_refits: int = 20,
             refit_settings: dict[str, Any] | None = None) -> Any:
         """Expected log predictive density by PSIS-LOO, with each row's Pareto k.
 
-        Rows with k above ``k_threshold`` (0.7, Vehtari et al. 2024) are named in a warning;
+        Rows with k above ``k_limit`` (0.7, Vehtari et al. 2024) are named in a warning;
         ``exact_refits=True`` refits the model without each of them (at most ``max_refits``)
         and uses the exact leave-one-out value. Returns a
         :class:`bayeszi.answers.comparison.LooEstimate` (``.elpd``, ``.se``, ``.p_loo``,
@@ -273,8 +286,8 @@ class FittedModel(FitRecord):
         >>> est = fitted.loo()                                   # doctest: +SKIP
         >>> round(est.elpd), est.k_counts()                      # doctest: +SKIP
         """
-        return loo_answers.loo(self, exact_refits=exact_refits, k_threshold=k_threshold,
-                   max_refits=max_refits, refit_settings=refit_settings)
+        return loo_answers.loo(self, exact_refits=exact_refits, k_limit=k_limit,
+                               max_refits=max_refits, refit_settings=refit_settings)
 
     # ------------------------------------------------------------------ predictions
     def predict(self, data: pd.DataFrame | None = None, what: str | list[str] = "mean",
@@ -379,7 +392,7 @@ class _RowAdder:
             row["exp(mean)"] = float(e.mean())
             row[f"exp {lo_name}"], row[f"exp {hi_name}"] = np.exp([lo, hi])
         if key in self.diag.index:
-            row.update(self.diag.loc[key, ["r_hat", "ess_bulk", "ess_tail"]].to_dict())
+            row.update(self.diag.loc[key, list(names.DIAGNOSTIC_COLUMNS)].to_dict())
         self.rows.append(row)
 
 
@@ -389,25 +402,25 @@ def _group_rows(m: FitRecord, add: _RowAdder, group: str) -> None:
     for part in names.PARTS:
         name = names.group_sd(part, group)
         if name in post:
-            add(part, f"sd({group})", post[name].values, name, None)
+            add(part, names.group_sd_label(group), post[name].values, name, None)
         sname = names.slope_sd(part, group)
         if sname in post:
             pdes = m.design.counts if part == "counts" else m.design.zeros
             for t in m.spec.varying.get(part, ()):
                 j = pdes.terms.index(t)
                 v = post[sname].sel({names.slope_term_dim(part): t}).values / pdes.scale[j]
-                add(part, f"sd({group}: {t})", v, names.summary_key(sname, t), None)
+                add(part, names.slope_sd_label(group, t), v, names.summary_key(sname, t), None)
     if names.corr(group) in post:
-        add("both", f"corr({group})", post[names.corr(group)].values, names.corr(group),
-            None)
+        add("both", names.corr_label(group), post[names.corr(group)].values,
+            names.corr(group), None)
 
 
 def _flag_for(row: dict, th: Any) -> str:
     out = []
-    r = row.get("r_hat")
+    r = row.get(names.RHAT)
     if r is not None and np.isfinite(r) and r > th.rhat:
         out.append("R-hat")
-    eb, et = row.get("ess_bulk"), row.get("ess_tail")
+    eb, et = row.get(names.BULK_ESS), row.get(names.TAIL_ESS)
     if eb is not None and np.isfinite(eb) and (eb < th.ess or et < th.ess):
         out.append("low ESS")
     return " ".join(out)
@@ -433,7 +446,7 @@ def format_fit(m: FittedModel) -> str:
     table = m.coefficients()
     with pd.option_context("display.width", 140, "display.max_columns", 20,
                            "display.float_format", lambda v: f"{v:.3g}"):
-        shown = table.drop(columns=["ess_tail"], errors="ignore")
+        shown = table.drop(columns=[names.TAIL_ESS], errors="ignore")
         lines.append("")
         lines.append(shown.to_string(na_rep=""))
     probs = m.sampler_problems()

@@ -50,7 +50,7 @@ def parameter_names(idata: az.InferenceData) -> list[str]:
 class Diagnostics:
     """The sampler diagnostics of one fit.
 
-    ``table`` has one row per parameter (``r_hat``, ``ess_bulk``, ``ess_tail``);
+    ``table`` has one row per parameter (``R-hat``, ``bulk ESS``, ``tail ESS``);
     ``bad_rhat`` and ``bad_ess`` name the parameters past the :class:`Thresholds`.
 
     Example
@@ -80,14 +80,14 @@ class Diagnostics:
             out.append(
                 f"{self.divergences} divergent transition(s) out of {self.draws} draws: the "
                 "sampler met curvature it could not follow, so the draws may be biased. Try "
-                "target_accept=0.95 or 0.99; if they persist, tighter priors on group sds or "
-                "the dispersion, or a simpler zeros formula"
+                "acceptance_target=0.95 or 0.99; if they persist, tighter priors on group sds "
+                "or the dispersion, or a simpler zeros formula"
             )
         if self.bad_rhat:
             out.append(
                 f"R-hat above {th.rhat} for {_short(self.bad_rhat)}: the chains disagree. Run "
-                "more tune and draws (e.g. tune=2000, draws=2000) and check the model is "
-                "identified"
+                "more warm-up steps and draws (e.g. warmup_steps=2000, draws=2000) and check the "
+                "model is identified"
             )
         if self.bad_ess:
             out.append(
@@ -115,17 +115,19 @@ def diagnose(idata: az.InferenceData, thresholds: Thresholds | None = None) -> D
         summ = az.summary(idata, var_names=names, kind="diagnostics", round_to="none")
     finally:
         log.setLevel(level)
-    summ = summ[["r_hat", "ess_bulk", "ess_tail"]].copy()
+    summ = summ[["r_hat", "ess_bulk", "ess_tail"]].set_axis(
+        list(var_names.DIAGNOSTIC_COLUMNS), axis=1)
     if chains < 2:
-        summ["r_hat"] = np.nan
+        summ[var_names.RHAT] = np.nan
     tree = idata.sample_stats.get("reached_max_treedepth")
     return Diagnostics(
         table=summ,
         divergences=int(np.asarray(idata.sample_stats["diverging"]).sum()),
         draws=int(idata.posterior.sizes["chain"] * idata.posterior.sizes["draw"]),
         chains=chains,
-        bad_rhat=summ.index[summ["r_hat"] > th.rhat].tolist(),
-        bad_ess=summ.index[(summ["ess_bulk"] < th.ess) | (summ["ess_tail"] < th.ess)].tolist(),
+        bad_rhat=summ.index[summ[var_names.RHAT] > th.rhat].tolist(),
+        bad_ess=summ.index[(summ[var_names.BULK_ESS] < th.ess)
+                           | (summ[var_names.TAIL_ESS] < th.ess)].tolist(),
         max_treedepth_hits=int(np.asarray(tree).sum()) if tree is not None else 0,
         thresholds=th,
     )

@@ -31,7 +31,7 @@ def _cores(settings: SamplerSettings) -> int:
     return max(1, min(settings.chains, os.cpu_count() or 1))
 
 
-#: ``sampler="auto"`` uses nutpie (when installed) once a fit's work, patterns x (tune +
+#: ``sampler="auto"`` uses nutpie (when installed) once a fit's work, patterns x (warm-up steps +
 #: draws) x chains, reaches this; below it PyMC's NUTS finishes first, because numba's
 #: compile (about 15 s) takes longer than PyTensor's C compile. Measured
 #: (docs/performance.md): nutpie lost at 2.4e5 (400 records x 300 iterations x 2 chains,
@@ -84,8 +84,9 @@ def choose_sampler(requested: str, work: float | None = None) -> str:
 
 
 def fit_work(rows: int, settings: SamplerSettings) -> float:
-    """Patterns (or records) x (tune + draws) x chains: what :func:`choose_sampler` weighs."""
-    return float(rows) * (settings.tune + settings.draws) * settings.chains
+    """Patterns (or records) x (warm-up steps + draws) x chains: what :func:`choose_sampler`
+    weighs."""
+    return float(rows) * (settings.warmup_steps + settings.draws) * settings.chains
 
 
 def _quiet_pymc():
@@ -114,10 +115,10 @@ def _sample_pymc(model: pm.Model, settings: SamplerSettings, progress: bool
     with model, _quiet_pymc():
         return pm.sample(
             draws=settings.draws,
-            tune=settings.tune,
+            tune=settings.warmup_steps,
             chains=settings.chains,
             cores=_cores(settings),
-            target_accept=settings.target_accept,
+            target_accept=settings.acceptance_target,
             random_seed=settings.seed,
             progressbar=progress,
             idata_kwargs={"log_likelihood": False},
@@ -133,9 +134,9 @@ def _sample_nutpie(model: pm.Model, settings: SamplerSettings, progress: bool
         warnings.simplefilter("ignore")  # numba's cache notes
         compiled = nutpie.compile_pymc_model(model)
         idata = nutpie.sample(
-            compiled, draws=settings.draws, tune=settings.tune, chains=settings.chains,
+            compiled, draws=settings.draws, tune=settings.warmup_steps, chains=settings.chains,
             cores=_cores(settings), seed=settings.seed, progress_bar=progress,
-            save_warmup=False, target_accept=settings.target_accept,
+            save_warmup=False, target_accept=settings.acceptance_target,
         )
     if idata.posterior.sizes.get("draw", 0) < settings.draws:
         # nutpie returns what it has when interrupted; a fit keeps all draws or none

@@ -28,7 +28,7 @@ import bayeszi as bz
 from bayeszi.data import load_crayfish
 
 SEED = 20261202
-SETTINGS = dict(draws=500, tune=500, chains=2, cores=1, seed=SEED, progressbar=False)
+SETTINGS = dict(draws=500, warmup_steps=500, chains=2, cores=1, seed=SEED, progressbar=False)
 COUNTS = "crayfish ~ water_temp + substrate + depth + canopy"
 TERM = "water_temp"
 
@@ -78,8 +78,9 @@ def main() -> None:
     print(f"sd of the {TERM} coefficient: Poisson {sd_pois:.4f}, "
           f"Poisson x sqrt(phi) {sd_pois * np.sqrt(phi):.4f}, negative binomial {sd_nb:.4f}\n")
 
-    table = bz.compare(fits)
-    print(table[["elpd_loo", "se", "elpd_diff", "diff_se", "p_loo"]].round(1).to_string())
+    table = bz.rank_models(fits)
+    print(table[["LOO log score", "score se", "behind best", "behind se",
+                 "effective parameters"]].round(1).to_string())
 
 
 if __name__ == "__main__":

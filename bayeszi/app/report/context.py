@@ -24,7 +24,7 @@ from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
-from bayeszi.answers.comparison import LooEstimate, compare, loo
+from bayeszi.answers.comparison import WEIGHT, LooEstimate, loo, rank_models
 
 if TYPE_CHECKING:
     from bayeszi.app.study import Contrast, Scenario
@@ -44,6 +44,8 @@ class ReportInput:
     ``saved_fits``); ``notes`` holds warnings raised while fitting, per model.
     ``predictions`` says whose scenario predictions the report shows: ``"models"`` (each
     model's), ``"averaged"`` (the models averaged by their stacking weights) or ``"both"``.
+    ``residuals_against`` names the column of ``data`` that the residual figure bins the
+    residuals by (None: the log of the expected count).
 
     Example
     -------
@@ -62,6 +64,8 @@ class ReportInput:
     contrasts: Sequence[Contrast] = ()
     preferred: str | None = None
     predictions: str = "models"
+    exact_refits: bool = False
+    residuals_against: str | None = None
     provenance: dict[str, Any] = field(default_factory=dict)
     notes: dict[str, list[str]] = field(default_factory=dict)
 
@@ -144,9 +148,9 @@ class ReportContext:
         >>> ctx.stacking_weights()                                     # doctest: +SKIP
         {'zinb': 0.71, 'hurdle': 0.29}
         """
-        if self.comparison is None or "weight" not in self.comparison.columns:
+        if self.comparison is None or WEIGHT not in self.comparison.columns:
             return None
-        return {str(n): float(w) for n, w in self.comparison["weight"].items()}
+        return {str(n): float(w) for n, w in self.comparison[WEIGHT].items()}
 
     def caught(self, where: str, fn: Callable[..., Any], *args: Any, **kwargs: Any) -> Any:
         """Call ``fn`` recording its warnings under ``where`` (see :class:`WarningLog`)."""
@@ -164,19 +168,21 @@ def plain(frame: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
-def loo_answers(fits: Mapping[str, FittedModel], log: WarningLog
+def loo_answers(fits: Mapping[str, FittedModel], log: WarningLog, exact_refits: bool = False
                 ) -> tuple[dict[str, LooEstimate], pd.DataFrame | None]:
-    """PSIS-LOO of every model, once each, and with two or more models their comparison.
+    """PSIS-LOO of every model, once each, and with two or more models their comparison;
+    with ``exact_refits`` the rows of high Pareto k are refitted exactly.
 
-    With several models the estimates' own warnings are left to :func:`compare`, which
+    With several models the estimates' own warnings are left to :func:`rank_models`, which
     repeats them for every model it ranks.
     """
     if len(fits) < 2:
-        return {n: log.caught("LOO", loo, f, label=n) for n, f in fits.items()}, None
+        return {n: log.caught("LOO", loo, f, label=n, exact_refits=exact_refits)
+                for n, f in fits.items()}, None
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        ests = {n: loo(f, label=n) for n, f in fits.items()}
-    return ests, plain(log.caught("LOO comparison", compare, ests))
+        ests = {n: loo(f, label=n, exact_refits=exact_refits) for n, f in fits.items()}
+    return ests, plain(log.caught("LOO comparison", rank_models, ests))
 
 
 def choose_preferred(inp: ReportInput, comparison: pd.DataFrame | None) -> tuple[str, str]:
@@ -202,7 +208,7 @@ def choose_preferred(inp: ReportInput, comparison: pd.DataFrame | None) -> tuple
 def build_context(inp: ReportInput) -> ReportContext:
     """Compute the answers several sections share, once each (see :class:`ReportContext`)."""
     log = WarningLog()
-    ests, comparison = loo_answers(inp.fits, log)
+    ests, comparison = loo_answers(inp.fits, log, inp.exact_refits)
     preferred, reason = choose_preferred(inp, comparison)
     return ReportContext(
         inp=inp, log=log, loo=ests, comparison=comparison, preferred=preferred,

@@ -101,7 +101,7 @@ def reading_lines(f: FittedModel, coefficients: pd.DataFrame, interval: float = 
                    f"mu + alpha mu^2, so at a mean of 5 it is {F_(1 + 5 * r['mean'])} times "
                    "a Poisson's (alpha = 0 is the Poisson).")
     for g in f.design.groups:
-        sd = table[(table["part"] == "counts") & (table["term"] == f"sd({g.name})")]
+        sd = table[(table["part"] == "counts") & (table["term"] == names.group_sd_label(g.name))]
         if len(sd):
             s = float(sd.iloc[0]["mean"])
             out.append(f"Levels of {g.name} differ beyond the predictors: the sd of their effects "

@@ -15,6 +15,9 @@ import pandas as pd
 
 from bayeszi.app.report.context import ReportContext
 from bayeszi.app.report.document import Section, Table, Text
+from bayeszi.base.names import BULK_ESS as BULK
+from bayeszi.base.names import RHAT
+from bayeszi.base.names import TAIL_ESS as TAIL
 from bayeszi.model.diagnostics import Diagnostics
 
 
@@ -37,9 +40,9 @@ def _summary_row(name: str, d: Diagnostics) -> dict[str, Any]:
     return {
         "model": name, "draws": int(d.draws), "divergences": int(d.divergences),
         "max tree depth hits": int(d.max_treedepth_hits),
-        "largest R-hat": float(t["r_hat"].max()),
-        "smallest bulk ESS": float(t["ess_bulk"].min()),
-        "smallest tail ESS": float(t["ess_tail"].min()),
+        "largest R-hat": float(t[RHAT].max()),
+        "smallest bulk ESS": float(t[BULK].min()),
+        "smallest tail ESS": float(t[TAIL].min()),
         "parameters flagged": len(set(d.bad_rhat) | set(d.bad_ess)),
         "flag": short_flags(d),
     }
@@ -48,15 +51,15 @@ def _summary_row(name: str, d: Diagnostics) -> dict[str, Any]:
 def _worst_rows(name: str, d: Diagnostics) -> list[dict[str, Any]]:
     """Up to 10 flagged parameters of a fit, the worst first."""
     t, th = d.table, d.thresholds
-    bad = t[(t["r_hat"] > th.rhat) | (t["ess_bulk"] < th.ess) | (t["ess_tail"] < th.ess)]
-    bad = bad.assign(order=bad["ess_bulk"].rank() - bad["r_hat"].rank()).sort_values("order")
+    bad = t[(t[RHAT] > th.rhat) | (t[BULK] < th.ess) | (t[TAIL] < th.ess)]
+    bad = bad.assign(order=bad[BULK].rank() - bad[RHAT].rank()).sort_values("order")
     out = []
     for key, r in bad.head(10).iterrows():
-        flag = " ".join(x for x, on in (("R-hat", r["r_hat"] > th.rhat),
-                                       ("low ESS", min(r["ess_bulk"], r["ess_tail"]) < th.ess))
+        flag = " ".join(x for x, on in (("R-hat", r[RHAT] > th.rhat),
+                                       ("low ESS", min(r[BULK], r[TAIL]) < th.ess))
                         if on)
-        out.append({"model": name, "parameter": str(key), "r_hat": float(r["r_hat"]),
-                    "ess_bulk": float(r["ess_bulk"]), "ess_tail": float(r["ess_tail"]),
+        out.append({"model": name, "parameter": str(key), RHAT: float(r[RHAT]),
+                    BULK: float(r[BULK]), TAIL: float(r[TAIL]),
                     "flag": flag})
     return out
 

@@ -14,6 +14,7 @@ from bayeszi.app.report import figures as F
 from bayeszi.app.report.context import ReportContext, plain
 from bayeszi.app.report.document import Figure, Section, Table, Text
 from bayeszi.app.report.sections.common import interval_labels, table_blocks
+from bayeszi.base.names import DIAGNOSTIC_COLUMNS
 
 INTRO = ("Group effects are partially pooled: each level's effect is pulled toward a typical "
          "level, the more so the fewer records it has. The pooling factor is near 0 when a "
@@ -43,7 +44,7 @@ def section_groups(ctx: ReportContext) -> Section | None:
                            f"Model {pref}: the effect of each group level (exp scale: rate "
                            "ratio or odds ratio against a typical level)", index=True,
                            columns=["group", "level", "part", "effect", "records", "exp(mean)",
-                                    f"exp {lo}", f"exp {hi}", "pooling", "r_hat", "ess_bulk",
+                                    f"exp {lo}", f"exp {hi}", "pooling", *DIAGNOSTIC_COLUMNS[:2],
                                     "flag"])
     for g in f.design.groups:
         blocks.append(Figure(f"group_effects_{pref}_{g.name}", F.group_effect_intervals(

@@ -40,7 +40,8 @@ def _model_row(name: str, f: Any) -> dict[str, Any]:
         "varying slopes": "; ".join(f"{p}: {', '.join(t)}" for p, t in s.varying.items())
         or "none",
         "chains": int(post.sizes["chain"]), "draws per chain": int(post.sizes["draw"]),
-        "tune": int(s.sampler.tune), "target_accept": float(s.sampler.target_accept),
+        "warm-up steps": int(s.sampler.warmup_steps),
+        "acceptance target": float(s.sampler.acceptance_target),
         "seed": "" if s.sampler.seed is None else str(s.sampler.seed),
         "sampling seconds": float(f.timing.get("sample_s", np.nan)),
     }
