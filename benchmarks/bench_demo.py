@@ -39,6 +39,8 @@ def _read_lines(stream, stamps: list[tuple[float, str]]) -> None:
 def _phase_name(line: str) -> str:
     """A short name of the phase a progress line starts."""
     text = line.strip()
+    if text.startswith("warning:"):  # printed after the document is built: writing follows
+        return "writing the report files"
     if text.startswith("fitting") or text.startswith("[") or " of " in text[:12]:
         return "fit: " + text[:60]
     return text[:60]
