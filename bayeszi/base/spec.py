@@ -33,7 +33,13 @@ PARTS = ("counts", "zeros")
 
 @dataclass(frozen=True)
 class SamplerSettings:
-    """NUTS settings. ``cores=None`` uses as many cores as chains (up to the machine's)."""
+    """NUTS settings. ``cores=None`` uses as many cores as chains (up to the machine's).
+
+    ``until_enough=True`` draws in blocks of ``block_draws`` per chain until every reported
+    parameter's R-hat, bulk ESS and tail ESS pass the warning thresholds, or until
+    ``draws_limit`` draws per chain; ``draws`` is then not used
+    (:mod:`bayeszi.model.enough`).
+    """
 
     draws: int = 1000
     warmup_steps: int = 1000
@@ -43,12 +49,16 @@ class SamplerSettings:
     seed: int | None = None
     progressbar: bool | None = None
     sampler: str = "auto"
+    until_enough: bool = False
+    block_draws: int = 200
+    draws_limit: int = 4000
 
     def __post_init__(self) -> None:
-        for name in ("draws", "warmup_steps", "chains"):
+        for name in ("draws", "warmup_steps", "chains", "block_draws", "draws_limit"):
             value = getattr(self, name)
             if not _is_whole(value) or value < 1:
-                example = {"draws": 1000, "warmup_steps": 1000, "chains": 2}[name]
+                example = {"draws": 1000, "warmup_steps": 1000, "chains": 2, "block_draws": 200,
+                           "draws_limit": 4000}[name]
                 raise BayesziError(
                     f"setting '{name}' must be a positive whole number, got {value!r}; "
                     f"for example {name}={example}"
@@ -81,6 +91,38 @@ class SamplerSettings:
             raise BayesziError(
                 f"setting 'sampler' must be 'auto', 'pymc' or 'nutpie', got {self.sampler!r}"
             )
+        self._check_until_enough()
+
+    def _check_until_enough(self) -> None:
+        """``until_enough`` is True or False and, when True, has what it needs."""
+        if not isinstance(self.until_enough, (bool, np.bool_)):
+            raise BayesziError(f"setting 'until_enough' must be True or False, got "
+                               f"{self.until_enough!r}")
+        object.__setattr__(self, "until_enough", bool(self.until_enough))
+        if not self.until_enough:
+            return
+        if self.block_draws > self.draws_limit:
+            raise BayesziError(
+                f"setting 'block_draws' ({self.block_draws}) is above 'draws_limit' "
+                f"({self.draws_limit}); lower block_draws or raise draws_limit")
+        if self.chains < 2:
+            raise BayesziError(
+                "until_enough needs chains=2 or more: R-hat, one of the measures it waits for, "
+                "compares chains; set chains=2 or until_enough=False")
+        if self.sampler == "nutpie":
+            raise BayesziError(
+                "until_enough continues PyMC's NUTS chains block by block, which nutpie cannot "
+                "do; set sampler='auto' (or 'pymc'), or until_enough=False to use nutpie")
+
+    @property
+    def most_draws(self) -> int:
+        """The most draws per chain a fit can take: ``draws_limit`` when drawing until
+        enough, else ``draws``.
+
+        >>> SamplerSettings(until_enough=True).most_draws
+        4000
+        """
+        return self.draws_limit if self.until_enough else self.draws
 
     @classmethod
     def from_mapping(cls, d: Any, where: str = "sampler settings") -> SamplerSettings:

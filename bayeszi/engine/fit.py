@@ -36,6 +36,7 @@ from bayeszi.engine.record import FitRecord, Posterior
 from bayeszi.model.build import build_model
 from bayeszi.model.design import Design, build_design
 from bayeszi.model.diagnostics import Diagnostics, diagnose
+from bayeszi.model.enough import STOP_FIXED, BlockPlan, sample_until_enough
 from bayeszi.model.priors import resolve
 from bayeszi.model.sample import run_nuts
 
@@ -59,7 +60,8 @@ def fit_record(data: pd.DataFrame, spec: ModelSpec, prior_draws: int = 0) -> Fit
     priors = resolve(design, spec.priors)
     built = build_model(design, priors)
     t1 = time.perf_counter()
-    idata = _sample_or_interrupt(built.model, spec.sampler, built.n_rows)
+    idata = _sample_or_interrupt(built.model, spec.sampler, built.n_rows,
+                                 _enough_judge(design))
     t2 = time.perf_counter()
     add_user_scale(idata, design)
     if prior_draws:
@@ -76,6 +78,35 @@ def fit_record(data: pd.DataFrame, spec: ModelSpec, prior_draws: int = 0) -> Fit
               "log_likelihood_s": time.perf_counter() - t3}
     return FitRecord(spec, design, idata, priors, data[design.used_columns].copy(),
                      _diagnosed(idata, design), timing)
+
+
+def _enough_judge(design: Design):
+    """Whether draws so far are enough: every reported parameter (user-scale coefficients
+    included, as the diagnostics table shows them) passes the R-hat and ESS thresholds."""
+    def judge(idata: az.InferenceData) -> bool:
+        add_user_scale(idata, design)
+        diag = diagnose(idata)
+        return not diag.bad_rhat and not diag.bad_ess
+    return judge
+
+
+def _draw(model: pm.Model, settings: SamplerSettings, rows: int, judge) -> az.InferenceData:
+    """Fixed draws through :func:`run_nuts`, or blocks until enough; the sample_stats attrs
+    say how many draws per chain were taken and why sampling stopped."""
+    if not settings.until_enough:
+        idata = run_nuts(model, settings, rows)
+        stop = STOP_FIXED
+    else:
+        run = sample_until_enough(
+            model, chains=settings.chains, warmup_steps=settings.warmup_steps,
+            plan=BlockPlan(settings.block_draws, settings.draws_limit),
+            acceptance_target=settings.acceptance_target, seed=settings.seed, judge=judge)
+        idata, stop = run.idata, run.stop
+        idata.sample_stats.attrs["bayeszi_sampler"] = "pymc-nuts-blocks"
+    attrs = idata.sample_stats.attrs
+    attrs["bayeszi_draws"] = int(idata.posterior.sizes.get("draw", 0))
+    attrs["bayeszi_stop"] = stop
+    return idata
 
 
 def _diagnosed(idata: az.InferenceData, design: Design) -> Diagnostics:
@@ -130,13 +161,13 @@ def _watch_interrupts():
         signal.signal(signal.SIGINT, previous)
 
 
-def _sample_or_interrupt(model: pm.Model, settings: SamplerSettings, rows: int
+def _sample_or_interrupt(model: pm.Model, settings: SamplerSettings, rows: int, judge=None
                          ) -> az.InferenceData:
     """Run NUTS; a Ctrl-C anywhere in it raises KeyboardInterrupt with a clear message, and
     a result with fewer draws than asked for is never returned."""
     with _watch_interrupts() as hits:
         try:
-            idata = run_nuts(model, settings, rows)
+            idata = _draw(model, settings, rows, judge)
         except KeyboardInterrupt:
             raise KeyboardInterrupt(INTERRUPTED) from None
         except Exception:
@@ -147,7 +178,8 @@ def _sample_or_interrupt(model: pm.Model, settings: SamplerSettings, rows: int
         raise KeyboardInterrupt(INTERRUPTED)
     post = idata.posterior
     got = (int(post.sizes.get("chain", 0)), int(post.sizes.get("draw", 0)))
-    if got != (settings.chains, settings.draws):
+    expected = settings.draws if not settings.until_enough else got[1]
+    if got != (settings.chains, expected) or got[1] > settings.most_draws:
         raise BayesziError(
             f"the sampler returned {got[0]} chain(s) of {got[1]} draws instead of "
             f"{settings.chains} of {settings.draws} (was it interrupted?); nothing was kept. "

@@ -41,7 +41,7 @@ def make_spec(counts: str, zeros: str | None = "~ 1", family: str = "zinb",
     """Build a validated :class:`ModelSpec` from :func:`fit`'s keyword arguments."""
     refuse_renamed(sampler, "the arguments of make_spec()")
     known = {"draws", "warmup_steps", "chains", "cores", "acceptance_target", "seed",
-             "progressbar", "sampler"}
+             "progressbar", "sampler", "until_enough", "block_draws", "draws_limit"}
     bad = sorted(set(sampler) - known)
     if bad:
         import difflib
@@ -67,7 +67,8 @@ def fit(data: pd.DataFrame, counts: str, zeros: str | None = "~ 1", family: str 
         priors: Mapping[str, Any] | None = None, prior_draws: int = 0,
         draws: int = 1000, warmup_steps: int = 1000, chains: int = 2, cores: int | None = None,
         acceptance_target: float = 0.9, seed: int | None = None,
-        progressbar: bool | None = None, sampler: str = "auto") -> FittedModel:
+        progressbar: bool | None = None, sampler: str = "auto", until_enough: bool = False,
+        block_draws: int = 200, draws_limit: int = 4000) -> FittedModel:
     """Fit a count regression with an optional zeros part by NUTS.
 
     Parameters
@@ -88,6 +89,11 @@ def fit(data: pd.DataFrame, counts: str, zeros: str | None = "~ 1", family: str 
     draws, warmup_steps, chains, cores, acceptance_target, seed, progressbar, sampler :
         NUTS settings (warm-up steps adapt the step size and mass matrix; their draws are
         discarded).
+    until_enough, block_draws, draws_limit : draw in blocks of ``block_draws`` per chain
+        until every reported parameter's R-hat, bulk ESS and tail ESS pass the warning
+        thresholds (R-hat 1.01, ESS 400), at most ``draws_limit`` per chain; ``draws`` is then
+        not used. The fit says how many draws it took and why it stopped
+        (``sampling_summary()``).
 
     Returns
     -------
@@ -101,8 +107,8 @@ def fit(data: pd.DataFrame, counts: str, zeros: str | None = "~ 1", family: str 
     spec = make_spec(counts, zeros, family, exposure, offset, groups, varying, nested,
                      correlated, priors, draws=draws, warmup_steps=warmup_steps, chains=chains,
                      cores=cores, acceptance_target=acceptance_target, seed=seed,
-                     progressbar=progressbar,
-                     sampler=sampler)
+                     progressbar=progressbar, sampler=sampler, until_enough=until_enough,
+                     block_draws=block_draws, draws_limit=draws_limit)
     return fit_spec(data, spec, prior_draws=prior_draws)
 
 

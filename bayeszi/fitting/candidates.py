@@ -352,7 +352,8 @@ def fit_candidates(data: pd.DataFrame, counts: str,
                    priors: Mapping[str, Any] | None = None, draws: int = 1000,
                    warmup_steps: int = 1000, chains: int = 2, cores: int | None = None,
                    acceptance_target: float = 0.9, seed: int | None = None,
-                   progressbar: bool | None = None, sampler: str = "auto"
+                   progressbar: bool | None = None, sampler: str = "auto",
+                   until_enough: bool = False, block_draws: int = 200, draws_limit: int = 4000
                    ) -> dict[str, FittedModel]:
     """Fit every family in ``families`` with every zeros formula in ``zeros`` to ``data``.
 
@@ -365,6 +366,8 @@ def fit_candidates(data: pd.DataFrame, counts: str,
         candidates). Families without a zeros part are fitted once.
     draws, warmup_steps, chains, cores, acceptance_target, seed, sampler : NUTS settings for every
         candidate (each gets the same seed).
+    until_enough, block_draws, draws_limit : draws until enough, for every candidate, as in
+        :func:`bayeszi.fit`.
     progressbar : one progress display for the whole set (default: when stderr is a
         terminal); the per-fit sampler bars are off.
 
@@ -386,7 +389,8 @@ def fit_candidates(data: pd.DataFrame, counts: str,
                             correlated=correlated, priors=priors, draws=draws,
                             warmup_steps=warmup_steps, chains=chains, cores=cores,
                             acceptance_target=acceptance_target, seed=seed,
-                            progressbar=False, sampler=sampler)
+                            progressbar=False, sampler=sampler, until_enough=until_enough,
+                            block_draws=block_draws, draws_limit=draws_limit)
     checked = check_candidates(data, cands)
     show = sys.stderr.isatty() if progressbar is None else bool(progressbar)
     return fit_each(data, checked, ProgressDisplay(len(cands), show)).fits

@@ -26,6 +26,7 @@ from bayeszi.engine import archive
 from bayeszi.engine.record import FitRecord
 from bayeszi.families import get_family
 from bayeszi.model.diagnostics import Diagnostics
+from bayeszi.model.enough import stop_reason
 from bayeszi.plots import checkplots
 
 
@@ -442,7 +443,8 @@ def format_fit(m: FittedModel) -> str:
         lines.append("  groups: " + ", ".join(
             f"{g.name} ({len(g.levels)} levels)" for g in m.design.groups))
     post = m.idata.posterior
-    lines.append(f"  draws: {post.sizes['chain']} chains x {post.sizes['draw']}")
+    lines.append(f"  draws: {post.sizes['chain']} chains x {post.sizes['draw']} "
+                 f"({stop_reason(m.idata)})")
     table = m.coefficients()
     with pd.option_context("display.width", 140, "display.max_columns", 20,
                            "display.float_format", lambda v: f"{v:.3g}"):

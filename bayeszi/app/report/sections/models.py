@@ -17,6 +17,7 @@ from bayeszi.app.report.context import ReportContext
 from bayeszi.app.report.document import Section, Table, Text
 from bayeszi.app.report.sections.common import table_blocks, zeros_label
 from bayeszi.families import get_family
+from bayeszi.model.enough import stop_reason
 
 INTRO = ("Each candidate has a counts part (log link; the mean of the count process, with "
          "log exposure as an offset) and, except for the plain Poisson and negative "
@@ -40,6 +41,7 @@ def _model_row(name: str, f: Any) -> dict[str, Any]:
         "varying slopes": "; ".join(f"{p}: {', '.join(t)}" for p, t in s.varying.items())
         or "none",
         "chains": int(post.sizes["chain"]), "draws per chain": int(post.sizes["draw"]),
+        "why sampling stopped": stop_reason(f.idata),
         "warm-up steps": int(s.sampler.warmup_steps),
         "acceptance target": float(s.sampler.acceptance_target),
         "seed": "" if s.sampler.seed is None else str(s.sampler.seed),

@@ -1,0 +1,120 @@
+"""Draws until enough (bayeszi/model/enough.py): exact continuation, the stopping rule, the
+settings and what a fit says about it.
+
+The exactness checks compare against ``pm.sample`` itself: drawing in blocks through our
+loop must give, value for value, the draws of one sequential ``pm.sample`` call with the
+same seed, warm-up and total draws (a property of the code, no tolerance).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pymc as pm
+import pytest
+
+import bayeszi as bz
+from bayeszi.base.errors import BayesziError
+from bayeszi.base.spec import SamplerSettings
+from bayeszi.model.diagnostics import diagnose
+from bayeszi.model.enough import (
+    STOP_ENOUGH,
+    STOP_FIXED,
+    STOP_LIMIT,
+    BlockPlan,
+    sample_until_enough,
+    stop_reason,
+)
+
+
+def _poisson_model() -> pm.Model:
+    rng = np.random.default_rng(0)
+    x = rng.normal(size=60)
+    y = rng.poisson(np.exp(0.5 + 0.3 * x))
+    with pm.Model() as model:
+        a = pm.Normal("a", 0, 1)
+        b = pm.Normal("b", 0, 1)
+        pm.Deterministic("ab", a + b)
+        pm.Poisson("y", pm.math.exp(a + b * x), observed=y)
+    return model
+
+
+@pytest.fixture(scope="module")
+def model() -> pm.Model:
+    return _poisson_model()
+
+
+def test_blocks_continue_the_chains_exactly_as_pm_sample(model):
+    """Three blocks of 60 are, draw for draw, one pm.sample run of 180 (sequential chains,
+    same seed): the step size, mass matrix and random streams carry across blocks."""
+    run = sample_until_enough(model, chains=2, warmup_steps=150, plan=BlockPlan(60, 180),
+                              acceptance_target=0.9, seed=7, judge=None)
+    with model:
+        ref = pm.sample(draws=180, tune=150, chains=2, cores=1, random_seed=7,
+                        target_accept=0.9, progressbar=False, compute_convergence_checks=False)
+    assert (run.draws, run.stop, run.blocks) == (180, STOP_FIXED, 3)
+    for name in ("a", "b", "ab"):
+        np.testing.assert_array_equal(run.idata.posterior[name].values,
+                                      ref.posterior[name].values)
+
+
+def test_stops_at_the_first_block_the_judge_accepts(model):
+    seen: list[int] = []
+
+    def judge(idata):
+        seen.append(int(idata.posterior.sizes["draw"]))
+        return seen[-1] >= 100
+
+    run = sample_until_enough(model, chains=2, warmup_steps=100, plan=BlockPlan(50, 400),
+                              acceptance_target=0.9, seed=3, judge=judge)
+    assert seen == [50, 100]
+    assert (run.draws, run.stop) == (100, STOP_ENOUGH)
+    assert run.idata.posterior.sizes["draw"] == 100
+
+
+def test_limit_reached_when_never_enough(model):
+    run = sample_until_enough(model, chains=2, warmup_steps=100, plan=BlockPlan(40, 100),
+                              acceptance_target=0.9, seed=3, judge=lambda idata: False)
+    assert (run.draws, run.stop, run.blocks) == (100, STOP_LIMIT, 3)
+
+
+def test_block_sizes_fill_up_to_the_limit():
+    assert BlockPlan(300, 1000).sizes() == [300, 300, 300, 100]
+    assert BlockPlan(1000, 1000).sizes() == [1000]
+
+
+@pytest.mark.parametrize("settings, words", [
+    ({"until_enough": True, "chains": 1}, "chains=2"),
+    ({"until_enough": True, "block_draws": 500, "draws_limit": 400}, "block_draws"),
+    ({"until_enough": True, "sampler": "nutpie"}, "nutpie"),
+    ({"until_enough": "yes"}, "True or False"),
+    ({"draws_limit": 0}, "draws_limit"),
+])
+def test_settings_refused_with_the_fix(settings, words):
+    with pytest.raises(BayesziError, match=words):
+        SamplerSettings(**settings)
+
+
+def test_a_fit_says_how_many_draws_and_why(tmp_path):
+    """A seeded fit until enough: the stop reason agrees with its own diagnostics, the draw
+    count is a whole number of blocks, and the same seed gives the same draws."""
+    rng = np.random.default_rng(11)
+    n = 150
+    x = rng.normal(size=n)
+    y = np.where(rng.random(n) < 0.3, 0, rng.poisson(np.exp(0.4 + 0.5 * x)))
+    df = pd.DataFrame({"y": y, "x": x})
+    kw = dict(counts="y ~ x", family="zip", seed=5, warmup_steps=200, until_enough=True,
+              block_draws=150, draws_limit=600)
+    m = bz.fit(df, **kw)
+    draws = int(m.idata.posterior.sizes["draw"])
+    assert draws % 150 == 0 and 150 <= draws <= 600
+    diag = diagnose(m.idata)
+    passed = not diag.bad_rhat and not diag.bad_ess
+    assert stop_reason(m.idata).startswith("enough" if passed else "limit")
+    assert f"{draws} draws per chain" in stop_reason(m.idata)
+    assert stop_reason(m.idata) in str(m)
+    again = bz.fit(df, **kw)
+    np.testing.assert_array_equal(again.idata.posterior["counts_coef"].values,
+                                  m.idata.posterior["counts_coef"].values)
+    path = m.save(str(tmp_path / "fit.nc"))
+    assert stop_reason(bz.load(path).idata) == stop_reason(m.idata)
