@@ -118,3 +118,29 @@ def test_a_fit_says_how_many_draws_and_why(tmp_path):
                                   m.idata.posterior["counts_coef"].values)
     path = m.save(str(tmp_path / "fit.nc"))
     assert stop_reason(bz.load(path).idata) == stop_reason(m.idata)
+
+
+def test_a_study_file_draws_until_enough_unless_it_fixes_draws():
+    from bayeszi.app.study import _until_enough_default
+
+    assert _until_enough_default({})["until_enough"] is True
+    assert _until_enough_default({"draws": 500})["until_enough"] is False
+    assert _until_enough_default({"chains": 1})["until_enough"] is False
+    assert _until_enough_default({"sampler": "nutpie"})["until_enough"] is False
+    with pytest.raises(BayesziError, match="not both"):
+        _until_enough_default({"draws": 500, "until_enough": True})
+
+
+def test_command_line_draws_fix_the_number_and_draws_limit_asks_for_blocks():
+    from bayeszi.app.cli import _overrides, build_parser
+    from bayeszi.app.study import demo_study_path, load_study
+
+    study = load_study(demo_study_path())
+    args = build_parser().parse_args(["run", "s.toml", "--out", "o", "--draws", "300"])
+    fixed = study.with_sampler(**_overrides(args))
+    assert all(not c.spec.sampler.until_enough and c.spec.sampler.draws == 300
+               for c in fixed.candidates)
+    args = build_parser().parse_args(["run", "s.toml", "--out", "o", "--draws-limit", "800"])
+    capped = fixed.with_sampler(**_overrides(args))
+    assert all(c.spec.sampler.until_enough and c.spec.sampler.draws_limit == 800
+               for c in capped.candidates)

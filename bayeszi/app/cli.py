@@ -64,8 +64,11 @@ def _command_line(argv: Sequence[str]) -> str:
 
 # ---------------------------------------------------------------------- subcommands
 def _overrides(args: argparse.Namespace) -> dict[str, Any]:
-    return {"draws": args.draws, "warmup_steps": args.warmup_steps, "chains": args.chains,
-            "cores": args.cores}
+    out = {"draws": args.draws, "warmup_steps": args.warmup_steps, "chains": args.chains,
+           "cores": args.cores}
+    if getattr(args, "draws_limit", None) is not None:
+        out.update(draws_limit=args.draws_limit, until_enough=True)
+    return out
 
 
 def _run(args: argparse.Namespace) -> int:
@@ -186,6 +189,11 @@ def _sampler_flags(p: argparse.ArgumentParser, defaults: bool) -> None:
                    help="chains" + (" (default: %(default)s)" if defaults else note))
     p.add_argument("--cores", type=int, metavar="N", default=None,
                    help="cores to run chains on (default: one per chain, up to the machine's)")
+    if not defaults:
+        p.add_argument("--draws-limit", type=int, metavar="N", default=None,
+                       help="draw in blocks until R-hat and ESS pass, at most N per chain "
+                       "(a study file does this by default, up to 4000; --draws N asks for a "
+                       "fixed number instead)")
 
 
 def build_parser() -> argparse.ArgumentParser:

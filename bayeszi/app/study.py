@@ -44,7 +44,8 @@ TOP_KEYS = ("study", "sampler", "model", "scenario", "contrast")
 STUDY_KEYS = ("title", "summary", "data", "response", "exposure", "offset", "exposure_unit",
               "groups", "nested", "seed", "interval", "preferred", "predictions",
               "exact_refits", "residuals_against")
-SAMPLER_KEYS = ("draws", "warmup_steps", "chains", "cores", "acceptance_target", "sampler")
+SAMPLER_KEYS = ("draws", "warmup_steps", "chains", "cores", "acceptance_target", "sampler",
+                "until_enough", "block_draws", "draws_limit")
 MODEL_KEYS = ("name", "family", "counts", "zeros", "groups", "varying", "nested",
               "correlated", "priors", "sampler")
 MODEL_SAMPLER_KEYS = ("draws", "warmup_steps", "acceptance_target")
@@ -279,11 +280,33 @@ class Study:
         changes = {k: v for k, v in changes.items() if v is not None}
         if not changes:
             return self
+        if "draws" in changes:  # a fixed number asked for
+            changes.setdefault("until_enough", False)
+        if changes.get("chains") == 1:
+            changes.setdefault("until_enough", False)
         sampler = dataclasses.replace(self.sampler, **changes)
         cands = tuple(Candidate(c.name, dataclasses.replace(
             c.spec, sampler=dataclasses.replace(c.spec.sampler, **changes)))
             for c in self.candidates)
         return dataclasses.replace(self, sampler=sampler, candidates=cands)
+
+
+def _until_enough_default(raw: Mapping[str, Any]) -> dict[str, Any]:
+    """[sampler] with ``until_enough`` filled in: a study file draws until enough unless it
+    asks for a fixed ``draws``, a single chain (R-hat needs two) or nutpie.
+
+    >>> _until_enough_default({})["until_enough"], _until_enough_default({"draws": 500})
+    (True, {'draws': 500, 'until_enough': False})
+    """
+    out = dict(raw)
+    if out.get("until_enough") is True and "draws" in out:
+        raise BayesziError("[sampler]: give 'draws' (a fixed number per chain) or "
+                           "'until_enough = true' (blocks until R-hat and ESS pass, at most "
+                           "'draws_limit'), not both")
+    if "until_enough" not in out:
+        out["until_enough"] = ("draws" not in out and out.get("chains", 2) != 1
+                               and out.get("sampler") != "nutpie")
+    return out
 
 
 def _known_column(col: str, used: list[str], where: str) -> None:
@@ -369,7 +392,8 @@ def parse_study(raw: Mapping[str, Any], path: str) -> Study:
     if not isinstance(nested, Mapping):
         raise BayesziError("'nested' in [study] must be a table like { reach = \"river\" }")
     seed, interval = _seed_and_interval(st)
-    sampler_raw = _strict(top.get("sampler", {}), SAMPLER_KEYS, "[sampler]")
+    sampler_raw = _until_enough_default(
+        _strict(top.get("sampler", {}), SAMPLER_KEYS, "[sampler]"))
     try:
         sampler = SamplerSettings(**sampler_raw, seed=seed)
     except BayesziError as err:
@@ -527,7 +551,8 @@ def _candidate(m: dict[str, Any], where: str, response: str, exposure: str | Non
             counts=f"{_quote(response)} ~ {counts}", zeros=f"~ {zeros}", family=family,
             exposure=exposure, offset=offset, groups=m_groups, varying=dict(varying),
             nested=m_nested, correlated=correlated, priors=dict(priors),
-            sampler=dataclasses.replace(sampler, **own),
+            sampler=dataclasses.replace(
+                sampler, **own, **({"until_enough": False} if "draws" in own else {})),
         )
     except BayesziError as err:
         raise BayesziError(f"{where}: {err}") from None
