@@ -176,6 +176,7 @@ def small_run(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Any]:
     buf = io.StringIO()
     with contextlib.redirect_stdout(buf), warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        rc = main(["run", str(study), "--out", str(out), "--save-fits", "--quiet"])
+        rc = main(["run", str(study), "--out", str(out), "--save-fits", "--vector-figures",
+                   "--quiet"])
     return {"rc": rc, "study": study, "out": out, "data": folder / "crayfish.csv",
             "stdout": buf.getvalue()}

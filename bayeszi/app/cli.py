@@ -77,7 +77,8 @@ def _run(args: argparse.Namespace) -> int:
 
     study = load_study(args.study).with_sampler(**_overrides(args))
     dest = run_study(study, args.out, command=args.command_line, progress=args.console,
-                     save_fits=args.save_fits, exact_refits=args.exact_refits or None)
+                     save_fits=args.save_fits, exact_refits=args.exact_refits or None,
+                     vector_figures=args.vector_figures or None)
     print(os.path.join(dest, "report.html"))
     return 0
 
@@ -169,7 +170,7 @@ def _report(args: argparse.Namespace) -> int:
     interval_bounds(args.interval, name="--interval")
     dest = report_saved(args.saved, args.out, command=args.command_line, title=args.title,
                         interval=args.interval, progress=args.console,
-                        exact_refits=args.exact_refits,
+                        exact_refits=args.exact_refits, vector_figures=args.vector_figures,
                         residuals_against=args.residuals_against)
     print(os.path.join(dest, "report.html"))
     return 0
@@ -309,8 +310,15 @@ def _add_report(sub: Any) -> None:
     rp.add_argument("--residuals-against", default=None, metavar="COLUMN",
                     help="bin the residuals by this column of the fitted data in the residual "
                     "figure (default: the log of the expected count)")
+    _vector_flag(rp)
     rp.add_argument("--quiet", action="store_true", help="no progress messages")
     rp.set_defaults(func=_report)
+
+
+def _vector_flag(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--vector-figures", action="store_true",
+                   help="also write every figure as SVG under DIR/figures/ (PNG only by "
+                   "default; SVG roughly doubles the time spent writing figures)")
 
 
 def _common_run_flags(p: argparse.ArgumentParser) -> None:
@@ -320,6 +328,7 @@ def _common_run_flags(p: argparse.ArgumentParser) -> None:
     p.add_argument("--exact-refits", action="store_true",
                    help="refit each model without every record whose Pareto k is above 0.7 "
                    "and use the exact leave-one-out value (each refit is a full fit)")
+    _vector_flag(p)
     p.add_argument("--quiet", action="store_true", help="no progress messages")
 
 

@@ -43,7 +43,7 @@ from bayeszi.fitting.candidates import Candidate, CheckedCandidates, check_candi
 TOP_KEYS = ("study", "sampler", "model", "scenario", "contrast")
 STUDY_KEYS = ("title", "summary", "data", "response", "exposure", "offset", "exposure_unit",
               "groups", "nested", "seed", "interval", "preferred", "predictions",
-              "exact_refits", "residuals_against")
+              "exact_refits", "residuals_against", "vector_figures")
 SAMPLER_KEYS = ("draws", "warmup_steps", "chains", "cores", "acceptance_target", "sampler",
                 "until_enough", "block_draws", "draws_limit")
 MODEL_KEYS = ("name", "family", "counts", "zeros", "groups", "varying", "nested",
@@ -163,6 +163,7 @@ class Study:
     preferred: str | None = None
     predictions: str = "models"
     exact_refits: bool = False
+    vector_figures: bool = False
     residuals_against: str | None = None
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
     scenarios: tuple[Scenario, ...] = ()
@@ -420,6 +421,7 @@ def parse_study(raw: Mapping[str, Any], path: str) -> Study:
         exposure_unit=_text(st.get("exposure_unit"), "exposure_unit", "[study]"),
         groups=groups, seed=seed, interval=float(interval), preferred=preferred,
         predictions=_predictions(st), exact_refits=_flag(st, "exact_refits"),
+        vector_figures=_flag(st, "vector_figures"),
         residuals_against=_text(st.get("residuals_against"), "residuals_against", "[study]"),
         sampler=sampler, scenarios=tuple(scenarios), contrasts=tuple(contrasts),
     )

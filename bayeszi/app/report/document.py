@@ -65,7 +65,7 @@ class Table:
 
 @dataclass
 class Figure:
-    """A matplotlib figure; ``name`` names its PNG and SVG files."""
+    """A matplotlib figure; ``name`` names its PNG (and SVG) files."""
 
     name: str
     figure: Any

@@ -80,12 +80,14 @@ REFIT_ADVICE = ("set exact_refits = true in the study file's [study] table, or a
 
 
 def run_study(study: Study, out: str, command: str = "", progress: Progress = _quiet,
-              save_fits: bool = False, exact_refits: bool | None = None) -> str:
+              save_fits: bool = False, exact_refits: bool | None = None,
+              vector_figures: bool | None = None) -> str:
     """Fit, compare, check and predict as ``study`` says; write the report folder ``out``.
 
     Nothing is sampled before the output folder, the data and every candidate and scenario
     have been checked. ``exact_refits`` (None: as the study says) refits the rows of high
-    Pareto k exactly for LOO. Returns the absolute path of the finished folder.
+    Pareto k exactly for LOO. ``vector_figures`` (None: as the study says) also writes every
+    figure as SVG. Returns the absolute path of the finished folder.
     """
     folder = OutputFolder(out)  # fails before any work when out cannot be written
     with folder:
@@ -118,16 +120,18 @@ def run_study(study: Study, out: str, command: str = "", progress: Progress = _q
             exact_refits=study.exact_refits if exact_refits is None else exact_refits,
             residuals_against=study.residuals_against,
             provenance=provenance, notes=notes)
-        return _finish(inp, folder, progress)
+        vector = study.vector_figures if vector_figures is None else vector_figures
+        return _finish(inp, folder, progress, vector)
 
 
-def _finish(inp: ReportInput, folder: OutputFolder, progress: Progress) -> str:
+def _finish(inp: ReportInput, folder: OutputFolder, progress: Progress,
+            vector: bool = False) -> str:
     progress("building the report ...")
     with refit_advice(REFIT_ADVICE):
         doc, footer, warned = build_document(inp, progress=lambda s: progress(f"  {s}"))
     for w in warned:
         progress(f"      warning: {' '.join(w.split())}")
-    files = write_document(doc, folder, footer)
+    files = write_document(doc, folder, footer, vector=vector)
     dest = folder.commit()
     progress(f"report written: {os.path.join(dest, REPORT_NAME)} ({len(files)} files)")
     return dest
@@ -171,12 +175,14 @@ def load_saved(paths: Sequence[str]) -> tuple[dict[str, FittedModel], dict[str, 
 
 def report_saved(paths: Sequence[str], out: str, command: str = "", title: str | None = None,
                  interval: float = 0.9, progress: Progress = _quiet,
-                 exact_refits: bool = False, residuals_against: str | None = None) -> str:
+                 exact_refits: bool = False, residuals_against: str | None = None,
+                 vector_figures: bool = False) -> str:
     """Write a report folder ``out`` from saved fits (no scenarios: the study is not known).
 
     ``exact_refits`` refits the rows of high Pareto k exactly for LOO; ``residuals_against``
     names a column of the fitted data to bin the residuals by in the residual figure
-    (default: the log of the expected count).
+    (default: the log of the expected count); ``vector_figures`` also writes every figure
+    as SVG.
     """
     folder = OutputFolder(out)
     with folder:
@@ -195,4 +201,4 @@ def report_saved(paths: Sequence[str], out: str, command: str = "", title: str |
             interval=interval, seed=seeds.pop() if len(seeds) == 1 else None,
             exact_refits=exact_refits, residuals_against=residuals_against,
             provenance=provenance)
-        return _finish(inp, folder, progress)
+        return _finish(inp, folder, progress, vector_figures)

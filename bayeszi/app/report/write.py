@@ -1,8 +1,9 @@
 """Write a :class:`~bayeszi.app.report.document.Document` into an output folder.
 
 The folder gets ``report.html`` (self-contained: figures embedded), ``tables/NAME.csv`` for
-every table (full precision) and ``figures/NAME.png`` and ``figures/NAME.svg`` for every
-figure. Everything goes into the temporary folder of an
+every table (full precision) and ``figures/NAME.png`` for every figure, rendered once and
+used for both the page and the file; ``vector=True`` adds ``figures/NAME.svg`` (each SVG
+costs about as much again as its PNG). Everything goes into the temporary folder of an
 :class:`~bayeszi.app.report.output.OutputFolder`, which the caller commits.
 
 Example
@@ -49,8 +50,10 @@ def figure_bytes(figure, fmt: str, dpi: int = 110) -> bytes:
     return buf.getvalue()
 
 
-def write_document(doc: Document, out: OutputFolder, footer: Sequence[str] = ()) -> list[str]:
-    """Write tables, figures and the page into ``out``; returns the relative file names."""
+def write_document(doc: Document, out: OutputFolder, footer: Sequence[str] = (),
+                   vector: bool = False) -> list[str]:
+    """Write tables, figures (PNG; SVG too when ``vector``) and the page into ``out``;
+    returns the relative file names."""
     import matplotlib.pyplot as plt
 
     files: list[str] = []
@@ -70,7 +73,8 @@ def write_document(doc: Document, out: OutputFolder, footer: Sequence[str] = ())
         png = figure_bytes(f.figure, "png")
         images[f.name] = png
         files.append(out.write_bytes(f"figures/{name}.png", png))
-        files.append(out.write_bytes(f"figures/{name}.svg", figure_bytes(f.figure, "svg")))
+        if vector:
+            files.append(out.write_bytes(f"figures/{name}.svg", figure_bytes(f.figure, "svg")))
         plt.close(f.figure)
     files.append(out.write_text(REPORT_NAME, render_html(doc, images, footer)))
     return files
