@@ -81,9 +81,12 @@ def main() -> None:
     ap.add_argument("--repeat", type=int, default=2)
     ap.add_argument("--draws", type=int, default=None,
                     help="override the demo's draws (default: as the demo study says)")
+    ap.add_argument("--vector-figures", action="store_true",
+                    help="also write SVG figures (as before they were made optional)")
     ap.add_argument("--out", default=None, help="write the results as JSON here")
     a = ap.parse_args()
     extra = ["--draws", str(a.draws)] if a.draws else []
+    extra += ["--vector-figures"] if a.vector_figures else []
     cache = tempfile.mkdtemp(prefix="bench-demo-cache-")
     runs = []
     for i in range(a.repeat):
@@ -96,6 +99,7 @@ def main() -> None:
                     print(f"    {sec:7.1f} s  {name}")
     shutil.rmtree(cache, ignore_errors=True)
     result = {"machine": platform.platform(), "cpus": os.cpu_count(), "runs": runs,
+              "args": extra, "load_avg": os.getloadavg(),
               "when": time.strftime("%Y-%m-%d %H:%M")}
     if a.out:
         with open(a.out + ".tmp", "w", encoding="utf-8") as fh:

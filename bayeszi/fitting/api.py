@@ -93,7 +93,7 @@ def fit(data: pd.DataFrame, counts: str, zeros: str | None = "~ 1", family: str 
         until every reported parameter's R-hat, bulk ESS and tail ESS pass the warning
         thresholds (R-hat 1.01, ESS 400), at most ``draws_limit`` per chain; ``draws`` is then
         not used. The fit says how many draws it took and why it stopped
-        (``sampling_summary()``).
+        (``print(fit)`` and the models table of a report).
 
     Returns
     -------

@@ -39,22 +39,39 @@ def _quiet(_: str) -> None:
 
 
 class _StudyProgress:
-    """Progress lines of a study's fits ("[1/3] fitting zinb-reach ...") for :func:`fit_each`."""
+    """Progress lines of a study's fits ("[1/3] fitting zinb-reach ...") for :func:`fit_each`,
+    with an estimate of the time the remaining fits take once one has finished."""
 
     def __init__(self, study: Study, say: Progress) -> None:
         self.say = say
         self.specs = {c.name: c.spec for c in study.candidates}
         self.position = {c.name: i for i, c in enumerate(study.candidates, start=1)}
+        self.seconds: list[float] = []
 
     def start(self, name: str) -> None:
         spec = self.specs[name]
         s = spec.sampler
+        draws = (f"blocks of {s.block_draws} draws until enough, at most {s.draws_limit}"
+                 if s.until_enough else f"{s.draws} draws")
         self.say(f"[{self.position[name]}/{len(self.specs)}] fitting {name} ({spec.family}, "
-                 f"{s.chains} chains x {s.warmup_steps} warm-up steps + {s.draws} draws) ...")
+                 f"{s.chains} chains x {s.warmup_steps} warm-up steps + {draws}) ...")
 
     def finish(self, name: str, seconds: float, warned: Sequence[str] = ()) -> None:
+        self.seconds.append(seconds)
+        left = len(self.specs) - len(self.seconds)
+        guess = (f"; about {_duration(left * sum(self.seconds) / len(self.seconds))} for the "
+                 f"{left} fit(s) left" if left else "")
         self.say(f"[{self.position[name]}/{len(self.specs)}] {name} done in {seconds:.0f} s"
-                 + (f" ({len(warned)} warning(s))" if warned else ""))
+                 + (f" ({len(warned)} warning(s))" if warned else "") + guess)
+
+
+def _duration(seconds: float) -> str:
+    """``"40 s"`` or ``"3 min"``.
+
+    >>> _duration(40.2), _duration(185)
+    ('40 s', '3 min')
+    """
+    return f"{seconds:.0f} s" if seconds < 90 else f"{seconds / 60:.0f} min"
 
 
 def save_fit(fitted: FittedModel, path: str, provenance: dict[str, Any]) -> str:
