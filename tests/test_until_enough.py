@@ -44,18 +44,27 @@ def model() -> pm.Model:
     return _poisson_model()
 
 
-def test_blocks_continue_the_chains_exactly_as_pm_sample(model):
-    """Three blocks of 60 are, draw for draw, one pm.sample run of 180 (sequential chains,
-    same seed): the step size, mass matrix and random streams carry across blocks."""
-    run = sample_until_enough(model, chains=2, warmup_steps=150, plan=BlockPlan(60, 180),
-                              acceptance_target=0.9, seed=7, judge=None)
+@pytest.fixture(scope="module")
+def reference(model):
     with model:
-        ref = pm.sample(draws=180, tune=150, chains=2, cores=1, random_seed=7,
-                        target_accept=0.9, progressbar=False, compute_convergence_checks=False)
+        return pm.sample(draws=180, tune=150, chains=2, cores=1, random_seed=7,
+                         target_accept=0.9, progressbar=False, compute_convergence_checks=False)
+
+
+@pytest.mark.parametrize("processes", [False, True], ids=["here", "processes"])
+def test_blocks_continue_the_chains_exactly_as_pm_sample(model, reference, processes):
+    """Three blocks of 60 are, draw for draw, one pm.sample run of 180 (same seed), with the
+    chains here or in worker processes: the step size, mass matrix and random streams carry
+    across blocks."""
+    run = sample_until_enough(model, chains=2, warmup_steps=150, plan=BlockPlan(60, 180),
+                              acceptance_target=0.9, seed=7, judge=None, processes=processes)
     assert (run.draws, run.stop, run.blocks) == (180, STOP_FIXED, 3)
     for name in ("a", "b", "ab"):
         np.testing.assert_array_equal(run.idata.posterior[name].values,
-                                      ref.posterior[name].values)
+                                      reference.posterior[name].values)
+    for name in ("diverging", "tree_depth"):
+        np.testing.assert_array_equal(run.idata.sample_stats[name].values,
+                                      reference.sample_stats[name].values)
 
 
 def test_stops_at_the_first_block_the_judge_accepts(model):

@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+import os
 import signal
 import threading
 import time
@@ -90,6 +91,13 @@ def _enough_judge(design: Design):
     return judge
 
 
+def _cores(settings: SamplerSettings) -> int:
+    """Cores for the chains: as set, else one per chain up to the machine's."""
+    if settings.cores is not None:
+        return settings.cores
+    return max(1, min(settings.chains, os.cpu_count() or 1))
+
+
 def _draw(model: pm.Model, settings: SamplerSettings, rows: int, judge) -> az.InferenceData:
     """Fixed draws through :func:`run_nuts`, or blocks until enough; the sample_stats attrs
     say how many draws per chain were taken and why sampling stopped."""
@@ -100,7 +108,8 @@ def _draw(model: pm.Model, settings: SamplerSettings, rows: int, judge) -> az.In
         run = sample_until_enough(
             model, chains=settings.chains, warmup_steps=settings.warmup_steps,
             plan=BlockPlan(settings.block_draws, settings.draws_limit),
-            acceptance_target=settings.acceptance_target, seed=settings.seed, judge=judge)
+            acceptance_target=settings.acceptance_target, seed=settings.seed, judge=judge,
+            processes=settings.chains > 1 and _cores(settings) > 1)
         idata, stop = run.idata, run.stop
         idata.sample_stats.attrs["bayeszi_sampler"] = "pymc-nuts-blocks"
     attrs = idata.sample_stats.attrs

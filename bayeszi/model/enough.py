@@ -1,7 +1,7 @@
 """Draws until enough: NUTS in blocks, stopping once the draws pass the warning thresholds.
 
-:func:`sample_until_enough` runs PyMC's NUTS step method chain by chain in one process,
-keeping each chain's position, step size, mass matrix and random stream between blocks, so
+:func:`sample_until_enough` runs PyMC's NUTS step method on every chain, keeping each
+chain's position, step size, mass matrix and random streams between blocks, so
 that the next block continues the chains exactly where they stopped (true continuation, no
 second warm-up). After every block the caller's ``judge`` looks at all the draws so far and
 says whether they are enough (in bayeszi: every reported parameter's R-hat, bulk ESS and tail
@@ -13,8 +13,10 @@ as in ``pm.sample`` (one generator spawned per chain), and a chain's draws do no
 where the blocks fall, so a seeded run that stops after 600 draws holds the same draws as a
 fixed run of 600 draws through this function (see tests/test_until_enough.py).
 
-What it costs: the chains run one after the other in this process (no chain processes), and
-the judge runs once per block (an ArviZ summary, well under a second for the models here).
+What it costs: the judge runs once per block (an ArviZ summary, well under a second for the
+models here), and every block is a round trip to the chains. The chains run in worker
+processes (one per chain, forked after the compile) or one after the other in this process;
+:mod:`bayeszi.model.chains`.
 
 Example
 -------
@@ -37,6 +39,8 @@ import numpy as np
 import pymc as pm
 from pymc.backends.base import MultiTrace
 from pymc.backends.ndarray import NDArray
+
+from bayeszi.model.chains import open_chains
 
 #: why a run stopped, as the report says it
 STOP_ENOUGH = "enough"
@@ -78,13 +82,6 @@ class BlockRun:
     seconds: dict[str, float]
 
 
-@dataclass
-class _Chain:
-    point: dict
-    state: object
-    trace: NDArray
-
-
 def _start(model: pm.Model, chains: int, seed: int | None, acceptance_target: float,
            warmup_steps: int) -> tuple[list[dict], object, list[np.random.Generator]]:
     """Initial points, the NUTS step and one random stream per chain, as pm.sample makes
@@ -97,47 +94,17 @@ def _start(model: pm.Model, chains: int, seed: int | None, acceptance_target: fl
     return points, step, list(rngs)
 
 
-def _advance(step, chain: _Chain, n: int, tuning: bool) -> None:
-    """Run ``n`` iterations of one chain from its saved state, recording them unless
-    tuning, and save the state again."""
-    step.sampling_state = chain.state  # its random streams included
-    if not tuning:
-        chain.trace.setup(n, chain.trace.chain, step.stats_dtypes)
-    point = chain.point
-    for _ in range(n):
-        point, stats = step.step(point)
-        if not tuning:
-            chain.trace.record(point, stats, in_warmup=False)
-    chain.point, chain.state = point, step.sampling_state
+def _record(traces: list[NDArray], step, block: list[list]) -> None:
+    """Append one block of (point, stats) pairs per chain to the chains' traces."""
+    for i, (trace, records) in enumerate(zip(traces, block, strict=True)):
+        trace.setup(len(records), i, step.stats_dtypes)
+        for point, stats in records:
+            trace.record(point, stats, in_warmup=False)
 
 
-def _warm_up(model: pm.Model, step, points: list[dict], rngs: list[np.random.Generator],
-             warmup_steps: int) -> list[_Chain]:
-    """Each chain's warm-up (step size and mass matrix adapt), then tuning stops."""
-    fresh = step.sampling_state
-    out = []
-    for i, (point, rng) in enumerate(zip(points, rngs, strict=True)):
-        step.sampling_state = fresh
-        step.set_rng(rng)  # once per chain, as pm.sample: later blocks restore the streams
-        step.tune = True
-        step.reset_tuning()
-        if hasattr(step, "iter_count"):
-            step.iter_count = 0
-        chain = _Chain(point, step.sampling_state, NDArray(model=model, test_point=point))
-        chain.trace.chain = i
-        _advance(step, chain, warmup_steps, tuning=True)
-        step.sampling_state = chain.state
-        step.stop_tuning()
-        chain.state = step.sampling_state
-        out.append(chain)
-    return out
-
-
-def _as_idata(model: pm.Model, chains: list[_Chain]) -> az.InferenceData:
-    traces = []
-    for c in chains:
-        c.trace.close()
-        traces.append(c.trace)
+def _as_idata(model: pm.Model, traces: list[NDArray]) -> az.InferenceData:
+    for trace in traces:
+        trace.close()
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         idata = pm.to_inference_data(MultiTrace(traces), model=model, log_likelihood=False)
@@ -162,11 +129,14 @@ def _quiet():
 def sample_until_enough(model: pm.Model, *, chains: int, warmup_steps: int, plan: BlockPlan,
                         acceptance_target: float, seed: int | None,
                         judge: Callable[[az.InferenceData], bool] | None,
-                        on_block: Callable[[int, int], None] | None = None) -> BlockRun:
+                        on_block: Callable[[int, int], None] | None = None,
+                        processes: bool = False) -> BlockRun:
     """Warm up every chain, then draw blocks of ``plan.block`` per chain until ``judge``
     (given all draws so far) says they are enough or ``plan.limit`` draws per chain are
     drawn. ``judge=None`` draws exactly ``plan.limit`` (a fixed run through the same path).
     ``on_block(draws_so_far, limit)`` is told after each block (for a progress display).
+    ``processes=True`` runs each chain in its own worker process (same draws, chains at the
+    same time; :mod:`bayeszi.model.chains`).
 
     Example
     -------
@@ -180,25 +150,28 @@ def sample_until_enough(model: pm.Model, *, chains: int, warmup_steps: int, plan
     t0 = time.perf_counter()
     with model, _quiet():
         points, step, rngs = _start(model, chains, seed, acceptance_target, warmup_steps)
-        state = _warm_up(model, step, points, rngs, warmup_steps)
-        seconds["warmup_s"] = time.perf_counter() - t0
-        drawn, stop, blocks = 0, STOP_LIMIT if judge is not None else STOP_FIXED, 0
-        for size in plan.sizes():
-            t1 = time.perf_counter()
-            for chain in state:
-                _advance(step, chain, size, tuning=False)
-            drawn, blocks = drawn + size, blocks + 1
-            seconds["draws_s"] += time.perf_counter() - t1
-            if on_block is not None:
-                on_block(drawn, plan.limit)
-            if judge is not None and drawn < plan.limit:
-                t2 = time.perf_counter()
-                ok = judge(_as_idata(model, state))
-                seconds["judge_s"] += time.perf_counter() - t2
-                if ok:
-                    stop = STOP_ENOUGH
-                    break
-        idata = _as_idata(model, state)
+        runner = open_chains(step, points, rngs, warmup_steps, processes)
+        try:
+            traces = [NDArray(model=model, test_point=points[0]) for _ in points]
+            seconds["warmup_s"] = time.perf_counter() - t0
+            drawn, stop, blocks = 0, STOP_LIMIT if judge is not None else STOP_FIXED, 0
+            for size in plan.sizes():
+                t1 = time.perf_counter()
+                _record(traces, step, runner.draw(size))
+                drawn, blocks = drawn + size, blocks + 1
+                seconds["draws_s"] += time.perf_counter() - t1
+                if on_block is not None:
+                    on_block(drawn, plan.limit)
+                if judge is not None and drawn < plan.limit:
+                    t2 = time.perf_counter()
+                    ok = judge(_as_idata(model, traces))
+                    seconds["judge_s"] += time.perf_counter() - t2
+                    if ok:
+                        stop = STOP_ENOUGH
+                        break
+        finally:
+            runner.close()
+        idata = _as_idata(model, traces)
     if judge is not None and stop == STOP_LIMIT and judge(idata):
         stop = STOP_ENOUGH  # enough exactly at the limit
     return BlockRun(idata, drawn, stop, blocks, seconds)
