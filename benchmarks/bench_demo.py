@@ -81,11 +81,14 @@ def main() -> None:
     ap.add_argument("--repeat", type=int, default=2)
     ap.add_argument("--draws", type=int, default=None,
                     help="override the demo's draws (default: as the demo study says)")
+    ap.add_argument("--warmup-steps", type=int, default=None,
+                    help="override the demo's warm-up steps")
     ap.add_argument("--vector-figures", action="store_true",
                     help="also write SVG figures (as before they were made optional)")
     ap.add_argument("--out", default=None, help="write the results as JSON here")
     a = ap.parse_args()
     extra = ["--draws", str(a.draws)] if a.draws else []
+    extra += ["--warmup-steps", str(a.warmup_steps)] if a.warmup_steps else []
     extra += ["--vector-figures"] if a.vector_figures else []
     cache = tempfile.mkdtemp(prefix="bench-demo-cache-")
     runs = []
