@@ -122,6 +122,8 @@ def test_a_fit_says_how_many_draws_and_why(tmp_path):
     assert stop_reason(m.idata).startswith("enough" if passed else "limit")
     assert f"{draws} draws per chain" in stop_reason(m.idata)
     assert stop_reason(m.idata) in str(m)
+    if not passed:  # the warning says which setting to raise
+        assert any("raise draws_limit" in p for p in m.sampler_problems())
     again = bz.fit(df, **kw)
     np.testing.assert_array_equal(again.idata.posterior["counts_coef"].values,
                                   m.idata.posterior["counts_coef"].values)

@@ -37,7 +37,7 @@ from bayeszi.engine.record import FitRecord, Posterior
 from bayeszi.model.build import build_model
 from bayeszi.model.design import Design, build_design
 from bayeszi.model.diagnostics import Diagnostics, diagnose
-from bayeszi.model.enough import STOP_FIXED, BlockPlan, sample_until_enough
+from bayeszi.model.enough import STOP_FIXED, STOP_LIMIT, BlockPlan, sample_until_enough
 from bayeszi.model.priors import resolve
 from bayeszi.model.sample import run_nuts
 
@@ -122,6 +122,10 @@ def _diagnosed(idata: az.InferenceData, design: Design) -> Diagnostics:
     """The sampler diagnostics, with coefficients named by their terms' labels (what the
     warnings and tables show) instead of the formula's term names."""
     diag = diagnose(idata)
+    if idata.sample_stats.attrs.get("bayeszi_stop") == STOP_LIMIT:
+        diag = dataclasses.replace(diag, more_draws=(
+            f"The limit of {idata.posterior.sizes['draw']} draws per chain was reached; raise "
+            "draws_limit (--draws-limit) or run more chains"))
     keys = design.parameter_labels()
     if not keys:
         return diag

@@ -68,6 +68,9 @@ class Diagnostics:
     bad_ess: list[str] = field(default_factory=list)
     max_treedepth_hits: int = 0
     thresholds: Thresholds = field(default_factory=Thresholds)
+    #: what the low-ESS problem advises; a fit that drew until enough and hit its limit
+    #: says to raise the limit instead
+    more_draws: str = "Run more draws or chains"
 
     def problems(self) -> list[str]:
         """Plain-language descriptions of each sampler problem, with what to try."""
@@ -92,7 +95,7 @@ class Diagnostics:
         if self.bad_ess:
             out.append(
                 f"bulk or tail ESS below {th.ess:.0f} for {_short(self.bad_ess)}: too few "
-                "effective draws for stable intervals. Run more draws or chains"
+                f"effective draws for stable intervals. {self.more_draws}"
             )
         if self.max_treedepth_hits:
             out.append(
