@@ -88,6 +88,10 @@ def test_run_round_trip(small_run):
         assert (out / "figures" / f"{name}.svg").read_text(encoding="utf-8").lstrip() \
             .startswith("<?xml")
     assert sorted(p.name for p in (out / "fits").iterdir()) == ["poisson.nc", "zinb-reach.nc"]
+    models = pd.read_csv(out / "tables" / "models.csv")
+    # the small study fixes draws = 150: each model says so (draws until enough is off)
+    assert list(models["why sampling stopped"]) == ["fixed number of draws asked for"] * 2
+    assert list(models["draws per chain"]) == [150, 150]
     parent = out.parent
     assert not [p for p in os.listdir(parent) if ".partial-" in p or ".old-" in p]
 
