@@ -152,7 +152,7 @@ def test_priors_table_shows_labels_and_the_study_files_prior(report):
     rows = csv[csv["model"] == "zinb-reach"].set_index(["part", "term"])["prior"]
     assert rows[("counts", "substrate: silt (vs cobble)")] == "Normal, mean 0, sd 0.8"
     assert rows[("counts", "substrate: gravel (vs cobble)")] == "Normal, mean 0, sd 1"
-    assert rows[("counts", "group sd")] == "Half-normal, sd 1"
+    assert rows[("counts", "effects of every group: sd")] == "Half-normal, sd 1"
     assert not csv["term"].str.contains(r"\[T\.|C\(", regex=True).any()
 
 
