@@ -165,8 +165,8 @@ def test_public_names_survive_every_submodule_import():
     public function (a ``bayeszi/compare.py``, say) would replace ``bayeszi.compare`` once it
     is imported. After importing every module of the package and the old 0.1.0 paths, each
     public name is the object it was before, none but ``priors`` is a module, ``rank_models``,
-    ``fit_candidates`` and ``fit`` are the functions of their home modules, and each old path is the very module
-    at its new place."""
+    ``fit_candidates`` and ``fit`` are the functions of their home modules, and each old path
+    is the very module at its new place."""
     import importlib
     import types
     from pathlib import Path
