@@ -20,7 +20,9 @@ from bayeszi.answers import comparison as loo_answers
 from bayeszi.answers import contrast as contrast_answers
 from bayeszi.answers import groups as group_answers
 from bayeszi.answers import predict as predict_answers
+from bayeszi.answers import sensitivity as sensitivity_answers
 from bayeszi.base import names, options
+from bayeszi.base.errors import BayesziError
 from bayeszi.base.renamed import refusing_renamed
 from bayeszi.engine import archive
 from bayeszi.engine.record import FitRecord
@@ -71,8 +73,10 @@ class FittedModel(FitRecord):
 
         Rows are labelled by part and term; columns: posterior mean, sd, the central
         ``interval`` bounds, the exp scale (rate ratio for counts, odds ratio for zeros) with
-        its bounds, R-hat, bulk and tail ESS and a flag. Group sds (and correlations) and the
-        NB dispersion are listed too, without an exp scale.
+        its bounds, R-hat, bulk and tail ESS, a flag for sampler trouble and the ``prior
+        sensitivity`` reading ("prior-data conflict", "prior dominates" or "", see
+        :meth:`prior_sensitivity`). Group sds (and correlations) and the NB dispersion are
+        listed too, without an exp scale.
         """
         iv = options.interval_bounds(interval)
         rows: list[dict] = []
@@ -95,7 +99,44 @@ class FittedModel(FitRecord):
         table = pd.DataFrame(rows)
         th = self.sampling.thresholds
         table["flag"] = [_flag_for(r, th) for r in table.to_dict("records")]
-        return table.set_index(["part", "term"])
+        table = table.set_index(["part", "term"])
+        sens = self._sensitivity()
+        if sens is not None:
+            readings = sens.set_index(["part", "term"])[sensitivity_answers.READING]
+            table[sensitivity_answers.TABLE_COLUMN] = readings.reindex(table.index).fillna("")
+        return table
+
+    def prior_sensitivity(self) -> pd.DataFrame:
+        """Is the prior deciding the answer? Power-scaling sensitivity of every parameter.
+
+        One row per parameter of :meth:`coefficients` with its sensitivity to the prior and
+        to the data and the reading ("prior-data conflict", "prior dominates" or ""), at the
+        threshold 0.05 of Kallioinen et al. (2023). See
+        :func:`bayeszi.answers.sensitivity.prior_sensitivity` and docs/sensitivity.md.
+
+        Example
+        -------
+        >>> m.prior_sensitivity().query("reading != ''")          # doctest: +SKIP
+        """
+        return sensitivity_answers.prior_sensitivity(self)
+
+    def prior_problems(self) -> list[str]:
+        """Plain-language prior-sensitivity warnings, naming the terms (empty when none).
+
+        Example
+        -------
+        >>> m.prior_problems()                                    # doctest: +SKIP
+        []
+        """
+        sens = self._sensitivity()
+        return [] if sens is None else sensitivity_answers.sensitivity_problems(sens)
+
+    def _sensitivity(self) -> pd.DataFrame | None:
+        """:meth:`prior_sensitivity`, or None for a fit that holds no log prior."""
+        try:
+            return self.prior_sensitivity()
+        except BayesziError:
+            return None
 
     def __str__(self) -> str:
         return format_fit(self)
@@ -446,4 +487,11 @@ def format_fit(m: FittedModel) -> str:
         th = m.sampling.thresholds
         lines.append(f"Sampler: no divergences, all R-hat <= {th.rhat}, "
                      f"all ESS >= {th.ess:.0f}.")
+    prior = m.prior_problems()
+    if prior:
+        lines.append("Prior sensitivity warnings:")
+        lines.extend(f"  - {p}" for p in prior)
+    else:
+        lines.append(f"Prior sensitivity: no parameter reaches "
+                     f"{sensitivity_answers.THRESHOLD} (power-scaling, Kallioinen et al. 2023).")
     return "\n".join(lines)
