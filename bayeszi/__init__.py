@@ -41,6 +41,10 @@ _LAZY = {
     "average_contrast": "bayeszi.answers.averaged",
     "averaged_predictive_comparison": "bayeszi.answers.averaged",
     "fit_candidates": "bayeszi.fitting.candidates",
+    "preview": "bayeszi.fitting.preview",
+    "preview_candidates": "bayeszi.fitting.preview",
+    "preview_gap": "bayeszi.fitting.preview",
+    "Preview": "bayeszi.fitting.preview",
 }
 
 __all__ = ["BayesziError", "__version__", *sorted(_LAZY)]

@@ -25,7 +25,7 @@ from bayeszi.base import names, options
 from bayeszi.base.errors import BayesziError
 from bayeszi.base.renamed import refusing_renamed
 from bayeszi.engine import archive
-from bayeszi.engine.record import FitRecord
+from bayeszi.engine.record import FitRecord, Posterior
 from bayeszi.families import get_family
 from bayeszi.model.diagnostics import Diagnostics
 from bayeszi.plots import checkplots
@@ -78,25 +78,7 @@ class FittedModel(FitRecord):
         :meth:`prior_sensitivity`). Group sds (and correlations) and the NB dispersion are
         listed too, without an exp scale.
         """
-        iv = options.interval_bounds(interval)
-        rows: list[dict] = []
-        add = _RowAdder(rows, iv, self.sampling.table)
-        post = self.idata.posterior
-        for part, pdes in (("counts", self.design.counts), ("zeros", self.design.zeros)):
-            if pdes is None:
-                continue
-            var = post[names.coef(part)]
-            for term in pdes.terms:
-                add(part, term, var.sel({names.term_dim(part): term}).values,
-                    names.summary_key(names.coef(part), term),
-                    _label(part, self.spec.family, term))
-        if names.DISPERSION in post:
-            add("counts", "dispersion (alpha)", post[names.DISPERSION].values, names.DISPERSION,
-                None)
-        if groups:
-            for g in self.design.groups:
-                _group_rows(self, add, g.name)
-        table = pd.DataFrame(rows)
+        table = coefficient_rows(self, interval, groups, self.sampling.table)
         th = self.sampling.thresholds
         table["flag"] = [_flag_for(r, th) for r in table.to_dict("records")]
         table = table.set_index(["part", "term"])
@@ -401,6 +383,37 @@ class FittedModel(FitRecord):
         return archive.save(self, path)
 
 
+def coefficient_rows(fit: Posterior, interval: float = 0.9, groups: bool = True,
+                     diag: pd.DataFrame | None = None) -> pd.DataFrame:
+    """The rows of the coefficient table of any draws of a model (a fit, or a preview's
+    approximate draws), with the columns of ``diag`` (sampler diagnostics by parameter
+    key) where it has them; columns ``part`` and ``term`` not yet the index.
+
+    Example
+    -------
+    >>> coefficient_rows(fitted, 0.9).columns[:4].tolist()   # doctest: +SKIP
+    ['part', 'term', 'mean', 'sd']
+    """
+    iv = options.interval_bounds(interval)
+    rows: list[dict] = []
+    add = _RowAdder(rows, iv, pd.DataFrame() if diag is None else diag)
+    post = fit.idata.posterior
+    for part, pdes in (("counts", fit.design.counts), ("zeros", fit.design.zeros)):
+        if pdes is None:
+            continue
+        var = post[names.coef(part)]
+        for term in pdes.terms:
+            add(part, term, var.sel({names.term_dim(part): term}).values,
+                names.summary_key(names.coef(part), term), _label(part, fit.spec.family, term))
+    if names.DISPERSION in post:
+        add("counts", "dispersion (alpha)", post[names.DISPERSION].values, names.DISPERSION,
+            None)
+    if groups:
+        for g in fit.design.groups:
+            _group_rows(fit, add, g.name)
+    return pd.DataFrame(rows)
+
+
 class _RowAdder:
     """Appends one coefficient-table row per call: summaries of the draws, the exp scale
     when ``scale`` names it, and the diagnostics of ``key``."""
@@ -425,7 +438,7 @@ class _RowAdder:
         self.rows.append(row)
 
 
-def _group_rows(m: FitRecord, add: _RowAdder, group: str) -> None:
+def _group_rows(m: Posterior, add: _RowAdder, group: str) -> None:
     """The coefficient-table rows of one grouping column: sds (and correlation)."""
     post = m.idata.posterior
     for part in names.PARTS:
