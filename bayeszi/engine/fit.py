@@ -91,7 +91,10 @@ def rebuild_record(spec: ModelSpec, data: pd.DataFrame, idata: az.InferenceData,
     design = build_design(data, spec)
     priors = resolve(design, spec.priors)
     if logprior.GROUP not in idata.groups():  # saved before the log prior was kept
-        logprior.store_log_prior(idata, build_model(design, priors).model)
+        try:
+            logprior.store_log_prior(idata, build_model(design, priors).model)
+        except KeyError:  # draws lack a sampled variable: no sensitivity (it says why)
+            pass
     return FitRecord(spec, design, idata, priors, data[design.used_columns].copy(),
                      diagnose(idata), dict(timing or {}))
 

@@ -134,7 +134,7 @@ def collinearity_problems(table: pd.DataFrame) -> list[str]:
     []
     """
     out = []
-    for part, sub in table[table["flagged"]].groupby("part", sort=False):
+    for part, sub in table.loc[table["flagged"].astype(bool)].groupby("part", sort=False):
         named = "; ".join(
             f"{r['term']} (variance inflation {r['variance inflation']:.1f}"
             + (f", correlated with {r['correlated with']}" if r["correlated with"] else "")
