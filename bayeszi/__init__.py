@@ -44,7 +44,6 @@ _LAZY = {
     "preview": "bayeszi.fitting.preview",
     "preview_candidates": "bayeszi.fitting.preview",
     "preview_gap": "bayeszi.fitting.preview",
-    "Preview": "bayeszi.fitting.preview",
 }
 
 __all__ = ["BayesziError", "__version__", *sorted(_LAZY)]

@@ -22,6 +22,7 @@ from simulate import correlated_costs, simulate
 import bayeszi as bz
 from bayeszi.answers import sensitivity as S
 from bayeszi.base.errors import BayesziError, BayesziWarning
+from bayeszi.fitting.preview import Preview
 from bayeszi.model import collinearity as C
 from bayeszi.model.design import build_design
 
@@ -245,7 +246,7 @@ def test_preview_candidates_names_like_fit_candidates(poisson_data):
     ps = bz.preview_candidates(poisson_data, "y ~ x1", ["poisson", "zip"], zeros=["~ 1", "~ w"],
                                exposure="exposure", seed=1)
     assert list(ps) == ["poisson", "zip ~ 1", "zip ~ w"]
-    assert all(isinstance(p, bz.Preview) and p.seconds > 0 for p in ps.values())
+    assert all(isinstance(p, Preview) and p.seconds > 0 for p in ps.values())
 
 
 def test_preview_refuses_bad_draws(poisson_data):

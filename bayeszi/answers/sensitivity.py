@@ -171,6 +171,16 @@ def _names(rows: pd.DataFrame) -> str:
     return "; ".join(parts)
 
 
+def _scale_note(rows: pd.DataFrame) -> str:
+    """Advice for flagged rows that are not coefficients (the dispersion, group sds)."""
+    other = [t for t in rows["term"] if t == "dispersion (alpha)" or " effects: " in str(t)]
+    if not other:
+        return ""
+    return (f". For {', '.join(dict.fromkeys(other))}: the prior on it is informative at the "
+            "value the data suggest; state one you can defend (priors={'dispersion': ...} or "
+            "{'group_sd': ...}) or report that the data cannot settle it")
+
+
 def sensitivity_problems(table: pd.DataFrame) -> list[str]:
     """Plain-language warnings for the flagged rows of :func:`prior_sensitivity`, naming the
     terms and what to do (empty when nothing is flagged).
@@ -192,7 +202,7 @@ def sensitivity_problems(table: pd.DataFrame) -> list[str]:
             "what the data say: check whether correlated predictors share one effect "
             "(rethink or combine them), collect more data, or state a prior for these terms "
             "that you can defend (priors=...), and show how the answer changes; see "
-            "docs/sensitivity.md")
+            "docs/sensitivity.md" + _scale_note(conflict))
     dominated = table[table[READING] == DOMINATES]
     if len(dominated):
         out.append(
@@ -200,7 +210,7 @@ def sensitivity_problems(table: pd.DataFrame) -> list[str]:
             f"numbers (sensitivity to the prior at least {th}, to the data below it), so "
             "their posterior is mostly the prior. Collect more data on them, rethink "
             "predictors that carry the same information, or state and defend the prior you "
-            "use for them; see docs/sensitivity.md")
+            "use for them; see docs/sensitivity.md" + _scale_note(dominated))
     return out
 
 
