@@ -257,7 +257,7 @@ def test_one_chain_leaves_r_hat_blank_and_says_so() -> None:
     df = pd.DataFrame({"y": rng.poisson(2.0, 40), "x": rng.normal(size=40)})
     m, warned = fit_recording(df, counts="y ~ x", family="poisson", draws=100, warmup_steps=150,
                               chains=1, cores=1, seed=1, progressbar=False)
-    assert np.isnan(m.coefficients()["r_hat"]).all()
+    assert np.isnan(m.coefficients()["R-hat"]).all()
     assert any("only one chain" in w for w in warned)
     assert_honest(m, warned)
 

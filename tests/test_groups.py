@@ -382,7 +382,7 @@ def test_nested_crossed_correlated_varying_fit_and_agree_with_the_draws(cached_f
     table = m.coefficients()
     for g in ("reach", "season"):
         for part in ("counts", "zeros"):
-            assert np.isfinite(table.loc[(part, f"sd({g})"), "mean"])
+            assert np.isfinite(table.loc[(part, f"{g} effects: sd"), "mean"])
         assert -1 < table.loc[("both", f"{g} effects: counts-zeros correlation"), "mean"] < 1
         assert table.loc[("counts", f"{g} effects: sd of x slopes"), "mean"] > 0
     eff = m.group_effects()

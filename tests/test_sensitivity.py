@@ -109,7 +109,7 @@ def test_reading_follows_the_two_thresholds():
 # ============================================================================ real fits
 FIT = dict(counts="y ~ x1 + x2", zeros=None, family="poisson", exposure="exposure",
            draws=300, warmup_steps=300, chains=2, cores=1, seed=3, progressbar=False)
-CONFLICTING = {"counts": {"x1": ["normal", -0.5, 0.1]}}  # the data put x1 near 0.5 (truth)
+CONFLICTING = {"counts": {"x1": bz.priors.normal(mean=-0.5, sd=0.1)}}  # the data: x1 near 0.5
 
 
 @pytest.fixture(scope="module")
@@ -147,16 +147,16 @@ def test_log_prior_is_the_prior_density_and_survives_save_and_load(tiny_fit, tmp
     post, lp, pri = tiny_fit.idata.posterior, tiny_fit.idata.log_prior, tiny_fit.priors
     for j, term in enumerate(tiny_fit.design.counts.terms):
         p = pri.counts[term]
-        want = stats.norm.logpdf(post["counts_std_coef"].values[..., j], p.a, p.b)
+        want = stats.norm.logpdf(post["counts_std_coef"].values[..., j], p["mean"], p["sd"])
         np.testing.assert_allclose(lp["counts_std_coef"].values[..., j], want, rtol=1e-10)
     # PyTensor keeps the rate 3.0 as a float32 constant and takes its reciprocal in float32
     # (measured: differences up to 8e-8): log(scale) off by ~3e-8 and x / scale by ~3e-7 x,
     # so this one agrees to 1e-6 absolute for sqrt(dispersion) below 2
     x = post["dispersion_sqrt"].values
     assert x.max() < 2
-    want = stats.expon.logpdf(x, scale=1 / pri.dispersion.a)
+    want = stats.expon.logpdf(x, scale=1 / pri.dispersion["rate"])
     np.testing.assert_allclose(lp["dispersion_sqrt"].values, want, rtol=0, atol=1e-6)
-    want = stats.halfnorm.logpdf(post["counts_sd_g"].values, scale=pri.group_sd["counts"].a)
+    want = stats.halfnorm.logpdf(post["counts_sd_g"].values, scale=pri.group_sd["counts"]["sd"])
     np.testing.assert_allclose(lp["counts_sd_g"].values, want, rtol=1e-10)
     assert "counts_z_g" not in lp  # the group effects' own density is not power-scaled
     path = tiny_fit.save(str(tmp_path / "fit.nc"))
@@ -292,8 +292,8 @@ def test_correlated_costs_default_flags_and_wide_priors_do_not():
     rhs = "cost1 + cost2 + cost3 + age + dist"
     kw = dict(counts="y ~ " + rhs, zeros="~ " + rhs, family="hurdle-negbin", draws=1000,
               warmup_steps=1000, chains=2, cores=1, seed=1, progressbar=False)
-    wide = {p: {t: ["normal", 0, 10] for t in ("cost1", "cost2", "cost3", "age", "dist")}
-            for p in ("counts", "zeros")}
+    wide = {p: {t: bz.priors.normal(mean=0, sd=10)
+                for t in ("cost1", "cost2", "cost3", "age", "dist")} for p in ("counts", "zeros")}
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         default = bz.fit(df, **kw).prior_sensitivity()

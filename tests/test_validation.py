@@ -118,6 +118,19 @@ def test_text_response(df):
         design(df)
 
 
+def test_true_false_response_is_not_counts(df):
+    df["y"] = df["y"] > 0
+    with pytest.raises(bz.BayesziError, match=r"response column 'y' holds True/False: "
+                                              r"presence/absence.*Bernoulli.*astype\(int\)"):
+        design(df)
+
+
+def test_zero_one_response_warns_it_may_be_presence(df):
+    df["y"] = (df["y"] > 0).astype(int)
+    with pytest.warns(bz.BayesziWarning, match=r"only 0 and 1.*presence/absence"):
+        design(df)
+
+
 def test_no_zeros_hurdle_is_error(df):
     df["y"] = df["y"] + 1
     with pytest.raises(bz.BayesziError, match=r"no zeros.*hurdle"):
@@ -174,7 +187,7 @@ def test_unknown_prior_term(df):
     with pytest.raises(bz.BayesziError, match=r"unknown term.*'nope'"):
         from bayeszi.model.priors import resolve
 
-        resolve(design(df), {"counts": {"nope": ["normal", 0, 1]}})
+        resolve(design(df), {"counts": {"nope": bz.priors.normal(sd=1)}})
 
 
 def test_unseen_level_on_encode(df):

@@ -112,14 +112,15 @@ def power_scaling(log_prior: xr.DataArray | np.ndarray, log_lik: xr.DataArray | 
 
 
 def _parameters(fit: FitRecord) -> Iterator[tuple[str, str, str, Any]]:
-    """(part, term label, diagnostics key, draws) of each coefficient-table parameter."""
+    """(part, term label, diagnostics key, draws) of each coefficient-table parameter (terms
+    by their readable labels, as the coefficient table shows them)."""
     post = fit.idata.posterior
     for part, pdes in zip(names.PARTS, (fit.design.counts, fit.design.zeros), strict=True):
         if pdes is None:
             continue
         var = post[names.coef(part)]
-        for term in pdes.terms:
-            yield (part, term, names.summary_key(names.coef(part), term),
+        for term, label in zip(pdes.terms, pdes.labels, strict=True):
+            yield (part, label, names.summary_key(names.coef(part), label),
                    var.sel({names.term_dim(part): term}).values)
     if names.DISPERSION in post:
         yield "counts", "dispersion (alpha)", names.DISPERSION, post[names.DISPERSION].values

@@ -74,7 +74,7 @@ def _run(args: argparse.Namespace) -> int:
 
     study = load_study(args.study).with_sampler(**_overrides(args)).with_preview(args.preview)
     dest = run_study(study, args.out, command=args.command_line, progress=args.console,
-                     save_fits=args.save_fits)
+                     save_fits=args.save_fits, exact_refits=args.exact_refits or None)
     print(os.path.join(dest, "report.html"))
     return 0
 
@@ -165,7 +165,9 @@ def _report(args: argparse.Namespace) -> int:
 
     interval_bounds(args.interval, name="--interval")
     dest = report_saved(args.saved, args.out, command=args.command_line, title=args.title,
-                        interval=args.interval, progress=args.console)
+                        interval=args.interval, progress=args.console,
+                        exact_refits=args.exact_refits,
+                        residuals_against=args.residuals_against)
     print(os.path.join(dest, "report.html"))
     return 0
 
@@ -173,15 +175,16 @@ def _report(args: argparse.Namespace) -> int:
 # ---------------------------------------------------------------------- parser
 def _sampler_flags(p: argparse.ArgumentParser, defaults: bool) -> None:
     note = "" if defaults else " (default: as the study file says)"
-    p.add_argument("--draws", type=int, default=1000 if defaults else None,
+    p.add_argument("--draws", type=int, metavar="N", default=1000 if defaults else None,
                    help="posterior draws per chain" + (" (default: %(default)s)" if defaults
                                                        else note))
-    p.add_argument("--warmup-steps", type=int, default=1000 if defaults else None,
+    p.add_argument("--warmup-steps", type=int, metavar="N",
+                   default=1000 if defaults else None,
                    help="warm-up (adaptation) steps per chain"
                    + (" (default: %(default)s)" if defaults else note))
-    p.add_argument("--chains", type=int, default=2 if defaults else None,
+    p.add_argument("--chains", type=int, metavar="N", default=2 if defaults else None,
                    help="chains" + (" (default: %(default)s)" if defaults else note))
-    p.add_argument("--cores", type=int, default=None,
+    p.add_argument("--cores", type=int, metavar="N", default=None,
                    help="cores to run chains on (default: one per chain, up to the machine's)")
 
 
@@ -247,8 +250,9 @@ def _add_fit(sub: Any) -> None:
     f.add_argument("--offset", metavar="COLUMN", help="a ready-made log-offset column")
     f.add_argument("--groups", nargs="+", metavar="COLUMN", help="grouping column(s)")
     _sampler_flags(f, defaults=True)
-    f.add_argument("--acceptance-target", type=float, default=0.9,
-                   help="NUTS target acceptance (default: %(default)s)")
+    f.add_argument("--acceptance-target", type=float, default=0.9, metavar="P",
+                   help="the acceptance rate the warm-up tunes the step size to, in [0.5, 1); "
+                        "raise toward 0.99 after divergences (default: %(default)s)")
     f.add_argument("--seed", type=int, default=None, help="random seed")
     f.add_argument("--name", default=None, help="the model's name in later reports "
                    "(default: the family)")
@@ -291,6 +295,12 @@ def _add_report(sub: Any) -> None:
     rp.add_argument("--title", default=None, help="the report's title")
     rp.add_argument("--interval", type=float, default=0.9,
                     help="central interval in the tables (default: %(default)s)")
+    rp.add_argument("--exact-refits", action="store_true",
+                    help="refit each model without every record whose Pareto k is above 0.7 "
+                    "and use the exact leave-one-out value (each refit is a full fit)")
+    rp.add_argument("--residuals-against", default=None, metavar="COLUMN",
+                    help="bin the residuals by this column of the fitted data in the residual "
+                    "figure (default: the log of the expected count)")
     rp.add_argument("--quiet", action="store_true", help="no progress messages")
     rp.set_defaults(func=_report)
 
@@ -306,6 +316,9 @@ def _common_run_flags(p: argparse.ArgumentParser) -> None:
                    "else no)")
     p.add_argument("--save-fits", action="store_true",
                    help="also save every fit under DIR/fits/ (for predict and report)")
+    p.add_argument("--exact-refits", action="store_true",
+                   help="refit each model without every record whose Pareto k is above 0.7 "
+                   "and use the exact leave-one-out value (each refit is a full fit)")
     p.add_argument("--quiet", action="store_true", help="no progress messages")
 
 

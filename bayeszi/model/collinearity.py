@@ -41,6 +41,7 @@ import numpy as np
 import pandas as pd
 
 from bayeszi.base.errors import BayesziWarning
+from bayeszi.model.term_labels import TIMES, variable_of
 
 CORRELATION_LIMIT = 0.8
 """|correlation| of two predictors at or above which they are named (common practice)."""
@@ -55,17 +56,22 @@ __all__ = ["CORRELATION_LIMIT", "VIF_LIMIT", "collinearity", "collinearity_probl
 
 
 def _term_columns(pdes: Any) -> list[tuple[str, list[int]]]:
-    """(label, column indices) of each formula term of a part, intercept left out."""
+    """(label, column indices) of each formula term of a part, intercept left out: a
+    one-column term by its readable label, a factor by its column's name."""
     slices = getattr(getattr(pdes, "model_spec", None), "term_slices", None)
     out: list[tuple[str, list[int]]] = []
     if slices:
         for term, sl in slices.items():
             cols = [j for j in range(sl.start, sl.stop) if j != pdes.intercept]
-            if cols:
-                label = pdes.terms[cols[0]] if len(cols) == 1 else str(term)
-                out.append((label, cols))
+            if not cols:
+                continue
+            if len(cols) == 1:
+                label = pdes.labels[cols[0]]
+            else:
+                label = TIMES.join(variable_of(str(f)) for f in getattr(term, "factors", [term]))
+            out.append((label, cols))
         return out
-    return [(t, [j]) for j, t in enumerate(pdes.terms) if j != pdes.intercept]
+    return [(t, [j]) for j, t in enumerate(pdes.labels) if j != pdes.intercept]
 
 
 def _inflation(R: np.ndarray, idx: list[int], rest: list[int]) -> float:

@@ -134,6 +134,14 @@ def check_response(data: pd.DataFrame, column: str, zeros_kind: str | None) -> n
             f"response column {column!r} holds text ({s.dtype}); counts must be numbers. "
             "Convert it with pandas.to_numeric and check the rows that fail"
         )
+    if pd.api.types.is_bool_dtype(s):
+        raise BayesziError(
+            f"response column {column!r} holds True/False: presence/absence (detected or "
+            "not), not counts. bayeszi's families model counts 0, 1, 2, ...; a yes/no outcome "
+            "needs a Bernoulli (logistic) model, which bayeszi does not fit. If you have the "
+            "counts behind it, use them; if the column really is a count of 0 or 1, convert "
+            f"it with data[{column!r}].astype(int)"
+        )
     y = s.to_numpy(dtype=float)
     neg = y < 0
     if neg.any():
@@ -158,6 +166,15 @@ def check_response(data: pd.DataFrame, column: str, zeros_kind: str | None) -> n
         raise BayesziError(
             f"response column {column!r} is constant (every value is {y[0]:g}); there is "
             "nothing to model. Check the column and the rows selected"
+        )
+    if y.size >= 20 and y.max() == 1:
+        warnings.warn(
+            f"response column {column!r} holds only 0 and 1: if it records presence/absence "
+            "rather than counts, a count model is the wrong tool (use a Bernoulli/logistic "
+            "model); if these are real counts that never exceed 1, the count part is barely "
+            "identified and its dispersion rests on the prior",
+            BayesziWarning,
+            stacklevel=3,
         )
     if not np.any(y == 0):
         if zeros_kind == "hurdle":

@@ -18,6 +18,7 @@ import os
 from collections.abc import Callable, Sequence
 from typing import TYPE_CHECKING, Any
 
+from bayeszi.answers.comparison import refit_advice
 from bayeszi.app.report.context import ReportInput
 from bayeszi.app.report.document import Document
 from bayeszi.app.report.footer import footer_lines
@@ -77,12 +78,18 @@ def save_fit(fitted: FittedModel, path: str, provenance: dict[str, Any]) -> str:
         fitted.idata.posterior.attrs.pop(PROVENANCE_ATTR, None)
 
 
+#: How a report's reader asks for exact LOO refits (they ran a study, not Python).
+REFIT_ADVICE = ("set exact_refits = true in the study file's [study] table, or add "
+                "--exact-refits to bayeszi run or bayeszi report")
+
+
 def run_study(study: Study, out: str, command: str = "", progress: Progress = _quiet,
-              save_fits: bool = False) -> str:
+              save_fits: bool = False, exact_refits: bool | None = None) -> str:
     """Fit, compare, check and predict as ``study`` says; write the report folder ``out``.
 
     Nothing is sampled before the output folder, the data and every candidate and scenario
-    have been checked. With ``study.preview`` ``"first"`` every candidate is previewed
+    have been checked. ``exact_refits`` (None: as the study says) refits the rows of high
+    Pareto k exactly for LOO. With ``study.preview`` ``"first"`` every candidate is previewed
     (approximately, :mod:`bayeszi.fitting.preview`) before sampling and the report compares
     the previews with the posteriors; with ``"only"`` the folder holds the previews alone and
     nothing is sampled. Returns the absolute path of the finished folder.
@@ -120,14 +127,17 @@ def run_study(study: Study, out: str, command: str = "", progress: Progress = _q
             title=study.title, summary=study.summary, fits=fits, data=data,
             interval=study.interval, unit=study.exposure_unit, seed=study.seed,
             scenarios=study.scenarios, contrasts=study.contrasts, preferred=study.preferred,
-            predictions=study.predictions, provenance=provenance, notes=notes,
-            previews=previews)
+            predictions=study.predictions,
+            exact_refits=study.exact_refits if exact_refits is None else exact_refits,
+            residuals_against=study.residuals_against,
+            provenance=provenance, notes=notes, previews=previews)
         return _finish(inp, folder, progress)
 
 
 def _finish(inp: ReportInput, folder: OutputFolder, progress: Progress) -> str:
     progress("building the report ...")
-    doc, footer, warned = build_document(inp, progress=lambda s: progress(f"  {s}"))
+    with refit_advice(REFIT_ADVICE):
+        doc, footer, warned = build_document(inp, progress=lambda s: progress(f"  {s}"))
     for w in warned:
         progress(f"      warning: {' '.join(w.split())}")
     return _write(doc, footer, folder, progress)
@@ -179,17 +189,29 @@ def load_saved(paths: Sequence[str]) -> tuple[dict[str, FittedModel], dict[str, 
 
 
 def report_saved(paths: Sequence[str], out: str, command: str = "", title: str | None = None,
-                 interval: float = 0.9, progress: Progress = _quiet) -> str:
-    """Write a report folder ``out`` from saved fits (no scenarios: the study is not known)."""
+                 interval: float = 0.9, progress: Progress = _quiet,
+                 exact_refits: bool = False, residuals_against: str | None = None) -> str:
+    """Write a report folder ``out`` from saved fits (no scenarios: the study is not known).
+
+    ``exact_refits`` refits the rows of high Pareto k exactly for LOO; ``residuals_against``
+    names a column of the fitted data to bin the residuals by in the residual figure
+    (default: the log of the expected count).
+    """
     folder = OutputFolder(out)
     with folder:
         fits, provenance = load_saved(paths)
         provenance["command"] = command
         first = next(iter(fits.values()))
         data = first.data
+        if residuals_against is not None and residuals_against not in data.columns:
+            raise BayesziError(
+                f"residuals_against={residuals_against!r} is not a column of the fitted data "
+                f"(a saved fit keeps the columns its model uses); columns available: "
+                f"{list(map(str, data.columns))}")
         seeds = {f.spec.sampler.seed for f in fits.values()}
         inp = ReportInput(
             title=title or f"bayeszi report: {', '.join(fits)}", fits=fits, data=data,
             interval=interval, seed=seeds.pop() if len(seeds) == 1 else None,
+            exact_refits=exact_refits, residuals_against=residuals_against,
             provenance=provenance)
         return _finish(inp, folder, progress)
