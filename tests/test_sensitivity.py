@@ -242,6 +242,28 @@ def test_preview_means_lie_near_the_posterior_means(default_fit, poisson_data):
     assert str(p).startswith("PREVIEW, APPROXIMATE")
 
 
+def test_report_compares_previews_with_posteriors(default_fit, poisson_data):
+    """The report's preview section (study preview = "first"): the gap table is
+    preview_gap's, and the summary row gives both times and the largest gap."""
+    from bayeszi.app.report.context import ReportInput, build_context
+    from bayeszi.app.report.document import Table
+    from bayeszi.app.report.sections.preview import section_preview
+
+    p = bz.preview(poisson_data, counts=FIT["counts"], zeros=None, family="poisson",
+                   exposure="exposure", seed=3)
+    inp = ReportInput(title="t", fits={"poisson": default_fit}, data=poisson_data)
+    assert section_preview(build_context(inp)) is None  # no previews, no section
+    inp.previews = {"poisson": p}
+    section = section_preview(build_context(inp))
+    tables = {b.name: b.frame for b in section.blocks if isinstance(b, Table)}
+    pd.testing.assert_frame_equal(tables["preview_gap_poisson"], bz.preview_gap(p, default_fit))
+    row = tables["preview_summary"].iloc[0]
+    assert row["preview seconds"] == p.seconds
+    assert row["sampling seconds"] == default_fit.timing["sample_s"]
+    assert row["largest gap, coefficients (posterior sds)"] == pytest.approx(
+        tables["preview_gap_poisson"]["gap in sd"].abs().max())
+
+
 def test_preview_candidates_names_like_fit_candidates(poisson_data):
     ps = bz.preview_candidates(poisson_data, "y ~ x1", ["poisson", "zip"], zeros=["~ 1", "~ w"],
                                exposure="exposure", seed=1)
