@@ -40,6 +40,9 @@ _LAZY = {
     "average_contrast": "bayeszi.answers.averaged",
     "averaged_predictive_comparison": "bayeszi.answers.averaged",
     "fit_candidates": "bayeszi.fitting.candidates",
+    "preview": "bayeszi.fitting.preview",
+    "preview_candidates": "bayeszi.fitting.preview",
+    "preview_gap": "bayeszi.fitting.preview",
 }
 
 #: Public modules, loaded on first use: ``bz.priors.normal(mean=0, sd=1)``.

@@ -4,7 +4,9 @@ own random generators), shared by the tests.
 * :func:`simulate`: any of the six families, with known coefficients and site effects;
 * :func:`tiny_data`: a small zero-inflated frame for tests of messages and saved files (the
   ``tiny_fit`` fixture of tests/conftest.py fits a ZINB to it; hypothesis strategies draw
-  rows of it).
+  rows of it);
+* :func:`correlated_costs`: hurdle negative binomial records whose three "cost" predictors
+  are strongly correlated, with strong effects in both parts (prior sensitivity tests).
 
 Example
 -------
@@ -96,6 +98,33 @@ def tiny_data(n: int = 120, seed: int = 11) -> pd.DataFrame:
     mu = np.exp(0.2 + 0.5 * df["x"] + 0.3 * (df["f"] == "b") + np.log(df["e"]))
     extra = rng.random(n) < np.where(df["w"] == 1, 0.5, 0.15)
     df["y"] = np.where(extra, 0, rng.poisson(mu))
+    return df
+
+
+def correlated_costs(n: int = 300, seed: int = 3, rho: float = 0.92) -> pd.DataFrame:
+    """Hurdle negative binomial records (alpha 0.7) with three predictors ``cost1..cost3``
+    that share one common factor (pairwise correlation ``rho``; on different units) and two
+    independent ones (``age``, ``dist``). Both parts use all five, with strong effects of
+    the costs: per sd of each cost's own noise-free scale, log mean +1.1, -0.9, +0.8 and
+    logit P(Y = 0) +1.0, +0.9, -1.2."""
+    rng = np.random.default_rng(seed)
+    common = rng.normal(size=n)
+    c1, c2, c3 = (np.sqrt(rho) * common + np.sqrt(1 - rho) * rng.normal(size=n)
+                  for _ in range(3))
+    u1, u2 = rng.normal(size=n), rng.normal(size=n)
+    df = pd.DataFrame({"cost1": 10 + 2 * c1, "cost2": 50 + 5 * c2, "cost3": 3 + 0.5 * c3,
+                       "age": 40 + 10 * u1, "dist": 5 + 2 * u2})
+    mu = np.exp(1.0 + 1.1 * c1 - 0.9 * c2 + 0.8 * c3 + 0.3 * u1 - 0.2 * u2)
+    p0 = 1 / (1 + np.exp(-(-0.3 + 1.0 * c1 + 0.9 * c2 - 1.2 * c3 + 0.4 * u1)))
+    alpha = 0.7
+    y = np.zeros(n, dtype=np.int64)
+    todo = np.flatnonzero(rng.uniform(size=n) >= p0)
+    while todo.size:  # zero-truncated negative binomial by rejection
+        draw = rng.poisson(rng.gamma(1 / alpha, alpha * mu[todo]))
+        ok = draw > 0
+        y[todo[ok]] = draw[ok]
+        todo = todo[~ok]
+    df["y"] = y
     return df
 
 

@@ -181,4 +181,4 @@ def test_fit_saved_with_old_list_priors_loads_with_labels(tiny_fit, tmp_path):
     assert ("counts", "f: b (vs a)") in back.coefficients().index
     table = {(r["part"], r["term"]): r["prior"] for r in back.priors.table()}
     assert table[("counts", "f: b (vs a)")] == "Normal, mean 0, sd 1"
-    assert table[("zeros", "group sd")] == "Half-normal, sd 1.5"
+    assert table[("zeros", "effects of every group: sd")] == "Half-normal, sd 1.5"

@@ -30,7 +30,8 @@ from bayeszi.app.report.output import MARKER, OutputFolder
 # Short test fits raise sampler warnings on every API call; the report shows them already.
 pytestmark = pytest.mark.filterwarnings("ignore::bayeszi.model.validate.BayesziWarning")
 
-SECTIONS = ["data", "models", "diagnostics", "comparison", "coefficients", "groups",
+SECTIONS = ["data", "models", "diagnostics", "comparison", "coefficients", "sensitivity",
+            "groups",
             "zero-checks", "spread", "rootograms", "residuals", "zero-sources", "predictions",
             "reading", "cautions"]
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # the PNG file signature (PNG specification, sec. 5.2)
@@ -145,6 +146,23 @@ def test_coefficients_equal_the_api(report):
             assert list(page[col]) == [format_number(v) for v in api[col]], col
 
 
+def test_prior_sensitivity_equals_the_api(report):
+    for name in ("zinb-reach", "poisson"):
+        api = _fit(report, name).prior_sensitivity().reset_index(drop=True)
+        csv = pd.read_csv(report["out"] / "tables" / f"sensitivity_{name}.csv",
+                          keep_default_na=False, na_values=[""])
+        assert list(csv["term"]) == list(api["term"])
+        for col in ("sensitivity to prior", "sensitivity to data"):
+            np.testing.assert_allclose(csv[col].to_numpy(float), api[col].to_numpy(float),
+                                       rtol=1e-8, err_msg=f"{name} {col}")
+        assert list(csv["reading"].fillna("")) == list(api["reading"])
+        coef = pd.read_csv(report["out"] / "tables" / f"coefficients_{name}.csv",
+                           keep_default_na=False)
+        assert list(coef["prior sensitivity"]) == list(
+            _fit(report, name).coefficients()["prior sensitivity"])
+    assert "must be chosen and defended by a qualified person" in report["html"]
+
+
 def test_priors_table_shows_labels_and_the_study_files_prior(report):
     """The study gives "substrate: silt (vs cobble)" a prior by its label, as an inline
     table; the priors CSV shows it in words beside the default of the other level."""
@@ -152,7 +170,7 @@ def test_priors_table_shows_labels_and_the_study_files_prior(report):
     rows = csv[csv["model"] == "zinb-reach"].set_index(["part", "term"])["prior"]
     assert rows[("counts", "substrate: silt (vs cobble)")] == "Normal, mean 0, sd 0.8"
     assert rows[("counts", "substrate: gravel (vs cobble)")] == "Normal, mean 0, sd 1"
-    assert rows[("counts", "group sd")] == "Half-normal, sd 1"
+    assert rows[("counts", "effects of every group: sd")] == "Half-normal, sd 1"
     assert not csv["term"].str.contains(r"\[T\.|C\(", regex=True).any()
 
 

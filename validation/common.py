@@ -269,9 +269,9 @@ def fit(df: pd.DataFrame, family: str, groups: bool, prior: SimPrior, settings: 
     table = diag.table
     record = {
         "divergences": int(diag.divergences),
-        "max_rhat": float(table["r_hat"].max()),
-        "min_ess_bulk": float(table["ess_bulk"].min()),
-        "min_ess_tail": float(table["ess_tail"].min()),
+        "max_rhat": float(table["R-hat"].max()),
+        "min_ess_bulk": float(table["bulk ESS"].min()),
+        "min_ess_tail": float(table["tail ESS"].min()),
         "seconds": time.perf_counter() - t0,
         "warnings": " | ".join(sorted({str(w.message)[:120] for w in caught
                                        if issubclass(w.category, bz.BayesziWarning)})),

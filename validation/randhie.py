@@ -216,8 +216,8 @@ def bayes_fit(family: str, df: pd.DataFrame, draws: int, warmup_steps: int, seed
                    progressbar=False)
     diag = m.diagnostics()
     return m, {"divergences": int(diag.divergences),
-               "max_rhat": float(diag.table["r_hat"].max()),
-               "min_ess_bulk": float(diag.table["ess_bulk"].min()),
+               "max_rhat": float(diag.table["R-hat"].max()),
+               "min_ess_bulk": float(diag.table["bulk ESS"].min()),
                "seconds": time.perf_counter() - t0,
                "warnings": " | ".join(sorted({str(w.message)[:160] for w in caught
                                               if issubclass(w.category, bz.BayesziWarning)}))}

@@ -75,7 +75,7 @@ def _run(args: argparse.Namespace) -> int:
     from bayeszi.app.report import run_study
     from bayeszi.app.study import load_study
 
-    study = load_study(args.study).with_sampler(**_overrides(args))
+    study = load_study(args.study).with_sampler(**_overrides(args)).with_preview(args.preview)
     dest = run_study(study, args.out, command=args.command_line, progress=args.console,
                      save_fits=args.save_fits, exact_refits=args.exact_refits or None,
                      vector_figures=args.vector_figures or None)
@@ -322,7 +322,14 @@ def _vector_flag(p: argparse.ArgumentParser) -> None:
 
 
 def _common_run_flags(p: argparse.ArgumentParser) -> None:
+    from bayeszi.app.study import PREVIEWS
+
     _sampler_flags(p, defaults=False)
+    p.add_argument("--preview", choices=PREVIEWS, default=None,
+                   help="quick approximate preview of every model (Laplace approximation): "
+                   "'first' previews, then samples; 'only' previews and stops, writing the "
+                   "previews alone; 'no' samples at once (default: as the study file says, "
+                   "else no)")
     p.add_argument("--save-fits", action="store_true",
                    help="also save every fit under DIR/fits/ (for predict and report)")
     p.add_argument("--exact-refits", action="store_true",

@@ -43,7 +43,7 @@ from bayeszi.fitting.candidates import Candidate, CheckedCandidates, check_candi
 TOP_KEYS = ("study", "sampler", "model", "scenario", "contrast")
 STUDY_KEYS = ("title", "summary", "data", "response", "exposure", "offset", "exposure_unit",
               "groups", "nested", "seed", "interval", "preferred", "predictions",
-              "exact_refits", "residuals_against", "vector_figures")
+              "exact_refits", "residuals_against", "preview", "vector_figures")
 SAMPLER_KEYS = ("draws", "warmup_steps", "chains", "cores", "acceptance_target", "sampler",
                 "until_enough", "block_draws", "draws_limit")
 MODEL_KEYS = ("name", "family", "counts", "zeros", "groups", "varying", "nested",
@@ -54,6 +54,9 @@ CONTRAST_KEYS = ("name", "scenario", "change")
 #: values of ``predictions`` in [study]: every model's scenario predictions (the default),
 #: only those of the models averaged by their stacking weights, or both
 PREDICTIONS = ("models", "averaged", "both")
+#: values of ``preview`` in [study]: no preview (the default), a quick approximate preview of
+#: every candidate before sampling them, or the previews alone, without sampling
+PREVIEWS = ("no", "first", "only")
 SCENARIO_GROUPS = tuple(GROUP_MODES)
 _NAME = re.compile(r"^[A-Za-z0-9][^\x00-\x1f/\\]{0,79}$")
 
@@ -165,6 +168,7 @@ class Study:
     exact_refits: bool = False
     vector_figures: bool = False
     residuals_against: str | None = None
+    preview: str = "no"
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
     scenarios: tuple[Scenario, ...] = ()
     contrasts: tuple[Contrast, ...] = ()
@@ -276,6 +280,12 @@ class Study:
                     )
 
     # ------------------------------------------------------------------ overrides
+    def with_preview(self, preview: str | None) -> Study:
+        """A copy with the preview choice changed (``None`` keeps the study's)."""
+        if preview is None:
+            return self
+        return dataclasses.replace(self, preview=check_preview(preview, "--preview"))
+
     def with_sampler(self, **changes: Any) -> Study:
         """A copy with sampler settings changed (``None`` values are ignored)."""
         changes = {k: v for k, v in changes.items() if v is not None}
@@ -423,6 +433,7 @@ def parse_study(raw: Mapping[str, Any], path: str) -> Study:
         predictions=_predictions(st), exact_refits=_flag(st, "exact_refits"),
         vector_figures=_flag(st, "vector_figures"),
         residuals_against=_text(st.get("residuals_against"), "residuals_against", "[study]"),
+        preview=check_preview(st.get("preview", "no")),
         sampler=sampler, scenarios=tuple(scenarios), contrasts=tuple(contrasts),
     )
 
@@ -444,6 +455,21 @@ def _predictions(st: Mapping[str, Any]) -> str:
                            "'averaged' for the models averaged by their stacking weights, "
                            "'both' for both")
     return predictions
+
+
+def check_preview(value: Any, where: str = "'preview' in [study]") -> str:
+    """A checked preview choice (:data:`PREVIEWS`).
+
+    Example
+    -------
+    >>> check_preview("first")
+    'first'
+    """
+    if value not in PREVIEWS:
+        raise BayesziError(f"{where} must be one of {list(PREVIEWS)}, got {value!r}: 'no' to "
+                           "sample at once, 'first' for a quick approximate preview of every "
+                           "model before sampling, 'only' for the previews alone (no sampling)")
+    return str(value)
 
 
 def _seed_and_interval(st: Mapping[str, Any]) -> tuple[int | None, float]:

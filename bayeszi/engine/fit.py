@@ -1,9 +1,11 @@
 """From data and a spec to a finished :class:`~bayeszi.engine.record.FitRecord`.
 
 :func:`fit_record` builds the design and priors, builds and samples the model, adds the
-user-scale coefficients, computes the pointwise log-likelihood for LOO and diagnoses the
-draws, in that order, and returns a record with every field filled. :func:`rebuild_record`
-is the same record from saved parts (spec, data, draws), without sampling. Neither warns:
+user-scale coefficients, computes the pointwise log-likelihood for LOO and the log prior of
+every draw (for prior sensitivity, :mod:`bayeszi.engine.logprior`) and diagnoses the draws,
+in that order, and returns a record with every field filled. :func:`rebuild_record` is the
+same record from saved parts (spec, data, draws), without sampling; a saved fit without the
+log prior (written before it was kept) gets it computed there. Neither warns:
 the fitting layer decides what to tell the user.
 
 Example
@@ -31,7 +33,7 @@ import pymc as pm
 from bayeszi.base import names
 from bayeszi.base.errors import BayesziError
 from bayeszi.base.spec import ModelSpec, SamplerSettings
-from bayeszi.engine import loglik
+from bayeszi.engine import loglik, logprior
 from bayeszi.engine.pointwise import pattern_log_likelihood
 from bayeszi.engine.record import FitRecord, Posterior
 from bayeszi.model.build import build_model
@@ -54,10 +56,14 @@ def add_user_scale(idata: az.InferenceData, design: Design) -> None:
         post[names.coef(part)] = std.copy(data=pdes.to_user_scale(std.values))
 
 
-def fit_record(data: pd.DataFrame, spec: ModelSpec, prior_draws: int = 0) -> FitRecord:
-    """Sample ``spec`` on ``data`` and return the finished record (no warnings issued)."""
+def fit_record(data: pd.DataFrame, spec: ModelSpec, prior_draws: int = 0,
+               design: Design | None = None) -> FitRecord:
+    """Sample ``spec`` on ``data`` and return the finished record (no warnings issued).
+
+    ``design``: the design of ``spec`` on ``data`` when the caller built it already.
+    """
     t0 = time.perf_counter()
-    design = build_design(data, spec)
+    design = build_design(data, spec) if design is None else design
     priors = resolve(design, spec.priors)
     built = build_model(design, priors)
     t1 = time.perf_counter()
@@ -75,8 +81,10 @@ def fit_record(data: pd.DataFrame, spec: ModelSpec, prior_draws: int = 0) -> Fit
     pats = built.likelihood.patterns
     ll = pattern_log_likelihood(Posterior(spec, design, idata), pats)
     loglik.store(idata, ll, obs=list(built.model.coords["obs"]), inverse=pats.inverse)
-    timing = {"build_s": t1 - t0, "sample_s": t2 - t1,
-              "log_likelihood_s": time.perf_counter() - t3}
+    t4 = time.perf_counter()
+    logprior.store_log_prior(idata, built.model)
+    timing = {"build_s": t1 - t0, "sample_s": t2 - t1, "log_likelihood_s": t4 - t3,
+              "log_prior_s": time.perf_counter() - t4}
     return FitRecord(spec, design, idata, priors, data[design.used_columns].copy(),
                      _diagnosed(idata, design), timing)
 
@@ -139,6 +147,11 @@ def rebuild_record(spec: ModelSpec, data: pd.DataFrame, idata: az.InferenceData,
     """The record of a fit from its saved parts: the design is rebuilt from the data."""
     design = build_design(data, spec)
     priors = resolve(design, spec.priors)
+    if logprior.GROUP not in idata.groups():  # saved before the log prior was kept
+        try:
+            logprior.store_log_prior(idata, build_model(design, priors).model)
+        except KeyError:  # draws lack a sampled variable: no sensitivity (it says why)
+            pass
     return FitRecord(spec, design, idata, priors, data[design.used_columns].copy(),
                      _diagnosed(idata, design), dict(timing or {}))
 

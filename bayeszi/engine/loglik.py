@@ -43,7 +43,7 @@ import xarray as xr
 from scipy.special import logsumexp
 
 __all__ = ["LOO_CHUNK", "RECORD_LIMIT_BYTES", "loo", "n_records", "record_values",
-           "relative_efficiency", "store", "stored_per"]
+           "relative_efficiency", "store", "stored_per", "total"]
 
 #: Store per record while chains x draws x records float64 values take at most this many
 #: bytes (512 MiB: 2 chains x 1,000 draws x 33,500 records); per pattern above it.
@@ -130,6 +130,23 @@ def record_values(idata: az.InferenceData) -> np.ndarray:
     if PATTERN_DIM not in ll.dims:
         return np.asarray(ll.values)
     return np.asarray(ll.values)[..., idata.log_likelihood[INDEX_VAR].values]
+
+
+def total(idata: az.InferenceData) -> np.ndarray:
+    """The log-likelihood of all records per draw, dims (chain, draw), however it is stored
+    (per pattern, each pattern counts once per record it stands for).
+
+    Example
+    -------
+    >>> total(fitted.idata).shape                                 # doctest: +SKIP
+    (2, 1000)
+    """
+    ll = idata.log_likelihood["y"]
+    values = np.asarray(ll.values)
+    if PATTERN_DIM not in ll.dims:
+        return values.sum(axis=-1)
+    weights = np.bincount(idata.log_likelihood[INDEX_VAR].values, minlength=values.shape[-1])
+    return values @ weights.astype(float)
 
 
 def relative_efficiency(posterior: xr.Dataset) -> float:

@@ -20,6 +20,7 @@ import arviz as az
 import pandas as pd
 import pymc as pm
 
+from bayeszi.answers.sensitivity import warn_about_priors
 from bayeszi.base.errors import BayesziError
 from bayeszi.base.renamed import refuse_renamed, refusing_renamed
 from bayeszi.base.spec import ModelSpec, SamplerSettings
@@ -27,6 +28,7 @@ from bayeszi.engine import archive
 from bayeszi.engine.fit import fit_record
 from bayeszi.fitting.fitted import FittedModel
 from bayeszi.model.build import build_model
+from bayeszi.model.collinearity import warn_collinear
 from bayeszi.model.design import build_design
 from bayeszi.model.diagnostics import warn_about
 from bayeszi.model.priors import resolve
@@ -113,15 +115,24 @@ def fit(data: pd.DataFrame, counts: str, zeros: str | None = "~ 1", family: str 
 
 
 def fit_spec(data: pd.DataFrame, spec: ModelSpec, prior_draws: int = 0) -> FittedModel:
-    """Fit a ready :class:`ModelSpec` to ``data`` (see :func:`fit`)."""
+    """Fit a ready :class:`ModelSpec` to ``data`` (see :func:`fit`).
+
+    Before sampling, collinear predictors are named in a warning
+    (:mod:`bayeszi.model.collinearity`); after it, sampler trouble
+    (:mod:`bayeszi.model.diagnostics`) and parameters whose prior decides the answer
+    (:mod:`bayeszi.answers.sensitivity`).
+    """
     if not isinstance(spec, ModelSpec):
         raise BayesziError(f"fit_spec() needs a ModelSpec (see bayeszi.make_spec), got "
                            f"{type(spec).__name__}")
     if isinstance(prior_draws, bool) or not isinstance(prior_draws, int) or prior_draws < 0:
         raise BayesziError(f"prior_draws must be a non-negative whole number, got "
                            f"{prior_draws!r}")
-    record = fit_record(data, spec, prior_draws=prior_draws)
+    design = build_design(data, spec)
+    warn_collinear(design)  # before sampling: the usual cause of a weak likelihood
+    record = fit_record(data, spec, prior_draws=prior_draws, design=design)
     warn_about(record.sampling)
+    warn_about_priors(record)
     return FittedModel.from_record(record)
 
 

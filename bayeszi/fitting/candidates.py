@@ -43,6 +43,7 @@ from bayeszi.base.spec import ModelSpec
 from bayeszi.families import FAMILY_NAMES, get_family
 from bayeszi.fitting import api
 from bayeszi.fitting.fitted import FittedModel
+from bayeszi.model.collinearity import warn_collinear
 from bayeszi.model.design import Design, build_design
 from bayeszi.model.priors import resolve
 from bayeszi.model.validate import check_frame
@@ -261,8 +262,9 @@ def check_candidates(data: pd.DataFrame, candidates: Sequence[Candidate],
     """Build every candidate's design and priors before any sampling.
 
     A problem is a :class:`BayesziError` prefixed with ``noun`` and the candidate's name
-    (``"candidate 'zip': ..."``). Each data warning is shown once, naming the candidates it
-    concerns unless it concerns all of them.
+    (``"candidate 'zip': ..."``). Each data warning, collinear predictors included
+    (:mod:`bayeszi.model.collinearity`), is shown once, naming the candidates it concerns
+    unless it concerns all of them.
 
     Example
     -------
@@ -279,6 +281,7 @@ def check_candidates(data: pd.DataFrame, candidates: Sequence[Candidate],
             try:
                 designs[c.name] = build_design(data, c.spec)
                 resolve(designs[c.name], c.spec.priors)
+                warn_collinear(designs[c.name])
             except BayesziError as err:
                 raise BayesziError(f"{noun} {c.name!r}: {err}") from None
         for w in caught:

@@ -20,10 +20,12 @@ from bayeszi.answers import comparison as loo_answers
 from bayeszi.answers import contrast as contrast_answers
 from bayeszi.answers import groups as group_answers
 from bayeszi.answers import predict as predict_answers
+from bayeszi.answers import sensitivity as sensitivity_answers
 from bayeszi.base import names, options
+from bayeszi.base.errors import BayesziError
 from bayeszi.base.renamed import refusing_renamed
 from bayeszi.engine import archive
-from bayeszi.engine.record import FitRecord
+from bayeszi.engine.record import FitRecord, Posterior
 from bayeszi.families import get_family
 from bayeszi.model.diagnostics import Diagnostics
 from bayeszi.model.enough import stop_reason
@@ -73,31 +75,52 @@ class FittedModel(FitRecord):
         Rows are labelled by part and term (its readable label, e.g. ``substrate: gravel
         (vs cobble)``; see :mod:`bayeszi.model.term_labels`); columns: posterior mean, sd, the
         central ``interval`` bounds, the exp scale (rate ratio for counts, odds ratio for
-        zeros) with its bounds, R-hat, bulk and tail ESS and a flag. Group sds (and
-        correlations) and the NB dispersion are listed too, without an exp scale.
+        zeros) with its bounds, R-hat, bulk and tail ESS, a flag for sampler trouble and the
+        ``prior sensitivity`` reading ("prior-data conflict", "prior dominates" or "", see
+        :meth:`prior_sensitivity`). Group sds (and correlations) and the NB dispersion are
+        listed too, without an exp scale.
         """
-        iv = options.interval_bounds(interval)
-        rows: list[dict] = []
-        add = _RowAdder(rows, iv, self.sampling.table)
-        post = self.idata.posterior
-        for part, pdes in (("counts", self.design.counts), ("zeros", self.design.zeros)):
-            if pdes is None:
-                continue
-            var = post[names.coef(part)]
-            for term, label in zip(pdes.terms, pdes.labels, strict=True):
-                add(part, label, var.sel({names.term_dim(part): term}).values,
-                    names.summary_key(names.coef(part), label),
-                    _label(part, self.spec.family, term))
-        if names.DISPERSION in post:
-            add("counts", "dispersion (alpha)", post[names.DISPERSION].values, names.DISPERSION,
-                None)
-        if groups:
-            for g in self.design.groups:
-                _group_rows(self, add, g.name)
-        table = pd.DataFrame(rows)
+        table = coefficient_rows(self, interval, groups, self.sampling.table)
         th = self.sampling.thresholds
         table["flag"] = [_flag_for(r, th) for r in table.to_dict("records")]
-        return table.set_index(["part", "term"])
+        table = table.set_index(["part", "term"])
+        sens = self._sensitivity()
+        if sens is not None:
+            readings = sens.set_index(["part", "term"])[sensitivity_answers.READING]
+            table[sensitivity_answers.TABLE_COLUMN] = readings.reindex(table.index).fillna("")
+        return table
+
+    def prior_sensitivity(self) -> pd.DataFrame:
+        """Is the prior deciding the answer? Power-scaling sensitivity of every parameter.
+
+        One row per parameter of :meth:`coefficients` with its sensitivity to the prior and
+        to the data and the reading ("prior-data conflict", "prior dominates" or ""), at the
+        threshold 0.05 of Kallioinen et al. (2023). See
+        :func:`bayeszi.answers.sensitivity.prior_sensitivity` and docs/sensitivity.md.
+
+        Example
+        -------
+        >>> m.prior_sensitivity().query("reading != ''")          # doctest: +SKIP
+        """
+        return sensitivity_answers.prior_sensitivity(self)
+
+    def prior_problems(self) -> list[str]:
+        """Plain-language prior-sensitivity warnings, naming the terms (empty when none).
+
+        Example
+        -------
+        >>> m.prior_problems()                                    # doctest: +SKIP
+        []
+        """
+        sens = self._sensitivity()
+        return [] if sens is None else sensitivity_answers.sensitivity_problems(sens)
+
+    def _sensitivity(self) -> pd.DataFrame | None:
+        """:meth:`prior_sensitivity`, or None for a fit that holds no log prior."""
+        try:
+            return self.prior_sensitivity()
+        except BayesziError:
+            return None
 
     def __str__(self) -> str:
         return format_fit(self)
@@ -373,6 +396,37 @@ class FittedModel(FitRecord):
         return archive.save(self, path)
 
 
+def coefficient_rows(fit: Posterior, interval: float = 0.9, groups: bool = True,
+                     diag: pd.DataFrame | None = None) -> pd.DataFrame:
+    """The rows of the coefficient table of any draws of a model (a fit, or a preview's
+    approximate draws), with the columns of ``diag`` (sampler diagnostics by parameter
+    key) where it has them; columns ``part`` and ``term`` not yet the index.
+
+    Example
+    -------
+    >>> coefficient_rows(fitted, 0.9).columns[:4].tolist()   # doctest: +SKIP
+    ['part', 'term', 'mean', 'sd']
+    """
+    iv = options.interval_bounds(interval)
+    rows: list[dict] = []
+    add = _RowAdder(rows, iv, pd.DataFrame() if diag is None else diag)
+    post = fit.idata.posterior
+    for part, pdes in (("counts", fit.design.counts), ("zeros", fit.design.zeros)):
+        if pdes is None:
+            continue
+        var = post[names.coef(part)]
+        for term, label in zip(pdes.terms, pdes.labels, strict=True):
+            add(part, label, var.sel({names.term_dim(part): term}).values,
+                names.summary_key(names.coef(part), label), _label(part, fit.spec.family, term))
+    if names.DISPERSION in post:
+        add("counts", "dispersion (alpha)", post[names.DISPERSION].values, names.DISPERSION,
+            None)
+    if groups:
+        for g in fit.design.groups:
+            _group_rows(fit, add, g.name)
+    return pd.DataFrame(rows)
+
+
 class _RowAdder:
     """Appends one coefficient-table row per call: summaries of the draws, the exp scale
     when ``scale`` names it, and the diagnostics of ``key``."""
@@ -397,7 +451,7 @@ class _RowAdder:
         self.rows.append(row)
 
 
-def _group_rows(m: FitRecord, add: _RowAdder, group: str) -> None:
+def _group_rows(m: Posterior, add: _RowAdder, group: str) -> None:
     """The coefficient-table rows of one grouping column: sds (and correlation)."""
     post = m.idata.posterior
     for part in names.PARTS:
@@ -460,4 +514,11 @@ def format_fit(m: FittedModel) -> str:
         th = m.sampling.thresholds
         lines.append(f"Sampler: no divergences, all R-hat <= {th.rhat}, "
                      f"all ESS >= {th.ess:.0f}.")
+    prior = m.prior_problems()
+    if prior:
+        lines.append("Prior sensitivity warnings:")
+        lines.extend(f"  - {p}" for p in prior)
+    else:
+        lines.append(f"Prior sensitivity: no parameter reaches "
+                     f"{sensitivity_answers.THRESHOLD} (power-scaling, Kallioinen et al. 2023).")
     return "\n".join(lines)

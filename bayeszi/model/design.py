@@ -583,6 +583,17 @@ def _check_slopes_vary(pdes: PartDesign | None, terms: tuple[str, ...],
                 )
 
 
+def _where_indicator(label: str, value: float) -> str:
+    """Which records a 0/1 column of the design picks, in words.
+
+    >>> _where_indicator("w", 1.0), _where_indicator("substrate: silt (vs cobble)", 0.0)
+    ('with w = 1', "outside 'substrate: silt (vs cobble)'")
+    """
+    if ":" not in label:  # a 0/1 predictor as written in the formula
+        return f"with {label} = {value:g}"
+    return f"in {label!r}" if value == 1 else f"outside {label!r}"
+
+
 def _check_separation(y: np.ndarray, counts: PartDesign, zeros: PartDesign | None,
                       zeros_kind: str | None) -> None:
     """Warn when single terms separate the records so that a coefficient is not identified.
@@ -606,9 +617,9 @@ def _check_separation(y: np.ndarray, counts: PartDesign, zeros: PartDesign | Non
                     z = zero[x == v]
                     if z.size and (z.all() or not z.any()):
                         kind = "zero" if z.all() else "non-zero"
-                        notes.append(f"zeros-part term {label!r}: every record where it is "
-                                     f"{v:g} is {kind}, so {what} there is pushed to "
-                                     f"{1 if z.all() else 0}")
+                        notes.append(f"zeros-part term {label!r}: every record "
+                                     f"{_where_indicator(label, v)} is {kind}, so {what} "
+                                     f"there is pushed to {1 if z.all() else 0}")
                         break
             else:
                 lo0, hi0 = x[zero].min(), x[zero].max()
@@ -622,8 +633,9 @@ def _check_separation(y: np.ndarray, counts: PartDesign, zeros: PartDesign | Non
             continue
         x = counts.X[:, j]
         if np.all((x == 0) | (x == 1)) and (x == 1).any() and zero[x == 1].all():
-            notes.append(f"counts-part term {label!r}: every record where it is 1 is zero, so "
-                         "its rate ratio is pushed toward 0")
+            notes.append(f"counts-part term {label!r}: every record "
+                         f"{_where_indicator(label, 1.0)} is zero, so its rate ratio is pushed "
+                         "toward 0")
     if notes:
         warnings.warn(
             "perfect separation: " + "; ".join(notes[:5])

@@ -37,7 +37,7 @@ from typing import Any
 import numpy as np
 
 from bayeszi.base.errors import BayesziError
-from bayeszi.base.names import zero_mechanism
+from bayeszi.base.names import ALL_GROUPS_SD_LABEL, zero_mechanism
 from bayeszi.model.distributions import (
     PARAMETERS,
     REAL_LINE,
@@ -128,7 +128,7 @@ class PriorSet:
                 rows.append({"part": part, "term": shown.get(term, term), "prior": str(p)})
         rows.append({"part": "counts", "term": "sqrt(dispersion)", "prior": str(self.dispersion)})
         for part, p in self.group_sd.items():
-            rows.append({"part": part, "term": "group sd", "prior": str(p)})
+            rows.append({"part": part, "term": ALL_GROUPS_SD_LABEL, "prior": str(p)})
         return rows
 
 

@@ -29,6 +29,7 @@ from bayeszi.answers.comparison import WEIGHT, LooEstimate, loo, rank_models
 if TYPE_CHECKING:
     from bayeszi.app.study import Contrast, Scenario
     from bayeszi.fitting.fitted import FittedModel
+    from bayeszi.fitting.preview import Preview
 
 #: Warnings left out of the report because another section already says the same.
 REDUNDANT = ("these answers rest on posterior draws with sampler problems",)
@@ -41,7 +42,8 @@ class ReportInput:
     ``fits`` maps model names to fitted models, in the order the study lists them;
     ``data`` is the data frame they were fitted to. ``provenance`` holds the reproducibility
     facts (``data_path``, ``data_sha256``, ``study_path``, ``study_sha256``, ``command``,
-    ``saved_fits``); ``notes`` holds warnings raised while fitting, per model.
+    ``saved_fits``); ``notes`` holds warnings raised while fitting, per model; ``previews``
+    the approximate previews made before sampling, per model (none unless asked for).
     ``predictions`` says whose scenario predictions the report shows: ``"models"`` (each
     model's), ``"averaged"`` (the models averaged by their stacking weights) or ``"both"``.
     ``residuals_against`` names the column of ``data`` that the residual figure bins the
@@ -68,6 +70,7 @@ class ReportInput:
     residuals_against: str | None = None
     provenance: dict[str, Any] = field(default_factory=dict)
     notes: dict[str, list[str]] = field(default_factory=dict)
+    previews: Mapping[str, Preview] = field(default_factory=dict)
 
     @property
     def first(self) -> FittedModel:

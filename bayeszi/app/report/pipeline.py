@@ -20,11 +20,15 @@ from typing import TYPE_CHECKING, Any
 
 from bayeszi.answers.comparison import refit_advice
 from bayeszi.app.report.context import ReportInput
+from bayeszi.app.report.document import Document
+from bayeszi.app.report.footer import footer_lines
 from bayeszi.app.report.output import OutputFolder
 from bayeszi.app.report.sections import build_document
+from bayeszi.app.report.sections.preview import preview_document
 from bayeszi.app.report.write import REPORT_NAME, slug, write_document
 from bayeszi.base.errors import BayesziError
 from bayeszi.fitting.candidates import fit_each
+from bayeszi.fitting.preview import preview_each
 
 if TYPE_CHECKING:
     from bayeszi.app.study import Study
@@ -103,8 +107,11 @@ def run_study(study: Study, out: str, command: str = "", progress: Progress = _q
 
     Nothing is sampled before the output folder, the data and every candidate and scenario
     have been checked. ``exact_refits`` (None: as the study says) refits the rows of high
-    Pareto k exactly for LOO. ``vector_figures`` (None: as the study says) also writes every
-    figure as SVG. Returns the absolute path of the finished folder.
+    Pareto k exactly for LOO. With ``study.preview`` ``"first"`` every candidate is previewed
+    (approximately, :mod:`bayeszi.fitting.preview`) before sampling and the report compares
+    the previews with the posteriors; with ``"only"`` the folder holds the previews alone and
+    nothing is sampled. ``vector_figures`` (None: as the study says) also writes every figure
+    as SVG. Returns the absolute path of the finished folder.
     """
     folder = OutputFolder(out)  # fails before any work when out cannot be written
     with folder:
@@ -112,13 +119,20 @@ def run_study(study: Study, out: str, command: str = "", progress: Progress = _q
         checked = study.check(data)
         progress(f"{study.title}: {len(data)} records from {os.path.basename(study.data_path)}, "
                  f"{len(study.candidates)} candidate model(s)")
-        run = fit_each(data, checked, _StudyProgress(study, progress))
-        fits, notes = run.fits, run.warnings
         provenance: dict[str, Any] = {
             "data_path": study.data_path, "data_sha256": study.data_sha256(),
             "study_path": study.path, "study_sha256": study.study_sha256(),
             "command": command,
         }
+        previews = {}
+        if study.preview in ("first", "only"):
+            previews = preview_each(data, checked, progress)
+        if study.preview == "only":
+            doc = preview_document(study.title, study.summary, previews, study.interval)
+            return _write(doc, footer_lines(provenance, {}, study.seed), folder, progress,
+                          study.vector_figures if vector_figures is None else vector_figures)
+        run = fit_each(data, checked, _StudyProgress(study, progress))
+        fits, notes = run.fits, run.warnings
         if save_fits:
             from bayeszi.app.study import sha256_of
 
@@ -136,7 +150,7 @@ def run_study(study: Study, out: str, command: str = "", progress: Progress = _q
             predictions=study.predictions,
             exact_refits=study.exact_refits if exact_refits is None else exact_refits,
             residuals_against=study.residuals_against,
-            provenance=provenance, notes=notes)
+            provenance=provenance, notes=notes, previews=previews)
         vector = study.vector_figures if vector_figures is None else vector_figures
         return _finish(inp, folder, progress, vector)
 
@@ -148,6 +162,13 @@ def _finish(inp: ReportInput, folder: OutputFolder, progress: Progress,
         doc, footer, warned = build_document(inp, progress=lambda s: progress(f"  {s}"))
     for w in warned:
         progress(f"      warning: {' '.join(w.split())}")
+    return _write(doc, footer, folder, progress, vector)
+
+
+def _write(doc: Document, footer: Sequence[str], folder: OutputFolder, progress: Progress,
+           vector: bool = False) -> str:
+    """Write ``doc`` into ``folder`` (SVG figures too when ``vector``), move it into place
+    and return where it went."""
     files = write_document(doc, folder, footer, vector=vector)
     dest = folder.commit()
     progress(f"report written: {os.path.join(dest, REPORT_NAME)} ({len(files)} files)")

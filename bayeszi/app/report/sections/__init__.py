@@ -35,9 +35,11 @@ from bayeszi.app.report.sections.diagnostics import section_diagnostics
 from bayeszi.app.report.sections.groups import section_groups
 from bayeszi.app.report.sections.models import section_models
 from bayeszi.app.report.sections.predictions import section_predictions
+from bayeszi.app.report.sections.preview import section_preview
 from bayeszi.app.report.sections.reading import section_reading
 from bayeszi.app.report.sections.residuals import section_residuals
 from bayeszi.app.report.sections.rootograms import section_rootograms
+from bayeszi.app.report.sections.sensitivity import section_sensitivity
 from bayeszi.app.report.sections.spread import section_spread
 from bayeszi.app.report.sections.zero_checks import section_zero_checks
 from bayeszi.app.report.sections.zero_sources import section_zero_sources
@@ -47,9 +49,9 @@ SectionFn = Callable[[ReportContext], Section | None]
 #: The sections in page order.
 SECTIONS: tuple[SectionFn, ...] = (
     section_data, section_models, section_diagnostics, section_comparison,
-    section_coefficients, section_groups, section_zero_checks, section_spread,
-    section_rootograms, section_residuals, section_zero_sources, section_predictions,
-    section_reading, section_cautions,
+    section_coefficients, section_sensitivity, section_preview, section_groups,
+    section_zero_checks, section_spread, section_rootograms, section_residuals,
+    section_zero_sources, section_predictions, section_reading, section_cautions,
 )
 
 
