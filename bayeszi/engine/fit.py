@@ -36,6 +36,7 @@ from bayeszi.model.build import build_model
 from bayeszi.model.design import Design, build_design
 from bayeszi.model.diagnostics import diagnose
 from bayeszi.model.priors import resolve
+from bayeszi.model.reuse import attach_active
 from bayeszi.model.sample import run_nuts
 
 INTERRUPTED = "sampling interrupted: nothing was kept or written; rerun fit() to start again"
@@ -58,6 +59,7 @@ def fit_record(data: pd.DataFrame, spec: ModelSpec, prior_draws: int = 0) -> Fit
     priors = resolve(design, spec.priors)
     built = build_model(design, priors)
     t1 = time.perf_counter()
+    attach_active(built.model)  # a compiled density reused across strata, when one is active
     idata = _sample_or_interrupt(built.model, spec.sampler, built.n_rows)
     t2 = time.perf_counter()
     add_user_scale(idata, design)

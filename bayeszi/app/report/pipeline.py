@@ -18,6 +18,8 @@ import os
 from collections.abc import Callable, Sequence
 from typing import TYPE_CHECKING, Any
 
+import pandas as pd
+
 from bayeszi.app.report.context import ReportInput
 from bayeszi.app.report.output import OutputFolder
 from bayeszi.app.report.sections import build_document
@@ -74,24 +76,32 @@ def save_fit(fitted: FittedModel, path: str, provenance: dict[str, Any]) -> str:
 
 
 def run_study(study: Study, out: str, command: str = "", progress: Progress = _quiet,
-              save_fits: bool = False) -> str:
+              save_fits: bool = False, data: pd.DataFrame | None = None,
+              provenance: dict[str, Any] | None = None,
+              inspect: Callable[[dict[str, FittedModel]], None] | None = None) -> str:
     """Fit, compare, check and predict as ``study`` says; write the report folder ``out``.
 
     Nothing is sampled before the output folder, the data and every candidate and scenario
-    have been checked. Returns the absolute path of the finished folder.
+    have been checked. Returns the absolute path of the finished folder. ``data`` replaces
+    the study's data file (one stratum's rows, say); ``provenance`` adds to the footer's
+    facts; ``inspect`` is called with the fits before the report is built.
     """
     folder = OutputFolder(out)  # fails before any work when out cannot be written
     with folder:
-        data = study.load_data()
+        given = data is not None
+        data = study.load_data() if data is None else data
         checked = study.check(data)
-        progress(f"{study.title}: {len(data)} records from {os.path.basename(study.data_path)}, "
+        source = "given" if given else os.path.basename(study.data_path)
+        progress(f"{study.title}: {len(data)} records from {source}, "
                  f"{len(study.candidates)} candidate model(s)")
         run = fit_each(data, checked, _StudyProgress(study, progress))
         fits, notes = run.fits, run.warnings
-        provenance: dict[str, Any] = {
+        if inspect is not None:
+            inspect(fits)
+        provenance = {
             "data_path": study.data_path, "data_sha256": study.data_sha256(),
             "study_path": study.path, "study_sha256": study.study_sha256(),
-            "command": command,
+            "command": command, **(provenance or {}),
         }
         if save_fits:
             from bayeszi.app.study import sha256_of
