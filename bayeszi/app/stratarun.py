@@ -212,9 +212,11 @@ class _Display:
 def _running(client: Any, keys: set[str]) -> int:
     try:
         processing = client.processing()
+        threads = sum(client.nthreads().values())
     except Exception:  # the count is only for the display
         return 0
-    return sum(1 for tasks in processing.values() for k in tasks if k in keys)
+    # a worker holds queued tasks too; at most one per thread is running
+    return min(threads, sum(1 for tasks in processing.values() for k in tasks if k in keys))
 
 
 def _collect(client: Any, futures: dict[Any, Stratum], folders: dict[str, str],
@@ -226,29 +228,38 @@ def _collect(client: Any, futures: dict[Any, Stratum], folders: dict[str, str],
     keys = {f.key for f in futures}
     display.line(_running(client, keys))
     try:
-        for fut in as_completed(list(futures)):
-            s = futures[fut]
-            try:
-                res = fut.result()
-            except Exception as err:  # the task could not run: a worker died twice, ...
-                text = " ".join(str(err).split())[:300]
-                res = {"status": FAILED, "reason": f"{type(err).__name__}: {text} (the "
-                       "worker running it stopped; rerun with --resume)"}
-            status = res.pop("status")
-            manifest.record(s.name, _entry(s, folders[s.name], status, **res))
-            if status == DONE:
-                display.done += 1
-                result.done += 1
-                event = f"{s.name} done in {res.get('seconds', 0):.0f} s"
-            else:
-                display.failed += 1
-                result.failed += 1
-                result.reasons[s.name] = res.get("reason", "")
-                event = f"{s.name} failed: {res.get('reason', '')}"
-            display.line(_running(client, keys), event)
+        with client.as_current():
+            _each(as_completed(list(futures)), futures, folders, manifest, result,
+                  display, client, keys)
     except KeyboardInterrupt:
         client.cancel(list(futures), force=True)
         raise
+
+
+def _each(done: Any, futures: dict[Any, Stratum], folders: dict[str, str],
+          manifest: Manifest, result: StrataResult, display: _Display, client: Any,
+          keys: set[str]) -> None:
+    """Record each finished task in the manifest and the display."""
+    for fut in done:
+        s = futures[fut]
+        try:
+            res = fut.result()
+        except Exception as err:  # the task could not run: a worker died twice, ...
+            text = " ".join(str(err).split())[:300]
+            res = {"status": FAILED, "reason": f"{type(err).__name__}: {text} (the worker "
+                   "running it stopped; rerun with --resume)"}
+        status = res.pop("status")
+        manifest.record(s.name, _entry(s, folders[s.name], status, **res))
+        if status == DONE:
+            display.done += 1
+            result.done += 1
+            event = f"{s.name} done in {res.get('seconds', 0):.0f} s"
+        else:
+            display.failed += 1
+            result.failed += 1
+            result.reasons[s.name] = res.get("reason", "")
+            event = f"{s.name} failed: {res.get('reason', '')}"
+        display.line(_running(client, keys), event)
 
 
 def _submit(client: Any, study: Study, todo: list[Stratum], strata_dir: str,
