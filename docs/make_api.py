@@ -59,6 +59,8 @@ PUBLIC_MODULES: dict[str, str] = {
     "bayeszi.answers.contrast": "predict.md",
     "bayeszi.families": "families.md",
     "bayeszi.app.study": "study-file.md",
+    "bayeszi.app.strata": "strata.md",
+    "bayeszi.app.stratarun": "strata.md",
     "bayeszi.app.report": "cli.md",
     "bayeszi.app.cli": "cli.md",
 }

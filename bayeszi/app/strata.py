@@ -125,7 +125,14 @@ def check_columns(data: pd.DataFrame, columns: Sequence[str]) -> None:
 
 def split_rows(data: pd.DataFrame, columns: Sequence[str]
                ) -> Iterator[tuple[str, tuple[tuple[str, Any], ...], pd.DataFrame]]:
-    """Each stratum's name, defining values and rows (renumbered from 0), sorted by value."""
+    """Each stratum's name, defining values and rows (renumbered from 0), sorted by value.
+
+    Example
+    -------
+    >>> df = pd.DataFrame({"sp": ["b", "a", "a"], "area": ["x", "y", "y"], "y": [1, 0, 2]})
+    >>> [(name, values) for name, values, _ in split_rows(df, ("sp", "area"))]
+    [('a / y', (('sp', 'a'), ('area', 'y'))), ('b / x', (('sp', 'b'), ('area', 'x')))]
+    """
     for values, rows in data.groupby(list(columns), sort=True, dropna=False):
         values = values if isinstance(values, tuple) else (values,)
         pairs = tuple((c, _plain(v)) for c, v in zip(columns, values, strict=True))
@@ -149,7 +156,13 @@ def rows_sha256(rows: pd.DataFrame) -> str:
 
 
 def study_key(study: Study) -> str:
-    """A hash of everything about the study that changes a stratum's results."""
+    """A hash of everything about the study that changes a stratum's results.
+
+    Example
+    -------
+    >>> len(study_key(load_study("examples/moth_traps/study.toml")))  # doctest: +SKIP
+    64
+    """
     facts = {
         "study_sha256": study.study_sha256(),
         "candidates": [[c.name, c.spec.to_dict()] for c in study.candidates],
@@ -162,7 +175,13 @@ def study_key(study: Study) -> str:
 
 
 def stratum_study(study: Study, name: str) -> Study:
-    """The single study one stratum runs: the study with the stratum's name in its title."""
+    """The single study one stratum runs: the study with the stratum's name in its title.
+
+    Example
+    -------
+    >>> stratum_study(study, "pug / coast").title                    # doctest: +SKIP
+    'Moths at light traps: pug / coast'
+    """
     return dataclasses.replace(study, title=f"{study.title}: {name}", strata=())
 
 
@@ -185,6 +204,13 @@ def plan_strata(study: Study, data: pd.DataFrame) -> StrataPlan:
 
     A stratum that cannot run is kept in the plan with its reason; a study whose strata
     columns are missing or hold missing values is a :class:`BayesziError`.
+
+    Example
+    -------
+    >>> study = load_study("examples/moth_traps/study.toml")          # doctest: +SKIP
+    >>> plan = plan_strata(study, study.load_data())                  # doctest: +SKIP
+    >>> plan.skipped[0].name, plan.skipped[0].skipped                 # doctest: +SKIP
+    ('emerald / island', 'only 20 records; a stratum needs at least 40 (min_records in [study])')
     """
     check_columns(data, study.strata)
     key = study_key(study)
