@@ -30,7 +30,6 @@ _LAZY = {
     "prior_predictive": "bayeszi.fitting.api",
     "FAMILY_NAMES": "bayeszi.families",
     "get_family": "bayeszi.families",
-    "Prior": "bayeszi.model.priors",
     "ModelSpec": "bayeszi.base.spec",
     "SamplerSettings": "bayeszi.base.spec",
     "BayesziWarning": "bayeszi.base.errors",
@@ -43,25 +42,36 @@ _LAZY = {
     "fit_candidates": "bayeszi.fitting.candidates",
 }
 
-__all__ = ["BayesziError", "__version__", *sorted(_LAZY)]
+#: Public modules, loaded on first use: ``bz.priors.normal(mean=0, sd=1)``.
+_LAZY_MODULES = {"priors": "bayeszi.model.distributions"}
+#: Names of bayeszi 0.1 that now only say what to write instead (not listed in ``__all__``).
+_REFUSED = {"Prior": "bayeszi.model.distributions"}
+
+__all__ = ["BayesziError", "__version__", *sorted([*_LAZY, *_LAZY_MODULES])]
 
 
 def __getattr__(name: str) -> Any:
-    if name in _LAZY:
-        value = getattr(importlib.import_module(_LAZY[name]), name)
-        globals()[name] = value
-        return value
-    refuse_renamed_function("bayeszi", name)
-    raise AttributeError(f"module 'bayeszi' has no attribute {name!r}")
+    if name in _LAZY_MODULES:
+        value = importlib.import_module(_LAZY_MODULES[name])
+    elif name in _LAZY or name in _REFUSED:
+        value = getattr(importlib.import_module({**_LAZY, **_REFUSED}[name]), name)
+    else:
+        refuse_renamed_function("bayeszi", name)
+        raise AttributeError(f"module 'bayeszi' has no attribute {name!r}")
+    globals()[name] = value
+    return value
 
 
 def __dir__() -> list[str]:
-    return sorted(set(globals()) | set(_LAZY))
+    return sorted(set(globals()) | set(_LAZY) | set(_LAZY_MODULES))
 
 
 #: Module paths of the flat layout before the layers (0.1.0), kept as aliases so that code
-#: written against them (``import bayeszi.checks``) keeps working: the same module object.
+#: written against them (``import bayeszi.checks``) keeps working: the same module object;
+#: and ``bayeszi.priors``, the public name of the prior functions
+#: (``from bayeszi.priors import normal``).
 _MOVED = {
+    "bayeszi.priors": "bayeszi.model.distributions",
     "bayeszi.candidates": "bayeszi.fitting.candidates",
     "bayeszi.comparison": "bayeszi.answers.comparison",
     "bayeszi.compareplots": "bayeszi.plots.compareplots",

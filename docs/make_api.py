@@ -48,11 +48,13 @@ if str(ROOT) not in sys.path:  # document this working tree, installed or not
 #: Modules documented name by name, in this order, with the topic page that explains them.
 PUBLIC_MODULES: dict[str, str] = {
     "bayeszi.data": "guide.md",
+    "bayeszi.model.distributions": "priors.md",
     "bayeszi.fitting.candidates": "compare.md",
     "bayeszi.answers.comparison": "compare.md",
     "bayeszi.plots.compareplots": "compare.md",
     "bayeszi.engine.loglik": "compare.md",
     "bayeszi.answers.checks": "checks.md",
+    "bayeszi.answers.residual_checks": "checks.md",
     "bayeszi.plots.checkplots": "checks.md",
     "bayeszi.answers.groups": "groups.md",
     "bayeszi.answers.predict": "predict.md",
@@ -67,7 +69,7 @@ PUBLIC_MODULES: dict[str, str] = {
 
 #: Order of the top-level names; names not listed here follow, sorted.
 TOP_ORDER = ("fit", "fit_candidates", "compare", "fit_spec", "make_spec", "prior_predictive",
-             "load", "FittedModel", "Prior", "ModelSpec", "SamplerSettings", "get_family",
+             "load", "FittedModel", "priors", "ModelSpec", "SamplerSettings", "get_family",
              "FAMILY_NAMES", "BayesziError", "BayesziWarning", "__version__")
 
 #: Width at which a signature is split to one parameter per line.
@@ -471,6 +473,8 @@ def render_entry(e: Entry, known: set[str] | frozenset[str] = frozenset(),
         lines += ["```python", f"{e.name.split('.')[-1]} = {e.value}", "```", ""]
         return lines
     shown = f"class {e.name.split('.')[-1]}({e.bases})" if e.bases else e.signature
+    if e.kind == "module":  # a public module: where its functions are listed
+        shown = f"import {e.name}  # the module {e.source}, listed below"
     lines += ["```python", shown, "```", ""]
     if e.source and e.kind in ("function", "class") and not e.name.startswith(e.source + "."):
         lines += [f"*Defined in `{e.source}`.*", ""]

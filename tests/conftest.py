@@ -102,6 +102,7 @@ exposure_unit = "trap night"
 groups = ["reach"]
 seed = 7
 interval = 0.9
+residuals_against = "depth"
 
 [sampler]
 draws = 150
@@ -112,8 +113,11 @@ cores = 1
 [[model]]
 name = "zinb-reach"
 family = "zinb"
-counts = "water_temp + C(substrate) + depth"
+counts = "water_temp + substrate + depth"
 zeros = "barrier"
+
+[model.priors.counts]
+"substrate: silt (vs cobble)" = {{ distribution = "normal", mean = 0, sd = 0.8 }}
 
 [[model]]
 name = "poisson"

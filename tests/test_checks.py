@@ -10,6 +10,13 @@ Sources of the check values, named beside each test:
   than uniform (from memory: Meng 1994, Annals of Statistics 22:1142-1160), so a central
   (0.05, 0.95) or (0.01, 0.99) band holds at least 90% or 98% of them.
 - Reference pmfs: scipy.stats.poisson.
+- The simultaneous ECDF band holds the whole ECDF of n uniform values with probability 0.95
+  (by construction, Sailynoja, Buerkner & Vehtari 2022, Statistics and Computing 32:32);
+  the share of simulated samples inside it is checked within 3 binomial sds (common
+  practice).
+- Replicated frequencies average to the expected frequencies: E over replicates of the
+  number of records with count k is the sum over records of P(Y = k) at each draw (linearity
+  of expectation), checked within 4 Monte Carlo standard errors.
 - The Pearson statistic as a posterior predictive discrepancy, sum (y - E[y])^2 / Var[y]
   at each draw, observed against replicated: Gelman, Meng & Stern (1996), Statistica Sinica
   6:733-807. Its direct computation here takes E and Var from scipy.stats.poisson / nbinom
@@ -21,6 +28,8 @@ Fits are small (1,500 records, 2 chains x 400 draws) and shared through ``cached
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -29,7 +38,7 @@ from scipy import special, stats
 from simulate import fitted_from_user_draws, simulate
 
 import bayeszi as bz
-from bayeszi.answers import checks
+from bayeszi.answers import checks, residual_checks
 from bayeszi.engine.draws import fitted_rows, linear_predictors
 from bayeszi.families import get_family
 from bayeszi.fitting.fitted import FittedModel
@@ -223,6 +232,50 @@ def test_expected_frequencies_match_scipy_poisson(zip_zip):
     np.testing.assert_allclose(full[take, : kmax + 1], ref, rtol=1e-9)
 
 
+def test_replicated_frequencies_average_to_the_expected_ones(zip_zip):
+    n = zip_zip.design.n
+    reps = checks.replicated_frequency_draws(zip_zip, kmax=6, seed=4).to_numpy()
+    expected = checks.expected_frequency_draws(zip_zip, kmax=6).to_numpy()
+    assert reps.shape == expected.shape
+    assert (reps.sum(axis=1) == n).all()
+    # linearity of expectation: the replicated mean is the expected mean, within 4 Monte
+    # Carlo standard errors (replicate noise is independent across draws)
+    se = reps.std(axis=0, ddof=1) / np.sqrt(reps.shape[0])
+    assert (np.abs(reps.mean(axis=0) - expected.mean(axis=0)) < 4 * se + 1e-9).all()
+    # the same seed gives the same data sets, another seed others
+    again = checks.replicated_frequency_draws(zip_zip, kmax=6, seed=4)
+    np.testing.assert_array_equal(reps, again.to_numpy())
+    other = checks.replicated_frequency_draws(zip_zip, kmax=6, seed=5)
+    assert not np.array_equal(reps, other.to_numpy())
+    # in small chunks the rows still add up to the records
+    small = checks.replicated_frequency_draws(zip_zip, kmax=6, seed=4, max_floats=20_000)
+    assert (small.sum(axis=1) == n).all()
+
+
+def test_rootogram_ticks_are_the_replicated_intervals(zip_zip, zip_poisson):
+    table = zip_zip.count_frequencies(seed=2)
+    # the true model: observed frequencies lie inside the 90% replicated interval for most
+    # bins (each inside with chance about 0.9 at least; 10 bins outside would be rare)
+    inside = (table["observed"] >= table["replicated 5%"]) & \
+             (table["observed"] <= table["replicated 95%"])
+    assert inside.mean() >= 0.7
+    assert (table["replicated 5%"] <= table["expected"]).all()
+    ax = zip_zip.rootogram(seed=2).axes[0]
+    ticks = [c for c in ax.collections if "replicated data sets" in str(c.get_label())]
+    assert len(ticks) == 1
+    segs = ticks[0].get_segments()
+    top = np.sqrt(table["expected"].to_numpy())
+    np.testing.assert_allclose([s[0, 1] for s in segs],
+                               top - np.sqrt(table["replicated 95%"].to_numpy()), rtol=1e-12)
+    np.testing.assert_allclose([s[1, 1] for s in segs],
+                               top - np.sqrt(table["replicated 5%"].to_numpy()), rtol=1e-12)
+    # the expected numbers are a step outline, no line with markers
+    assert not [ln for ln in ax.lines if ln.get_marker() not in ("None", "", None, "_")]
+    # the Poisson fit of ZIP data: the zero bar ends far below its tick
+    poor = zip_poisson.count_frequencies(seed=2).loc["0"]
+    assert poor["observed"] > poor["replicated 95%"]
+
+
 def test_chunking_does_not_change_expected_frequencies(zip_zip):
     a = checks.expected_frequency_draws(zip_zip, kmax=5, draws=100)
     b = checks.expected_frequency_draws(zip_zip, kmax=5, draws=100, max_floats=5_000)
@@ -311,6 +364,95 @@ def test_residual_pit_bounds_are_the_posterior_cdf(zip_zip):
     np.testing.assert_allclose(res["PIT high"].to_numpy()[rows], cdf, rtol=1e-9, atol=1e-12)
 
 
+@pytest.mark.parametrize("n", [30, 400])
+def test_ecdf_band_holds_uniform_samples_with_its_level(n):
+    # 400 simulated uniform samples of n values: the whole ECDF stays inside the band for
+    # about 95% of them (3 binomial sds = 0.033); a pointwise band would hold far fewer
+    rng = np.random.default_rng(8)
+    inside = [not residual_checks.pit_ecdf(rng.uniform(size=n))["outside"].any()
+              for _ in range(400)]
+    assert abs(np.mean(inside) - 0.95) < 3 * np.sqrt(0.95 * 0.05 / 400)
+    band = residual_checks.uniform_ecdf_band(n)
+    assert len(band) == min(n, 100) - 1
+    # the same n always gives the same band (fixed seed)
+    pd.testing.assert_frame_equal(band, residual_checks.uniform_ecdf_band(n))
+
+
+def test_pit_ecdf_flags_values_far_from_uniform():
+    u = np.random.default_rng(9).uniform(size=500) ** 1.5   # too many small PIT values
+    tab = residual_checks.pit_ecdf(u)
+    assert tab["outside"].any()
+    assert tab.loc[tab["outside"], "ECDF - u"].gt(0).all()
+
+
+def test_binned_residuals_equal_a_hand_computation():
+    x = pd.Series([5.0, 1.0, 4.0, 2.0, 6.0, 3.0], name="depth")
+    r = np.array([0.5, -1.0, 0.0, 1.0, 1.5, 2.0])
+    t = residual_checks.binned_residuals(r, x, bins=3)
+    # by hand: sorted by depth the bins hold records with depth {1, 2}, {3, 4}, {5, 6}, i.e.
+    # residuals (-1, 1), (2, 0), (0.5, 1.5); for a pair (a, b) sd = |a - b| / sqrt(2) and
+    # se = sd / sqrt(2) = |a - b| / 2
+    assert t["records"].tolist() == [2, 2, 2]
+    np.testing.assert_allclose(t["mean residual"], [0.0, 1.0, 1.0])
+    np.testing.assert_allclose(t["standard error"], [1.0, 1.0, 0.5])
+    np.testing.assert_allclose(t["mean - 2 se"], [-2.0, -1.0, 0.0])
+    np.testing.assert_allclose(t["mean + 2 se"], [2.0, 3.0, 2.0])
+    np.testing.assert_allclose(t["predictor mean"], [1.5, 3.5, 5.5])
+    assert t.attrs["kind"] == "equal-count bins"
+    # a text column: one bin per level; a missing value is left out and counted
+    g = pd.Series(["b", "a", "b", None, "a", "a"], name="substrate")
+    t = residual_checks.binned_residuals(r, g)
+    assert t["bin"].tolist() == ["a", "b"] and t.attrs["left out"] == 1
+    np.testing.assert_allclose(t["mean residual"], [(-1.0 + 1.5 + 2.0) / 3, (0.5 + 0.0) / 2])
+    # few distinct numbers: one bin per value
+    t = residual_checks.binned_residuals(r, pd.Series([0, 1, 0, 1, 0, 1], name="barrier"))
+    assert t["bin"].tolist() == ["0", "1"] and t.attrs["kind"] == "values"
+    np.testing.assert_allclose(t["mean residual"], [(0.5 + 0.0 + 1.5) / 3, (-1 + 1 + 2) / 3])
+
+
+def test_residual_statistics_match_scipy(zip_zip):
+    res = zip_zip.residuals(seed=1)
+    got = residual_checks.residual_statistics(res)
+    r = res["residual"].to_numpy()
+    ks = stats.kstest(r, "norm")     # the same distance: u = Phi(residual)
+    assert got["largest ECDF gap (KS distance)"] == pytest.approx(ks.statistic, abs=1e-9)
+    assert got["p-value of that gap (KS test)"] == pytest.approx(ks.pvalue, rel=1e-6)
+    assert got["sd of residuals"] == pytest.approx(r.std(ddof=1), rel=1e-12)
+    assert got["share beyond +-2"] == pytest.approx(np.mean(np.abs(r) > 2))
+    # the true model: the PIT curve stays inside its 95% band
+    assert got["share of ECDF outside the 95% band"] == 0.0
+
+
+def test_residual_figure_bins_by_the_chosen_column_and_carries_no_test(zip_sites):
+    df = _site_data()[0]
+    fig = zip_sites.residual_plots(draws=200, against="x1", bins=5)
+    assert len(fig.axes) == 2
+    assert "Dunn & Smyth" in fig.get_suptitle()
+    res = zip_sites.residuals(draws=200)
+    want = residual_checks.binned_residuals(res["residual"].to_numpy(),
+                                            df.loc[res.index, "x1"], bins=5)
+    right = fig.axes[1]
+    means = [ln for ln in right.lines if ln.get_marker() == "s"][0].get_ydata()
+    np.testing.assert_allclose(means, want["mean residual"], rtol=1e-12)
+    assert right.get_xlabel() == "x1"
+    texts = [t.get_text() for t in fig.findobj(lambda o: hasattr(o, "get_text"))]
+    texts += [fig.get_suptitle()] + [a.get_title() for a in fig.axes]
+    pattern = re.compile(r"p\s*[=<>]|p-value|Kolmogorov|\bKS\b|statistic|Q-?Q|quantile-quantile",
+                         re.I)
+    assert not [t for t in texts if pattern.search(t)], texts
+    default = zip_sites.residual_plots(draws=200)
+    assert default.axes[1].get_xlabel() == residual_checks.DEFAULT_PREDICTOR
+
+
+def test_residuals_against_a_wrong_column_is_refused(zip_zip):
+    with pytest.raises(bz.BayesziError, match=r"against='depht' is not a column of the data; "
+                                              r"columns available: \[.*'x1'"):
+        zip_zip.residual_plots(against="depht")
+    res = zip_zip.residuals(seed=1)
+    with pytest.raises(bz.BayesziError, match=r"one value per fitted record"):
+        residual_checks.residual_predictor(res, np.zeros(3))
+
+
 # ------------------------------------------------------------------------- zero sources
 
 
@@ -370,9 +512,6 @@ def test_figures_are_built_and_labelled(zip_sites, hurdle_groups):
     assert "P(Y = 0)" in fig.get_suptitle()
     fig = zip_sites.replicated_statistics_plot(draws=200)
     assert len(fig.axes) == 3
-    fig = zip_sites.residual_plots(draws=200)
-    assert len(fig.axes) == 2
-    assert "Dunn & Smyth" in fig.get_suptitle()
 
 
 # ------------------------------------------------------------------------- bad input

@@ -147,6 +147,18 @@ def test_report_from_saved_fits(small_run, tmp_path, capsys):
     assert f"sha256 {data_digest}" in html  # the data hash travels inside the saved fit
 
 
+def test_report_refuses_residuals_against_a_column_the_fits_lack(small_run, tmp_path, capsys):
+    fits = [small_run["out"] / "fits" / n for n in ("zinb-reach.nc", "poisson.nc")]
+    out = tmp_path / "again"
+    rc = main(["report", *map(str, fits), "--out", str(out), "--residuals-against", "canopy",
+               "--quiet"])
+    assert rc == 2
+    line = one_line_error(capsys.readouterr().err)
+    assert re.search(r"residuals_against='canopy' is not a column of the fitted data.*"
+                     r"columns available: \[.*'depth'", line), line
+    assert not out.exists()
+
+
 def test_fit_command_writes_a_loadable_fit(tmp_path, capsys):
     data, _ = simulate_crayfish(seed=5, n_reaches=4, n_rivers=1)
     csv = tmp_path / "d.csv"
@@ -203,6 +215,11 @@ BAD_STUDIES = {
     "scenario column no model uses": ({"depth = 0.6": "deep = 0.6"},
                                       r"scenario 'open reach' sets column 'deep' \(did you "
                                       r"mean 'depth'\?\), which no model uses"),
+    "residuals against a missing column": ({'residuals_against = "depth"':
+                                            'residuals_against = "depht"'},
+                                           r"'residuals_against' in \[study\] names 'depht' "
+                                           r"\(did you mean 'depth'\?\), which is not a column "
+                                           r"of crayfish.csv; columns available: \["),
     "contrast of a missing scenario": ({'scenario = "open reach"': 'scenario = "closed"'},
                                        r"names 'closed', which is not a \[\[scenario\]\]"),
 }

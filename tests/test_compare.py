@@ -201,7 +201,8 @@ def test_fit_candidates_gives_one_fit_per_candidate_on_the_same_data(zinb_fits):
 def test_candidate_names_and_zeros_settings():
     cands = candidate_specs("y ~ x", ["poisson", "zip", "hurdle-negbin"],
                             {"flat": "~ 1", "by w": "~ w"}, groups="site",
-                            varying={"zeros": ["w"]}, priors={"zeros": {"w": ["normal", 0, 1]}})
+                            varying={"zeros": ["w"]},
+                            priors={"zeros": {"w": bz.priors.normal(sd=1)}})
     assert [c.name for c in cands] == ["poisson", "zip flat", "zip by w",
                                        "hurdle-negbin flat", "hurdle-negbin by w"]
     assert cands[0].spec.varying == {} and "zeros" not in cands[0].spec.priors
@@ -340,6 +341,32 @@ def test_refits_are_refused_past_the_budget(small_fit):
             loo(small_fit, k_limit="high")
         with pytest.raises(bz.BayesziError, match="refit_settings"):
             loo(small_fit, exact_refits=True, refit_settings={"drawz": 10})
+
+
+def test_high_k_advice_is_phrased_for_where_the_reader_is(small_fit):
+    """In Python the warning names the keyword; in a report of a study run it names the
+    study-file key and the command-line flag (a reader of a report did not write Python)."""
+    from bayeszi.answers.comparison import refit_advice
+    from bayeszi.app.report.pipeline import REFIT_ADVICE
+
+    with pytest.warns(bz.BayesziWarning, match=r"exact_refits=True") as plain:
+        loo(small_fit, k_limit=-np.inf)
+    with refit_advice(REFIT_ADVICE), pytest.warns(bz.BayesziWarning) as study:
+        loo(small_fit, k_limit=-np.inf)
+    text = " ".join(str(w.message) for w in study)
+    assert "exact_refits = true in the study file" in text and "--exact-refits" in text
+    assert "exact_refits=True" not in text
+    assert "exact_refits = true" not in " ".join(str(w.message) for w in plain)
+
+
+def test_study_file_exact_refits_key(write_small_study, tmp_path):
+    from bayeszi.app.study import load_study
+
+    path = write_small_study(tmp_path, **{"interval = 0.9": "interval = 0.9\nexact_refits = true"})
+    assert load_study(str(path)).exact_refits is True
+    path = write_small_study(tmp_path, **{"interval = 0.9": "interval = 0.9\nexact_refits = 1"})
+    with pytest.raises(bz.BayesziError, match=r"'exact_refits' in \[study\] must be true or false"):
+        load_study(str(path))
 
 
 # ---------------------------------------------------------------------------- refusals

@@ -39,7 +39,7 @@ DOCS = ROOT / "docs"
 #: Sampler settings of every fit made here: enough to run the code, not to trust its numbers.
 SHORT = {"draws": 150, "warmup_steps": 150, "chains": 2, "cores": 1, "progressbar": False}
 #: The guide's first fit; the examples of the FittedModel methods use the same (cached) fit.
-DEMO_FIT = {"counts": "crayfish ~ water_temp + C(substrate) + depth + canopy",
+DEMO_FIT = {"counts": "crayfish ~ water_temp + substrate + depth + canopy",
             "zeros": "~ barrier", "family": "zinb", "exposure": "trap_nights",
             "groups": "reach", "seed": 1}
 #: Reaches R01..R08 (two of them above a barrier) and cameras C01..C06, all seasons.
@@ -49,7 +49,7 @@ N_REACHES, N_CAMERAS = 8, 6
 #: object arrives without one; remove a name here once its docstring shows an example).
 KNOWN_WITHOUT_EXAMPLE = {
     "bayeszi.fit_spec", "bayeszi.make_spec", "bayeszi.load", "bayeszi.FittedModel",
-    "bayeszi.Prior", "bayeszi.ModelSpec", "bayeszi.SamplerSettings", "bayeszi.BayesziError",
+    "bayeszi.ModelSpec", "bayeszi.SamplerSettings", "bayeszi.BayesziError",
     "bayeszi.BayesziWarning", "FittedModel.diagnostics", "FittedModel.sampler_problems",
     "FittedModel.coefficients", "FittedModel.save",
     "bayeszi.app.study.Contrast", "bayeszi.app.study.Scenario",

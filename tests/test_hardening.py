@@ -47,7 +47,7 @@ from bayeszi.base.errors import BayesziError
 from bayeszi.base.spec import ModelSpec
 from bayeszi.model.build import build_model
 from bayeszi.model.design import build_design
-from bayeszi.model.priors import Prior, resolve
+from bayeszi.model.priors import resolve
 
 QUICK = dict(deadline=None, derandomize=True, database=None,
              suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large,
@@ -150,9 +150,9 @@ def spec_cases(draw: st.DrawFn) -> Case:
     if grouped:
         kw["nested"] = draw(st.sampled_from([None, {"g": "f"}]))
     kw["priors"] = draw(st.sampled_from(
-        [None, {"dispersion": Prior("exponential", 2)},
-         {"group_sd": {"counts": ["halfnormal", 0.5]}}, {"counts": {"Intercept": [
-             "normal", 0, 2]}}]))
+        [None, {"dispersion": bz.priors.exponential(rate=2)},
+         {"group_sd": {"counts": {"distribution": "half_normal", "sd": 0.5}}},
+         {"counts": {"Intercept": {"distribution": "normal", "mean": 0, "sd": 2}}}]))
     sampler = {"draws": 50, "warmup_steps": 50, "chains": 2, "acceptance_target": 0.95, "seed": 3}
     for name in draw(st.lists(st.sampled_from(sorted(sampler)), max_size=2, unique=True)):
         kw[name] = sampler[name]
@@ -300,18 +300,25 @@ SPEC_PERTURBATIONS = [
     _kw_perturbation("missing exposure column", ("effort",),
                      lambda kw: kw.update(exposure="effort")),
     _kw_perturbation("prior for an unknown term", ("depth",),
-                     lambda kw: kw.update(priors={"counts": {"depth": ["normal", 0, 1]}})),
+                     lambda kw: kw.update(priors={"counts": {"depth": {
+                         "distribution": "normal", "mean": 0, "sd": 1}}})),
     _kw_perturbation("unknown prior family", ("gauss",),
-                     lambda kw: kw.update(priors={"counts": {"Intercept": ["gauss", 0, 1]}})),
+                     lambda kw: kw.update(priors={"counts": {"Intercept": {
+                         "distribution": "gauss", "mean": 0, "sd": 1}}})),
     _kw_perturbation("negative prior scale", ("positive",),
-                     lambda kw: kw.update(priors={"counts": {"Intercept": ["normal", 0, -1]}})),
-    _kw_perturbation("prior numbers as text", ("numbers",),
-                     lambda kw: kw.update(priors={"counts": {"Intercept": ["normal", "0", 1]}})),
+                     lambda kw: kw.update(priors={"counts": {"Intercept": {
+                         "distribution": "normal", "mean": 0, "sd": -1}}})),
+    _kw_perturbation("prior numbers as text", ("finite number",),
+                     lambda kw: kw.update(priors={"counts": {"Intercept": {
+                         "distribution": "normal", "mean": "0", "sd": 1}}})),
+    _kw_perturbation("prior in the old list form", ('distribution = "normal"',),
+                     lambda kw: kw.update(priors={"counts": {"Intercept": ["normal", 0, 1]}})),
     _kw_perturbation("unknown prior key", ("slope",), lambda kw: kw.update(priors={"slope": {}})),
     _kw_perturbation("priors a list", ("priors",), lambda kw: kw.update(priors=[1, 2])),
     _kw_perturbation("lkj_eta text", ("lkj_eta",), lambda kw: kw.update(priors={"lkj_eta": "x"})),
     _kw_perturbation("dispersion prior on the real line", ("dispersion",),
-                     lambda kw: kw.update(priors={"dispersion": ["normal", 0, 1]})),
+                     lambda kw: kw.update(priors={"dispersion": {
+                         "distribution": "normal", "mean": 0, "sd": 1}})),
     _kw_perturbation("zero draws", ("draws",), lambda kw: kw.update(draws=0)),
     _kw_perturbation("fractional chains", ("chains",), lambda kw: kw.update(chains=1.5)),
     _kw_perturbation("acceptance_target 1.5", ("acceptance_target",),
@@ -871,7 +878,8 @@ def test_odd_but_valid_inputs_fit_predict_and_save(tmp_path) -> None:
         pred = m.predict(df.head(4), what=["mean", "p_zero"])
         path = m.save(str(tmp_path / "odd.nc"))
         back = bz.load(path)
-    assert "C(f)[T.unused]" not in table.index.get_level_values("term")
+    terms = list(table.index.get_level_values("term"))
+    assert "f: b (vs a)" in terms and not any("unused" in t for t in terms)
     assert np.isfinite(table[["mean", "sd"]].to_numpy()).all()
     assert list(pred.index[:4]) == ["rec0", "rec1", "rec2", "rec3"]
     np.testing.assert_array_equal(back.design.counts.X, m.design.counts.X)

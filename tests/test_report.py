@@ -130,6 +130,12 @@ def test_coefficients_equal_the_api(report):
         csv = pd.read_csv(report["out"] / "tables" / f"coefficients_{name}.csv",
                           keep_default_na=False, na_values=[""])
         assert list(csv["term"]) == list(api["term"])
+        # the readable labels, not the formula library's names (the study writes `substrate`
+        # without C(); cobble, first in sorted order, is the reference)
+        assert not csv["term"].str.contains(r"\[T\.|C\(", regex=True).any()
+        if name == "zinb-reach":
+            assert {"substrate: gravel (vs cobble)", "substrate: silt (vs cobble)"} <= \
+                set(csv["term"])
         for col in ("mean", "sd", "5%", "95%", "exp(mean)", "exp 5%", "exp 95%", "R-hat",
                     "bulk ESS"):
             np.testing.assert_allclose(csv[col].to_numpy(float), api[col].to_numpy(float),
@@ -137,6 +143,17 @@ def test_coefficients_equal_the_api(report):
         page = report["tables"][f"coefficients_{name}"]
         for col in ("mean", "exp(mean)", "exp 95%"):
             assert list(page[col]) == [format_number(v) for v in api[col]], col
+
+
+def test_priors_table_shows_labels_and_the_study_files_prior(report):
+    """The study gives "substrate: silt (vs cobble)" a prior by its label, as an inline
+    table; the priors CSV shows it in words beside the default of the other level."""
+    csv = pd.read_csv(report["out"] / "tables" / "priors.csv")
+    rows = csv[csv["model"] == "zinb-reach"].set_index(["part", "term"])["prior"]
+    assert rows[("counts", "substrate: silt (vs cobble)")] == "Normal, mean 0, sd 0.8"
+    assert rows[("counts", "substrate: gravel (vs cobble)")] == "Normal, mean 0, sd 1"
+    assert rows[("counts", "effects of every group: sd")] == "Half-normal, sd 1"
+    assert not csv["term"].str.contains(r"\[T\.|C\(", regex=True).any()
 
 
 def test_loo_table_equals_the_api(report):
@@ -179,6 +196,22 @@ def test_pearson_table_equals_the_api(report):
     for col in ("observed mean", "replicated 95%", "tail prob"):
         np.testing.assert_allclose(rows[col], api[col], rtol=1e-12, err_msg=col)
     assert (rows["residual df"] == api.attrs["residual df"]).all()
+
+
+def test_residual_summary_equals_the_api_and_the_figure_is_binned_by_depth(report):
+    from bayeszi.answers.checks import residuals
+    from bayeszi.answers.residual_checks import residual_statistics
+
+    csv = pd.read_csv(report["out"] / "tables" / "residuals_summary.csv").set_index("model")
+    for name in ("zinb-reach", "poisson"):
+        api = residual_statistics(residuals(_fit(report, name), seed=7))  # the study's seed
+        for col, value in api.items():
+            assert csv.loc[name, col] == pytest.approx(value, rel=1e-9, abs=1e-12), col
+    assert "p-value of that gap (KS test)" in csv.columns
+    # the study file's residuals_against = "depth" reaches the figure's caption
+    section = report["html"].split('data-section="residuals"')[1].split("</section>")[0]
+    assert "bins of the column depth" in section
+    assert len(list((report["out"] / "figures").glob("residuals_*.png"))) == 1
 
 
 def test_scenario_predictions_equal_the_api(report):
@@ -282,7 +315,8 @@ def test_format_number():
 # ---------------------------------------------------------------------- a real browser
 @pytest.mark.skipif(shutil.which("chromium") is None, reason="Debian's chromium is not installed")
 def test_chromium_renders_without_broken_images(report, tmp_path):
-    """Render the page headless: every image loads, and the screenshot is not blank."""
+    """Render the page headless at 1280 px: every image loads, no table makes the page wider
+    than the window (wide tables scroll inside their box), the screenshot is not blank."""
     from PIL import Image
 
     page = tmp_path / "check.html"
@@ -291,17 +325,19 @@ def test_chromium_renders_without_broken_images(report, tmp_path):
              "for (var i = 0; i < imgs.length; i++) {"
              " if (!imgs[i].complete || imgs[i].naturalWidth === 0) bad++; }"
              "var p = document.createElement('p'); p.id = 'probe';"
-             "p.textContent = 'images=' + imgs.length + ' broken=' + bad;"
+             "var wide = document.documentElement.scrollWidth > window.innerWidth;"
+             "p.textContent = 'images=' + imgs.length + ' broken=' + bad + ' wide=' + wide;"
              "document.body.appendChild(p); });</script>")
     page.write_text(report["html"].replace("</body>", probe + "</body>"), encoding="utf-8")
     base = ["chromium", "--headless", "--no-sandbox", "--disable-gpu", "--hide-scrollbars",
             "--virtual-time-budget=10000"]
-    dom = subprocess.run([*base, "--dump-dom", page.as_uri()], capture_output=True,
-                         text=True, timeout=120)
-    m = re.search(r"images=(\d+) broken=(\d+)", dom.stdout)
+    dom = subprocess.run([*base, "--window-size=1280,4000", "--dump-dom", page.as_uri()],
+                         capture_output=True, text=True, timeout=120)
+    m = re.search(r"images=(\d+) broken=(\d+) wide=(\w+)", dom.stdout)
     assert m, dom.stderr[-500:]
     n_figs = len(list((report["out"] / "figures").glob("*.png")))
     assert int(m.group(1)) == n_figs and int(m.group(2)) == 0
+    assert m.group(3) == "false", "the page is wider than a 1280 px window: a table overflows"
     shot = tmp_path / "report.png"
     subprocess.run([*base, "--window-size=1280,4000", f"--screenshot={shot}",
                     (report["out"] / "report.html").as_uri()], capture_output=True,

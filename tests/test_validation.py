@@ -187,7 +187,7 @@ def test_unknown_prior_term(df):
     with pytest.raises(bz.BayesziError, match=r"unknown term.*'nope'"):
         from bayeszi.model.priors import resolve
 
-        resolve(design(df), {"counts": {"nope": ["normal", 0, 1]}})
+        resolve(design(df), {"counts": {"nope": bz.priors.normal(sd=1)}})
 
 
 def test_unseen_level_on_encode(df):

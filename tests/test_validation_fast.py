@@ -46,12 +46,13 @@ def test_fit_prior_is_the_simulation_prior(family):
     ps = resolve(design, spec.priors)
     d = design.counts
     np.testing.assert_allclose(d.center[1:], df[["x", "b"]].mean().to_numpy(), rtol=1e-12)
-    assert ps.counts["Intercept"] == bz.Prior("normal", *prior.counts_intercept)
+    assert ps.counts["Intercept"] == bz.priors.normal(mean=prior.counts_intercept[0],
+                                                      sd=prior.counts_intercept[1])
     for j, term in enumerate(d.terms[1:], start=1):
         p = ps.counts[term]
-        assert p.dist == "normal" and p.a == 0.0
-        assert p.b == pytest.approx(prior.counts_slope_sd * d.scale[j], rel=1e-12)
-    assert ps.group_sd["counts"] == bz.Prior("halfnormal", prior.group_sd[0])
+        assert p.distribution == "normal" and p["mean"] == 0.0
+        assert p["sd"] == pytest.approx(prior.counts_slope_sd * d.scale[j], rel=1e-12)
+    assert ps.group_sd["counts"] == bz.priors.half_normal(sd=prior.group_sd[0])
     # the user-scale truth the validation ranks is bayeszi's own map of the internal truth
     a, bx, bb = truth["counts_centred"]
     user = d.to_user_scale(np.array([a, bx * d.scale[1], bb * d.scale[2]]))
@@ -59,10 +60,11 @@ def test_fit_prior_is_the_simulation_prior(family):
     np.testing.assert_allclose([q["counts: Intercept"], q["counts: x"], q["counts: b"]], user,
                                rtol=1e-12)
     if design.zeros is not None:
-        assert ps.zeros["Intercept"] == bz.Prior("normal", *prior.zeros_intercept)
+        assert ps.zeros["Intercept"] == bz.priors.normal(mean=prior.zeros_intercept[0],
+                                                         sd=prior.zeros_intercept[1])
         np.testing.assert_allclose(design.zeros.center[1], df["w"].mean(), rtol=1e-12)
     if bz.get_family(family).has_dispersion:
-        assert ps.dispersion == bz.Prior("exponential", prior.dispersion_rate)
+        assert ps.dispersion == bz.priors.exponential(rate=prior.dispersion_rate)
 
 
 @pytest.mark.parametrize("family", list(bz.FAMILY_NAMES))
@@ -204,12 +206,12 @@ def test_randhie_profile_posterior_matches_quadrature():
     from scipy import integrate
 
     piece, closed = _poisson_two_groups()
-    prior = bz.Prior("normal", 0.0, 0.5)
+    prior = bz.priors.normal(mean=0.0, sd=0.5)
     v, se = piece.params[1], piece.bse[1]
     lo, hi = min(v - 8 * se, -2.0), max(v + 8 * se, 2.0)
 
     def dens(t: float) -> float:
-        return np.exp(closed(t) - 0.5 * (t / prior.b) ** 2)
+        return np.exp(closed(t) - 0.5 * (t / prior["sd"]) ** 2)
 
     z = integrate.quad(dens, lo, hi, points=[v])[0]
     mean = integrate.quad(lambda t: t * dens(t), lo, hi, points=[v])[0] / z

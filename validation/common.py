@@ -44,7 +44,6 @@ import pandas as pd
 from scipy import stats
 
 import bayeszi as bz
-from bayeszi.model.priors import Prior
 
 #: Formulas used throughout: a continuous (x) and a binary (b) input for the counts, a
 #: continuous one (w) for the zeros part; effort enters as exposure.
@@ -77,18 +76,20 @@ class SimPrior:
     def bayeszi_priors(self, family: str, groups: bool) -> dict[str, Any]:
         """The ``priors=`` argument of :func:`bayeszi.fit` matching :func:`draw_truth`."""
         fam = bz.get_family(family)
+        normal = bz.priors.normal
         out: dict[str, Any] = {"counts": {
-            "Intercept": Prior("normal", *self.counts_intercept),
-            "x": Prior("normal", 0.0, self.counts_slope_sd),
-            "b": Prior("normal", 0.0, self.counts_slope_sd)}}
+            "Intercept": normal(mean=self.counts_intercept[0], sd=self.counts_intercept[1]),
+            "x": normal(mean=0.0, sd=self.counts_slope_sd),
+            "b": normal(mean=0.0, sd=self.counts_slope_sd)}}
         if fam.zeros_kind is not None:
-            out["zeros"] = {"Intercept": Prior("normal", *self.zeros_intercept),
-                            "w": Prior("normal", 0.0, self.zeros_slope_sd)}
+            out["zeros"] = {"Intercept": normal(mean=self.zeros_intercept[0],
+                                                sd=self.zeros_intercept[1]),
+                            "w": normal(mean=0.0, sd=self.zeros_slope_sd)}
         if fam.has_dispersion:
-            out["dispersion"] = Prior("exponential", self.dispersion_rate)
+            out["dispersion"] = bz.priors.exponential(rate=self.dispersion_rate)
         if groups:
-            out["group_sd"] = {"counts": Prior("halfnormal", self.group_sd[0]),
-                               "zeros": Prior("halfnormal", self.group_sd[1])}
+            out["group_sd"] = {"counts": bz.priors.half_normal(sd=self.group_sd[0]),
+                               "zeros": bz.priors.half_normal(sd=self.group_sd[1])}
         return out
 
 

@@ -240,13 +240,13 @@ def profile_posterior(piece: Piece, j: int, prior: Any, points: int = 49
     v, se = piece.params[j], piece.bse[j]
     lo, hi = v - 8 * se, v + 8 * se
     if prior is not None:
-        lo, hi = min(lo, prior.a - 4 * prior.b), max(hi, prior.a + 4 * prior.b)
+        lo, hi = min(lo, prior["mean"] - 4 * prior["sd"]), max(hi, prior["mean"] + 4 * prior["sd"])
     grid = np.union1d(np.linspace(lo, hi, points), [v])
     ll = np.array([0.0 if g == v else piece.profile(j, g) for g in grid])
     fine = np.linspace(lo, hi, 4001)
     logd = np.interp(fine, grid, ll)
     if prior is not None:
-        logd = logd - 0.5 * ((fine - prior.a) / prior.b) ** 2
+        logd = logd - 0.5 * ((fine - prior["mean"]) / prior["sd"]) ** 2
     w = np.exp(logd - logd.max())
     w /= w.sum()
     mean = float((fine * w).sum())
@@ -275,11 +275,11 @@ def agreement(family: str, fitted: Any, mle: MLE) -> pd.DataFrame:
             label_part, label_term = part, term
         mean, sd = float(d.mean()), float(d.std(ddof=1))
         prior = fitted.priors.user_scale.get(label_part, {}).get(label_term)
-        normal_prior = (prior if prior is not None and prior.dist == "normal"
+        normal_prior = (prior if prior is not None and prior.distribution == "normal"
                         and label_term != "Intercept" else None)
         pull = np.nan
         if normal_prior is not None:
-            pull = (normal_prior.a - value) * se**2 / (normal_prior.b**2 + se**2) / sd
+            pull = (normal_prior["mean"] - value) * se**2 / (normal_prior["sd"]**2 + se**2) / sd
         try:
             down, up = normal_shape(piece, j)
             near_normal = bool(NORMAL_DROP[0] <= -down <= NORMAL_DROP[1]

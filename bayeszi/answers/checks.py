@@ -60,6 +60,7 @@ __all__ = [
     "model_label",
     "pearson_check",
     "pearson_draws",
+    "replicated_frequency_draws",
     "replicated_statistics",
     "residual_df",
     "residuals",
@@ -365,17 +366,50 @@ def expected_frequency_draws(fitted: FitRecord, kmax: int | None = None,
     return pd.DataFrame(out, columns=_bin_labels(K))
 
 
+def replicated_frequency_draws(fitted: FitRecord, kmax: int | None = None,
+                               draws: int | None = None, seed: options.Seed = 0, *,
+                               max_floats: int = MAX_FLOATS) -> pd.DataFrame:
+    """Number of records with count k = 0..K and in the tail bin, in replicated data sets.
+
+    Row s is one data set drawn from the model (``family.random``) at posterior draw s, for
+    the fitted rows; columns as :func:`expected_frequency_draws`. Every row sums to the
+    number of records.
+
+    Example
+    -------
+    >>> reps = replicated_frequency_draws(m, kmax=8, seed=1)    # doctest: +SKIP
+    >>> reps["0"].quantile([0.05, 0.95])                        # doctest: +SKIP
+    """
+    fam = _family(fitted)
+    K = _kmax(kmax, fitted.design.y)
+    rng = options.rng(seed)
+    index = _draw_index(fitted, draws)
+    S = _n_used(fitted, index)
+    rows = fitted_rows(fitted)
+    out = np.zeros(S * (K + 2), dtype=np.int64)
+    offsets = (np.arange(S, dtype=np.int64) * (K + 2))[:, None]
+    for sl in _chunks(rows.n, S, 10, max_floats):
+        lp = _predictors(fitted, rows, sl, index)
+        y_rep = fam.random(rng, lp.counts, lp.zeros, lp.log_alpha)
+        out += np.bincount((offsets + np.minimum(y_rep, K + 1).astype(np.int64)).ravel(),
+                           minlength=S * (K + 2))
+    return pd.DataFrame(out.reshape(S, K + 2), columns=_bin_labels(K))
+
+
 def count_frequencies(fitted: FitRecord, kmax: int | None = None, interval: float = 0.9,
-                      draws: int | None = None) -> pd.DataFrame:
+                      draws: int | None = None, seed: options.Seed = 0) -> pd.DataFrame:
     """Observed against expected number of records with each count, with posterior intervals.
 
     One row per bin k = 0..K and a tail bin "K+1+" (K from :func:`default_kmax` unless
     given). ``expected`` is the posterior mean of the expected frequency (sum over records of
     P(Y = k)), the interval columns its central posterior interval: the uncertainty in the
-    model's expectation, not the sampling noise of a new data set. The ``sqrt`` columns are
-    the rootogram's coordinates; ``hanging bottom`` = sqrt(expected) - sqrt(observed) is where
-    the observed bar ends when hung from the expected curve (below 0: more records observed
-    than expected).
+    model's expectation, not the sampling noise of a new data set. The ``replicated``
+    interval columns add that noise: the central interval of the number of records with the
+    count in data sets replicated from the posterior (one per draw,
+    :func:`replicated_frequency_draws`, seeded by ``seed``); an observed frequency outside it
+    is one the model rarely produces. The ``sqrt`` columns are the rootogram's coordinates;
+    ``hanging bottom`` = sqrt(expected) - sqrt(observed) is where the observed bar ends when
+    hung from the expected value (below 0: more records observed than expected).
 
     Example
     -------
@@ -384,6 +418,7 @@ def count_frequencies(fitted: FitRecord, kmax: int | None = None, interval: floa
     """
     iv = options.interval_bounds(interval)
     lo_name, hi_name = iv.names
+    rng = options.rng(seed)
     freq = expected_frequency_draws(fitted, kmax, draws)
     K = freq.shape[1] - 2
     y = fitted.design.y
@@ -391,12 +426,16 @@ def count_frequencies(fitted: FitRecord, kmax: int | None = None, interval: floa
     vals = freq.to_numpy()
     expected = vals.mean(axis=0)
     lo, hi = np.quantile(vals, [iv.lower, iv.upper], axis=0)
+    reps = replicated_frequency_draws(fitted, K, draws, rng).to_numpy()
+    rep_lo, rep_hi = np.quantile(reps, [iv.lower, iv.upper], axis=0)
     table = pd.DataFrame({
         "k": np.arange(K + 2),
         "observed": observed.astype(np.int64),
         "expected": expected,
         lo_name: lo,
         hi_name: hi,
+        f"replicated {lo_name}": rep_lo,
+        f"replicated {hi_name}": rep_hi,
         "sqrt observed": np.sqrt(observed),
         "sqrt expected": np.sqrt(expected),
         "hanging bottom": np.sqrt(expected) - np.sqrt(observed),

@@ -23,9 +23,11 @@ Example
 
 from __future__ import annotations
 
+import contextlib
+import contextvars
 import dataclasses
 import warnings
-from collections.abc import Mapping
+from collections.abc import Iterator, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -69,6 +71,28 @@ HIGH_K_ROWS = "high-k rows"
 EXACT_ROWS = "exact refits"
 VALUES = "values from"
 SAMPLER = "sampler"
+
+
+#: How the reader asks for exact refits, phrased for where they are: the Python default here;
+#: the command line and the report set their own with :func:`refit_advice`.
+_REFIT_ADVICE: contextvars.ContextVar[str] = contextvars.ContextVar(
+    "refit_advice", default="pass exact_refits=True (fitted.loo or bayeszi.rank_models)")
+
+
+@contextlib.contextmanager
+def refit_advice(text: str) -> Iterator[None]:
+    """Within the block, warnings about high Pareto k say ``text`` as the way to ask for
+    exact refits (e.g. a study-file key or a command-line flag instead of a keyword).
+
+    >>> with refit_advice("add --exact-refits"):
+    ...     _REFIT_ADVICE.get()
+    'add --exact-refits'
+    """
+    token = _REFIT_ADVICE.set(text)
+    try:
+        yield
+    finally:
+        _REFIT_ADVICE.reset(token)
 
 
 # ---------------------------------------------------------------------------- results
@@ -144,7 +168,7 @@ class LooEstimate:
             lines.append(f"  exact refits for row(s) {_labels(self.exact_rows)}")
         if self.flagged_rows:
             lines.append(f"  unreliable PSIS values for row(s) {_labels(self.flagged_rows)}; "
-                         "pass exact_refits=True to refit without them")
+                         f"{_REFIT_ADVICE.get()} to refit without them")
         lines.extend(f"  note: {n}" for n in self.notes)
         return "\n".join(lines)
 
@@ -385,7 +409,7 @@ def _warn_flagged(est: LooEstimate, label: str) -> None:
         warnings.warn(
             f"model {label!r}: {len(rows)} row(s) have Pareto k above {est.k_limit} "
             f"(rows {_labels(rows)}), so their PSIS-LOO values are unreliable (Vehtari et al. "
-            "2024). Pass exact_refits=True to refit without each of them, or see "
+            f"2024). To refit without each of them, {_REFIT_ADVICE.get()}; see "
             "docs/compare.md for what high k says about the model",
             BayesziWarning, stacklevel=3)
     for note in est.notes:
@@ -621,4 +645,4 @@ HEADINGS = (PLACE, "family", SCORE, SCORE_SE, BEHIND, BEHIND_SE, BEHIND_IN_SE, E
 
 
 __all__ = ["HEADINGS", "K_LIMIT", "K_LOW_LIMIT", "LooEstimate", "RefitWrapper",
-           "check_same_data", "loo", "rank_models"]
+           "check_same_data", "loo", "rank_models", "refit_advice"]

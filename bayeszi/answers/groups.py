@@ -92,7 +92,8 @@ def _batches(fitted: FitRecord, parts: list[str], groups: list):
                 for k, t in enumerate(fitted.spec.varying.get(part, ())):
                     scale = pdes.scale[pdes.terms.index(t)]
                     keys = [names.summary_key(sname, lv, t) for lv in g.levels]
-                    yield g, part, t, slopes[:, :, k] / scale, sds[:, k] / scale, keys
+                    yield g, part, pdes.label(t), slopes[:, :, k] / scale, sds[:, k] / scale, \
+                        keys
 
 
 def level_pooling(draws: np.ndarray, sd: np.ndarray) -> np.ndarray:

@@ -85,7 +85,7 @@ def _run(args: argparse.Namespace) -> int:
                            "names none (add strata = [\"COLUMN\"] to [study], see "
                            "docs/strata.md)")
     dest = run_study(study, args.out, command=args.command_line, progress=args.console,
-                     save_fits=args.save_fits)
+                     save_fits=args.save_fits, exact_refits=args.exact_refits or None)
     print(os.path.join(dest, "report.html"))
     return 0
 
@@ -196,7 +196,9 @@ def _report(args: argparse.Namespace) -> int:
 
     interval_bounds(args.interval, name="--interval")
     dest = report_saved(args.saved, args.out, command=args.command_line, title=args.title,
-                        interval=args.interval, progress=args.console)
+                        interval=args.interval, progress=args.console,
+                        exact_refits=args.exact_refits,
+                        residuals_against=args.residuals_against)
     print(os.path.join(dest, "report.html"))
     return 0
 
@@ -334,6 +336,12 @@ def _add_report(sub: Any) -> None:
     rp.add_argument("--title", default=None, help="the report's title")
     rp.add_argument("--interval", type=float, default=0.9,
                     help="central interval in the tables (default: %(default)s)")
+    rp.add_argument("--exact-refits", action="store_true",
+                    help="refit each model without every record whose Pareto k is above 0.7 "
+                    "and use the exact leave-one-out value (each refit is a full fit)")
+    rp.add_argument("--residuals-against", default=None, metavar="COLUMN",
+                    help="bin the residuals by this column of the fitted data in the residual "
+                    "figure (default: the log of the expected count)")
     rp.add_argument("--quiet", action="store_true", help="no progress messages")
     rp.set_defaults(func=_report)
 
@@ -342,6 +350,9 @@ def _common_run_flags(p: argparse.ArgumentParser) -> None:
     _sampler_flags(p, defaults=False)
     p.add_argument("--save-fits", action="store_true",
                    help="also save every fit under DIR/fits/ (for predict and report)")
+    p.add_argument("--exact-refits", action="store_true",
+                   help="refit each model without every record whose Pareto k is above 0.7 "
+                   "and use the exact leave-one-out value (each refit is a full fit)")
     p.add_argument("--quiet", action="store_true", help="no progress messages")
 
 

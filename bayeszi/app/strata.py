@@ -149,7 +149,7 @@ def rows_sha256(rows: pd.DataFrame) -> str:
     """SHA-256 of a stratum's rows written as CSV (no index), the hash its key rests on.
 
     >>> rows_sha256(pd.DataFrame({"y": [1]}))[:12]
-    'bf2af0e8d5aa'
+    'b6ff7597e869'
     """
     text = rows.to_csv(index=False, lineterminator="\n")
     return hashlib.sha256(text.encode("utf-8")).hexdigest()

@@ -42,8 +42,8 @@ from bayeszi.fitting.candidates import Candidate, CheckedCandidates, check_candi
 # Allowed keys, per table. Kept here so that the error messages and docs/study-file.md agree.
 TOP_KEYS = ("study", "sampler", "model", "scenario", "contrast", "overview", "cluster")
 STUDY_KEYS = ("title", "summary", "data", "response", "exposure", "offset", "exposure_unit",
-              "groups", "nested", "seed", "interval", "preferred", "predictions", "strata",
-              "min_records")
+              "groups", "nested", "seed", "interval", "preferred", "predictions",
+              "exact_refits", "residuals_against", "strata", "min_records")
 SAMPLER_KEYS = ("draws", "warmup_steps", "chains", "cores", "acceptance_target", "sampler")
 MODEL_KEYS = ("name", "family", "counts", "zeros", "groups", "varying", "nested",
               "correlated", "priors", "sampler")
@@ -203,6 +203,8 @@ class Study:
     interval: float = 0.9
     preferred: str | None = None
     predictions: str = "models"
+    exact_refits: bool = False
+    residuals_against: str | None = None
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
     scenarios: tuple[Scenario, ...] = ()
     contrasts: tuple[Contrast, ...] = ()
@@ -265,6 +267,7 @@ class Study:
                 f"{os.path.basename(self.data_path)}; columns: {list(map(str, data.columns))[:20]}."
                 f"{hint}"
             )
+        self._check_residuals_against(data)
         checked = check_candidates(data, self.candidates, noun="model")
         designs = checked.designs
         used = sorted({c for d in designs.values() for c in d.used_columns} - {self.response})
@@ -283,6 +286,16 @@ class Study:
                 self._check_rows(f"{ct.scenario}' changed by contrast '{ct.name}", rows, d,
                                  s.groups, name)
         return checked
+
+    def _check_residuals_against(self, data: pd.DataFrame) -> None:
+        col = self.residuals_against
+        if col is not None and col not in data.columns:
+            near = difflib.get_close_matches(col, [str(c) for c in data.columns], n=1)
+            hint = f" (did you mean {near[0]!r}?)" if near else ""
+            raise BayesziError(
+                f"'residuals_against' in [study] names {col!r}{hint}, which is not a column of "
+                f"{os.path.basename(self.data_path)}; columns available: "
+                f"{list(map(str, data.columns))}")
 
     @staticmethod
     def _check_rows(label: str, rows: pd.DataFrame, design: Any, groups: str, model: str
@@ -430,11 +443,21 @@ def parse_study(raw: Mapping[str, Any], path: str) -> Study:
         exposure=exposure, offset=offset,
         exposure_unit=_text(st.get("exposure_unit"), "exposure_unit", "[study]"),
         groups=groups, seed=seed, interval=float(interval), preferred=preferred,
-        predictions=_predictions(st), sampler=sampler, scenarios=tuple(scenarios),
-        contrasts=tuple(contrasts), strata=strata, min_records=_min_records(st),
+        predictions=_predictions(st), exact_refits=_flag(st, "exact_refits"),
+        residuals_against=_text(st.get("residuals_against"), "residuals_against", "[study]"),
+        sampler=sampler, scenarios=tuple(scenarios), contrasts=tuple(contrasts),
+        strata=strata, min_records=_min_records(st),
         overview=_overview(top.get("overview", {}), scenarios),
         cluster=_cluster(top.get("cluster", {})),
     )
+
+
+def _flag(st: Mapping[str, Any], key: str) -> bool:
+    """A true/false key of [study] (false when absent)."""
+    value = st.get(key, False)
+    if not isinstance(value, bool):
+        raise BayesziError(f"'{key}' in [study] must be true or false, got {value!r}")
+    return value
 
 
 def _strata_columns(strata: tuple[str, ...], response: str, exposure: str | None,

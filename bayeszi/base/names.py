@@ -227,6 +227,10 @@ def slope_sd_label(group: str, term: str) -> str:
     return f"{group} effects: sd of {term} slopes"
 
 
+#: The priors table's label of the group-sd prior, which every grouping column of a part shares.
+ALL_GROUPS_SD_LABEL = "effects of every group: sd"
+
+
 def corr_label(group: str) -> str:
     """The table label of the correlation of a group's counts and zeros intercepts."""
     return f"{group} effects: counts-zeros correlation"

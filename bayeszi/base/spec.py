@@ -133,10 +133,12 @@ def _column_list(value: Any, what: str) -> tuple[str, ...]:
 
 
 def _plain_priors(value: Any) -> Any:
-    """Priors in plain (JSON) form: ``Prior`` objects become ``[dist, a, b, ...]`` lists and
-    NumPy numbers become Python numbers, so that a spec can always be saved."""
-    if hasattr(value, "to_list"):
-        return value.to_list()
+    """Priors in plain (JSON) form: prior distributions (``bayeszi.priors.normal(...)``) become
+    their mappings ``{"distribution": "normal", "mean": 0.0, "sd": 1.0}`` and NumPy numbers
+    become Python numbers, so that a spec can always be saved. Whether the values make
+    priors is checked when the model's priors are resolved (bayeszi.model.priors)."""
+    if hasattr(value, "to_mapping"):
+        return value.to_mapping()
     if isinstance(value, Mapping):
         return {str(k): _plain_priors(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
@@ -145,8 +147,9 @@ def _plain_priors(value: Any) -> Any:
         return value.item()
     if value is None or isinstance(value, (str, int, float, bool)):
         return value
-    raise BayesziError(f"priors hold {value!r} ({type(value).__name__}); use Prior objects, "
-                       "lists like ['normal', 0, 1], numbers and text only (see docs/priors.md)")
+    raise BayesziError(f"priors hold {value!r} ({type(value).__name__}); use bayeszi.priors "
+                       "functions such as normal(mean=0, sd=1), or mappings such as "
+                       "{'distribution': 'normal', 'mean': 0, 'sd': 1} (see docs/priors.md)")
 
 
 @dataclass(frozen=True)
@@ -352,7 +355,8 @@ def _checked_priors(raw: object) -> dict[str, Any]:
     priors = {} if raw is None else raw
     if not isinstance(priors, Mapping):
         raise BayesziError(
-            "priors must be a dict such as {'counts': {'depth': Prior('normal', 0, 0.5)}}, "
+            "priors must be a dict such as {'counts': {'depth': bayeszi.priors.normal(mean=0, "
+            "sd=0.5)}}, "
             f"got {priors!r}; see docs/priors.md"
         )
     return _plain_priors(priors)

@@ -38,6 +38,7 @@ from bayeszi.base.spec import ModelSpec
 from bayeszi.base.version import __version__
 from bayeszi.engine.fit import rebuild_record
 from bayeszi.engine.record import FitRecord
+from bayeszi.model.distributions import upgrade_saved_priors
 
 FORMAT = 1
 """File format number: raised whenever a file written now could not be read by older code."""
@@ -246,7 +247,7 @@ def load(path: str) -> FitRecord:
         raise _damaged(path, f"its fitted data cannot be rebuilt: {type(err).__name__}") \
             from None
     try:
-        spec = ModelSpec.from_dict(meta["spec"])
+        spec = ModelSpec.from_dict(_upgraded_spec(meta["spec"]))
     except (BayesziError, TypeError) as err:
         raise BayesziError(
             f"{path!r} was written by bayeszi {version}, whose model settings this bayeszi "
@@ -271,6 +272,14 @@ def load(path: str) -> FitRecord:
             stacklevel=3,
         )
     return fitted
+
+
+def _upgraded_spec(saved: dict[str, Any]) -> dict[str, Any]:
+    """The saved spec with priors written in the list form of bayeszi 0.1 (``["normal", 0,
+    1]``) turned into today's mappings, so that fits saved then still load."""
+    if not isinstance(saved.get("priors"), dict):
+        return saved
+    return {**saved, "priors": upgrade_saved_priors(saved["priors"])}
 
 
 def _check_consistent(fitted: FitRecord, path: str, version: str) -> None:

@@ -16,6 +16,7 @@ True
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import signal
 import threading
 import time
@@ -34,7 +35,7 @@ from bayeszi.engine.pointwise import pattern_log_likelihood
 from bayeszi.engine.record import FitRecord, Posterior
 from bayeszi.model.build import build_model
 from bayeszi.model.design import Design, build_design
-from bayeszi.model.diagnostics import diagnose
+from bayeszi.model.diagnostics import Diagnostics, diagnose
 from bayeszi.model.priors import resolve
 from bayeszi.model.reuse import attach_active
 from bayeszi.model.sample import run_nuts
@@ -76,7 +77,19 @@ def fit_record(data: pd.DataFrame, spec: ModelSpec, prior_draws: int = 0) -> Fit
     timing = {"build_s": t1 - t0, "sample_s": t2 - t1,
               "log_likelihood_s": time.perf_counter() - t3}
     return FitRecord(spec, design, idata, priors, data[design.used_columns].copy(),
-                     diagnose(idata), timing)
+                     _diagnosed(idata, design), timing)
+
+
+def _diagnosed(idata: az.InferenceData, design: Design) -> Diagnostics:
+    """The sampler diagnostics, with coefficients named by their terms' labels (what the
+    warnings and tables show) instead of the formula's term names."""
+    diag = diagnose(idata)
+    keys = design.parameter_labels()
+    if not keys:
+        return diag
+    return dataclasses.replace(diag, table=diag.table.rename(index=keys),
+                               bad_rhat=[keys.get(k, k) for k in diag.bad_rhat],
+                               bad_ess=[keys.get(k, k) for k in diag.bad_ess])
 
 
 def rebuild_record(spec: ModelSpec, data: pd.DataFrame, idata: az.InferenceData,
@@ -85,7 +98,7 @@ def rebuild_record(spec: ModelSpec, data: pd.DataFrame, idata: az.InferenceData,
     design = build_design(data, spec)
     priors = resolve(design, spec.priors)
     return FitRecord(spec, design, idata, priors, data[design.used_columns].copy(),
-                     diagnose(idata), dict(timing or {}))
+                     _diagnosed(idata, design), dict(timing or {}))
 
 
 @contextlib.contextmanager

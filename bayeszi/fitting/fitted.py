@@ -69,10 +69,11 @@ class FittedModel(FitRecord):
     def coefficients(self, interval: float = 0.9, groups: bool = True) -> pd.DataFrame:
         """Coefficient table of both parts on the user's scale.
 
-        Rows are labelled by part and term; columns: posterior mean, sd, the central
-        ``interval`` bounds, the exp scale (rate ratio for counts, odds ratio for zeros) with
-        its bounds, R-hat, bulk and tail ESS and a flag. Group sds (and correlations) and the
-        NB dispersion are listed too, without an exp scale.
+        Rows are labelled by part and term (its readable label, e.g. ``substrate: gravel
+        (vs cobble)``; see :mod:`bayeszi.model.term_labels`); columns: posterior mean, sd, the
+        central ``interval`` bounds, the exp scale (rate ratio for counts, odds ratio for
+        zeros) with its bounds, R-hat, bulk and tail ESS and a flag. Group sds (and
+        correlations) and the NB dispersion are listed too, without an exp scale.
         """
         iv = options.interval_bounds(interval)
         rows: list[dict] = []
@@ -82,9 +83,9 @@ class FittedModel(FitRecord):
             if pdes is None:
                 continue
             var = post[names.coef(part)]
-            for term in pdes.terms:
-                add(part, term, var.sel({names.term_dim(part): term}).values,
-                    names.summary_key(names.coef(part), term),
+            for term, label in zip(pdes.terms, pdes.labels, strict=True):
+                add(part, label, var.sel({names.term_dim(part): term}).values,
+                    names.summary_key(names.coef(part), label),
                     _label(part, self.spec.family, term))
         if names.DISPERSION in post:
             add("counts", "dispersion (alpha)", post[names.DISPERSION].values, names.DISPERSION,
@@ -156,19 +157,22 @@ class FittedModel(FitRecord):
                                                  seed=seed))
 
     def count_frequencies(self, kmax: int | None = None, interval: float = 0.9,
-                          draws: int | None = None) -> pd.DataFrame:
+                          draws: int | None = None, seed: options.Seed = 0) -> pd.DataFrame:
         """Observed against expected number of records with each count 0..K and K+1 or more.
 
-        See :func:`bayeszi.answers.checks.count_frequencies`.
+        With the posterior interval of the expected number and the interval of the number
+        in replicated data sets (seeded by ``seed``). See
+        :func:`bayeszi.answers.checks.count_frequencies`.
 
         Example
         -------
         >>> m.count_frequencies().loc["0", ["observed", "expected"]]   # doctest: +SKIP
         """
-        return check_answers.count_frequencies(self, kmax=kmax, interval=interval, draws=draws)
+        return check_answers.count_frequencies(self, kmax=kmax, interval=interval, draws=draws,
+                                               seed=seed)
 
     def rootogram(self, kmax: int | None = None, interval: float = 0.9,
-                  draws: int | None = None, ax: Any = None):
+                  draws: int | None = None, ax: Any = None, seed: options.Seed = 0):
         """Hanging rootogram (Tukey 1977) of :meth:`count_frequencies`, as a Figure.
 
         Example
@@ -176,7 +180,7 @@ class FittedModel(FitRecord):
         >>> m.rootogram().savefig("rootogram.png")                # doctest: +SKIP
         """
         return checkplots.rootogram_figure(self.count_frequencies(kmax=kmax, interval=interval,
-                                                       draws=draws), ax=ax)
+                                                                  draws=draws, seed=seed), ax=ax)
 
     def dispersion_check(self, interval: float = 0.9, draws: int | None = None,
                          seed: options.Seed = 0) -> pd.DataFrame:
@@ -235,14 +239,22 @@ class FittedModel(FitRecord):
         return check_answers.residuals(self, method=method, seed=seed, draws=draws)
 
     def residual_plots(self, method: str = "posterior", seed: options.Seed = 0,
-                       draws: int | None = None):
-        """Figure: QQ plot and residual-versus-expected plot of :meth:`residuals`.
+                       draws: int | None = None, against: Any = None,
+                       bins: int | None = None):
+        """Figure of :meth:`residuals`: their PIT values against the uniform, and their mean
+        in bins of ``against``.
+
+        ``against`` is a column of the fitted data (or a Series of the fitted frame; default:
+        the log of the expected count); ``bins`` the number of equal-count bins (default:
+        about 30 records each, at most 20). See
+        :func:`bayeszi.plots.checkplots.residual_figure`.
 
         Example
         -------
-        >>> m.residual_plots().savefig("residuals.png")           # doctest: +SKIP
+        >>> m.residual_plots(against="depth").savefig("residuals.png")   # doctest: +SKIP
         """
-        return checkplots.residual_figure(self.residuals(method=method, seed=seed, draws=draws))
+        res = self.residuals(method=method, seed=seed, draws=draws)
+        return checkplots.residual_figure(res, against=against, data=self.data, bins=bins)
 
     def zero_sources(self, by: str | list | pd.Series | None = None, interval: float = 0.9,
                      draws: int | None = None) -> pd.DataFrame:

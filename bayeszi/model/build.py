@@ -31,8 +31,9 @@ import pytensor.tensor as pt
 from bayeszi.base import names
 from bayeszi.families import get_family
 from bayeszi.model.design import Design, GroupDesign, PartDesign
+from bayeszi.model.distributions import PriorDistribution
 from bayeszi.model.patterns import Likelihood, find_patterns, pattern_logp, pattern_random
-from bayeszi.model.priors import Prior, PriorSet
+from bayeszi.model.priors import PriorSet
 
 #: Sample data-rich levels' intercepts centred (see :func:`centred_levels`); False: never.
 CENTRING = True
@@ -47,29 +48,30 @@ CENTRE_MIN_RECORDS = 50
 ZEROS_DILUTION = 4.0
 
 
-def _dist(name: str, p: Prior, dims: str | tuple[str, ...] | None = None,
+def _dist(name: str, p: PriorDistribution, dims: str | tuple[str, ...] | None = None,
           shape: int | None = None):
+    """The PyMC variable of prior ``p`` (see :mod:`bayeszi.model.distributions`)."""
     kw = {"dims": dims} if dims is not None else ({"shape": shape} if shape else {})
-    if p.dist == "normal":
-        return pm.Normal(name, mu=p.a, sigma=p.b, **kw)
-    if p.dist == "student_t":
-        return pm.StudentT(name, mu=p.a, sigma=p.b, nu=p.c, **kw)
-    if p.dist == "laplace":
-        return pm.Laplace(name, mu=p.a, b=p.b, **kw)
-    if p.dist == "halfnormal":
-        return pm.HalfNormal(name, sigma=p.a, **kw)
-    if p.dist == "exponential":
-        return pm.Exponential(name, lam=p.a, **kw)
-    return pm.HalfStudentT(name, sigma=p.a, nu=p.b, **kw)
+    if p.distribution == "normal":
+        return pm.Normal(name, mu=p["mean"], sigma=p["sd"], **kw)
+    if p.distribution == "student_t":
+        return pm.StudentT(name, mu=p["centre"], sigma=p["scale"], nu=p["df"], **kw)
+    if p.distribution == "laplace":
+        return pm.Laplace(name, mu=p["centre"], b=p["scale"], **kw)
+    if p.distribution == "half_normal":
+        return pm.HalfNormal(name, sigma=p["sd"], **kw)
+    if p.distribution == "exponential":
+        return pm.Exponential(name, lam=p["rate"], **kw)
+    return pm.HalfStudentT(name, sigma=p["scale"], nu=p["df"], **kw)
 
 
-def _coefficients(part: str, pdes: PartDesign, priors: dict[str, Prior]):
+def _coefficients(part: str, pdes: PartDesign, priors: dict[str, PriorDistribution]):
     name = names.std_coef(part)
     dims = names.term_dim(part)
     plist = [priors[t] for t in pdes.terms]
-    if all(p.dist == "normal" for p in plist):
-        mu = np.array([p.a for p in plist])
-        sd = np.array([p.b for p in plist])
+    if all(p.distribution == "normal" for p in plist):
+        mu = np.array([p["mean"] for p in plist])
+        sd = np.array([p["sd"] for p in plist])
         return pm.Normal(name, mu=mu, sigma=sd, dims=dims)
     # Mixed families of priors: one raw variable per term, stacked.
     raws = [_dist(names.std_coef_raw(part, j), p) for j, p in enumerate(plist)]
@@ -98,7 +100,7 @@ def _correlated_intercepts(g: GroupDesign, priors: PriorSet):
 
 
 def _slopes(part: str, pdes: PartDesign, terms: tuple[str, ...], g: GroupDesign,
-            prior: Prior, codes):
+            prior: PriorDistribution, codes):
     """Group deviations of the slopes of ``terms`` (internal scale, non-centred): the part's
     linear predictor gains ``sum_t slope[group, t] * x_std[:, t]``."""
     idx = [pdes.terms.index(t) for t in terms]

@@ -15,6 +15,14 @@ Example
 >>> d = build_design(df, ModelSpec(counts="y ~ x + C(s)", family="zip"))
 >>> d.counts.terms
 ['Intercept', 'x', 'C(s)[T.b]']
+>>> d.counts.labels
+['Intercept', 'x', 's: b (vs a)']
+
+Text and category columns are categories with or without ``C()``; the first level (in sorted
+order, or the category order of a pandas Categorical) is the reference. Terms keep the
+formula library's names inside (they index the stored draws); people read the labels of
+:func:`bayeszi.model.term_labels.term_labels`, and :meth:`PartDesign.term_of` accepts
+either.
 """
 
 from __future__ import annotations
@@ -34,6 +42,7 @@ from bayeszi.base.errors import BayesziError
 from bayeszi.base.spec import ModelSpec
 from bayeszi.families import get_family
 from bayeszi.model import validate as V
+from bayeszi.model.term_labels import term_labels, unique_labels
 
 
 @dataclass
@@ -41,6 +50,8 @@ class PartDesign:
     """One part's design matrix on the user's scale, with the sampler's internal scaling.
 
     ``X_std = (X - center) / scale``; the intercept column keeps center 0 and scale 1.
+    ``terms`` are the formula library's column names (the coordinates of the draws);
+    ``labels`` are what people read, one per term (see :mod:`bayeszi.model.term_labels`).
     """
 
     part: str
@@ -51,6 +62,21 @@ class PartDesign:
     scale: np.ndarray
     intercept: int | None
     model_spec: Any = field(repr=False, default=None)
+    labels: list[str] = field(default_factory=list)
+
+    def __post_init__(self) -> None:
+        if len(self.labels) != len(self.terms):
+            self.labels = list(self.terms)
+
+    def label(self, term: str) -> str:
+        """The readable label of ``term`` (a term name; anything else is returned as is)."""
+        return self.labels[self.terms.index(term)] if term in self.terms else term
+
+    def term_of(self, key: str) -> str | None:
+        """The term named by ``key``, a term name or a label; None when neither."""
+        if key in self.terms:
+            return key
+        return self.terms[self.labels.index(key)] if key in self.labels else None
 
     @property
     def X_std(self) -> np.ndarray:
@@ -93,6 +119,20 @@ class Design:
     index: pd.Index
     #: formula variables that were numeric when fitting, with their (min, max) there
     ranges: dict[str, tuple[float, float]] = field(default_factory=dict)
+
+    def parameter_labels(self) -> dict[str, str]:
+        """Diagnostics-table keys of the coefficients whose term has a label of its own,
+        mapped to the key people read: ``counts_coef[C(s)[T.b]]`` -> ``counts_coef[s: b (vs
+        a)]``."""
+        out = {}
+        for pdes in (self.counts, self.zeros):
+            if pdes is None:
+                continue
+            for term, label in zip(pdes.terms, pdes.labels, strict=True):
+                if label != term:
+                    out[names.summary_key(names.coef(pdes.part), term)] = \
+                        names.summary_key(names.coef(pdes.part), label)
+        return out
 
     def encode(self, data: pd.DataFrame, *, need_exposure: bool = True) -> EncodedRows:
         """Encode new rows like the fitted data; unknown groups get code -1."""
@@ -161,9 +201,9 @@ def _materialize(part: PartDesign, data: pd.DataFrame) -> np.ndarray:
     X = np.asarray(mm, dtype=float)
     if X.shape[1] != len(part.terms):
         raise BayesziError(
-            f"{part.part} formula '~ {part.rhs}' gives columns {[str(c) for c in mm.columns]} "
-            f"on the new data but {part.terms} when fitting; give each column the same type "
-            "(number or category) as in the fitted data"
+            f"{part.part} formula '~ {part.rhs}' gives terms {_labels_of(mm)} on the new data "
+            f"but {part.labels} when fitting; give each column the same type (number or "
+            "category) as in the fitted data"
         )
     return X
 
@@ -226,6 +266,16 @@ def _tidy_categories(data: pd.DataFrame, columns: list[str]) -> pd.DataFrame:
     return data
 
 
+def _labels_of(mm: Any) -> list[str]:
+    """Readable labels of a formulaic model matrix's columns."""
+    terms = [str(c) for c in mm.columns]
+    try:
+        labels = term_labels(mm.model_spec)
+    except Exception:  # an unexpected formulaic structure: the column names are still true
+        return terms
+    return unique_labels(labels, terms) if len(labels) == len(terms) else terms
+
+
 def _first_line(err: Exception) -> str:
     return str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
 
@@ -273,11 +323,12 @@ def _part(part: str, rhs: str, data: pd.DataFrame) -> PartDesign:
                            "part and give group effects with groups=")
     X = np.asarray(mm, dtype=float)
     terms = [str(c) for c in mm.columns]
+    labels = _labels_of(mm)
     if X.shape[1] == 0:
         raise BayesziError(f"{part} formula '~ {rhs}' has no terms; use '~ 1' for an intercept")
     if not np.all(np.isfinite(X)):
         bad = ~np.all(np.isfinite(X), axis=1)
-        cols = [t for t, ok in zip(terms, np.all(np.isfinite(X), axis=0), strict=True) if not ok]
+        cols = [t for t, ok in zip(labels, np.all(np.isfinite(X), axis=0), strict=True) if not ok]
         raise BayesziError(
             f"{part} formula '~ {rhs}' gives non-finite values in term(s) {cols} at row(s) "
             f"{V.rows_text(data.index, bad)} (e.g. log of zero); transform the data first"
@@ -292,7 +343,7 @@ def _part(part: str, rhs: str, data: pd.DataFrame) -> PartDesign:
         sd = col.std()
         if sd == 0:
             raise BayesziError(
-                f"term {terms[j]!r} of the {part} formula is constant in the data (every row "
+                f"term {labels[j]!r} of the {part} formula is constant in the data (every row "
                 f"{col[0]:g}); it cannot be estimated. Drop it from the formula"
             )
         binary = np.all((col == 0) | (col == 1))
@@ -304,13 +355,13 @@ def _part(part: str, rhs: str, data: pd.DataFrame) -> PartDesign:
     rank = np.linalg.matrix_rank(Xs)
     if rank < X.shape[1]:
         warnings.warn(
-            f"the {part} formula's terms {terms} are collinear (rank {rank} of {X.shape[1]}): "
+            f"the {part} formula's terms {labels} are collinear (rank {rank} of {X.shape[1]}): "
             "some coefficients are not identified by the data and will show only their prior. "
             "Drop one of the redundant terms",
             V.BayesziWarning,
             stacklevel=4,
         )
-    return PartDesign(part, rhs, terms, X, center, scale, intercept, mm.model_spec)
+    return PartDesign(part, rhs, terms, X, center, scale, intercept, mm.model_spec, labels)
 
 
 def _label_strings(s: pd.Series) -> pd.Series:
@@ -515,6 +566,7 @@ def _check_slopes_vary(pdes: PartDesign | None, terms: tuple[str, ...],
         return
     for t in terms:
         x = pdes.X[:, pdes.terms.index(t)]
+        shown = pdes.label(t)
         for g in groups:
             lo = np.full(len(g.levels), np.inf)
             hi = np.full(len(g.levels), -np.inf)
@@ -522,7 +574,7 @@ def _check_slopes_vary(pdes: PartDesign | None, terms: tuple[str, ...],
             np.maximum.at(hi, g.codes, x)
             if np.all(hi - lo <= 1e-12 * max(1.0, float(np.abs(x).max()))):
                 warnings.warn(
-                    f"term {t!r} of the {pdes.part} part has one value within each level of "
+                    f"term {shown!r} of the {pdes.part} part has one value within each level of "
                     f"{g.name!r}, so a slope varying by {g.name} cannot be told apart from each "
                     f"{g.name}'s own intercept; its sd will show mostly its prior. Drop {t!r} "
                     "from varying (a group-level predictor needs no varying slope)",
@@ -545,7 +597,7 @@ def _check_separation(y: np.ndarray, counts: PartDesign, zeros: PartDesign | Non
     notes = []
     if zeros is not None and 0 < zero.sum() < len(y):
         what = names.ZEROS_LABELS["hurdle" if zeros_kind == "hurdle" else "inflation"]
-        for j, term in enumerate(zeros.terms):
+        for j, label in enumerate(zeros.labels):
             if j == zeros.intercept:
                 continue
             x = zeros.X[:, j]
@@ -554,7 +606,7 @@ def _check_separation(y: np.ndarray, counts: PartDesign, zeros: PartDesign | Non
                     z = zero[x == v]
                     if z.size and (z.all() or not z.any()):
                         kind = "zero" if z.all() else "non-zero"
-                        notes.append(f"zeros-part term {term!r}: every record with {term} = "
+                        notes.append(f"zeros-part term {label!r}: every record where it is "
                                      f"{v:g} is {kind}, so {what} there is pushed to "
                                      f"{1 if z.all() else 0}")
                         break
@@ -563,14 +615,14 @@ def _check_separation(y: np.ndarray, counts: PartDesign, zeros: PartDesign | Non
                 lo1, hi1 = x[~zero].min(), x[~zero].max()
                 if hi0 < lo1 or hi1 < lo0:
                     side = "below" if hi0 < lo1 else "above"
-                    notes.append(f"zeros-part term {term!r}: every zero lies {side} every "
-                                 f"non-zero count along {term}, so {what} jumps from 0 to 1")
-    for j, term in enumerate(counts.terms):
+                    notes.append(f"zeros-part term {label!r}: every zero lies {side} every "
+                                 f"non-zero count along it, so {what} jumps from 0 to 1")
+    for j, label in enumerate(counts.labels):
         if j == counts.intercept:
             continue
         x = counts.X[:, j]
         if np.all((x == 0) | (x == 1)) and (x == 1).any() and zero[x == 1].all():
-            notes.append(f"counts-part term {term!r}: every record with {term} = 1 is zero, so "
+            notes.append(f"counts-part term {label!r}: every record where it is 1 is zero, so "
                          "its rate ratio is pushed toward 0")
     if notes:
         warnings.warn(

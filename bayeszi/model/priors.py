@@ -7,15 +7,25 @@ is set on that internal scale and a user prior is carried there exactly (a coeff
 ``beta`` per unit is ``beta * scale`` per internal unit). Intercept priors refer to the
 linear predictor at the average of the predictors.
 
-Overrides: ``priors={"counts": {"depth": Prior("normal", 0, 0.3)},
-"zeros": {"Intercept": Prior("normal", 2, 1)}, "dispersion": Prior("exponential", 5),
-"group_sd": {"counts": Prior("halfnormal", 0.5)}}``.
+Overrides name the part, then the term (by its label as tables show it, e.g.
+``"substrate: gravel (vs cobble)"``, or by the formula's own term name), and give a prior
+distribution of :mod:`bayeszi.model.distributions` (``bayeszi.priors``) or its mapping form::
+
+    priors={"counts": {"depth": normal(mean=0, sd=0.3)},
+            "zeros": {"Intercept": {"distribution": "normal", "mean": 2, "sd": 1}},
+            "dispersion": exponential(rate=5),
+            "group_sd": {"counts": half_normal(sd=0.5)}}
 
 Example
 -------
->>> from bayeszi.model.priors import Prior
->>> Prior("normal", 0, 0.5)
-Prior(dist='normal', a=0.0, b=0.5, c=None)
+>>> import pandas as pd
+>>> from bayeszi.base.spec import ModelSpec
+>>> from bayeszi.model.design import build_design
+>>> df = pd.DataFrame({"y": [0, 1, 3, 0, 2, 5], "s": list("abcabc")})
+>>> d = build_design(df, ModelSpec(counts="y ~ s", family="poisson"))
+>>> ps = resolve(d, {"counts": {"s: b (vs a)": normal(mean=0.5, sd=0.2)}})
+>>> [r["prior"] for r in ps.table() if r["term"] == "s: b (vs a)"]
+['Normal, mean 0.5, sd 0.2']
 """
 
 from __future__ import annotations
@@ -27,105 +37,43 @@ from typing import Any
 import numpy as np
 
 from bayeszi.base.errors import BayesziError
-from bayeszi.base.names import zero_mechanism
+from bayeszi.base.names import ALL_GROUPS_SD_LABEL, zero_mechanism
+from bayeszi.model.distributions import (
+    PARAMETERS,
+    REAL_LINE,
+    Prior,  # noqa: F401  (0.1's import path: says what to write)
+    PriorDistribution,
+    as_distribution,
+    exponential,
+    half_normal,
+    normal,
+)
 
-COEF_DISTS = {"normal": 2, "student_t": 3, "laplace": 2}
-SCALE_DISTS = {"halfnormal": 1, "exponential": 1, "halfstudent_t": 2}
-
-
-@dataclass(frozen=True)
-class Prior:
-    """A prior distribution. ``normal(mu, sigma)``, ``student_t(mu, sigma, nu)``,
-    ``laplace(mu, b)`` for coefficients; ``halfnormal(sigma)``, ``exponential(rate)``,
-    ``halfstudent_t(sigma, nu)`` for standard deviations and the dispersion."""
-
-    dist: str
-    a: float = 0.0
-    b: float | None = None
-    c: float | None = None
-
-    def __post_init__(self) -> None:
-        known = {**COEF_DISTS, **SCALE_DISTS}
-        if not isinstance(self.dist, str) or self.dist not in known:
-            raise BayesziError(f"unknown prior {self.dist!r}; use one of {sorted(known)}")
-        args = [v for v in (self.a, self.b, self.c) if v is not None]
-        for v in args:
-            if isinstance(v, (bool, np.bool_)) or not isinstance(v, (int, float, np.integer,
-                                                                       np.floating)):
-                raise BayesziError(f"prior {self.dist!r} takes numbers, got {v!r} among "
-                                   f"{args}; e.g. Prior('normal', 0, 1)")
-        if len(args) != known[self.dist]:
-            raise BayesziError(
-                f"prior {self.dist!r} takes {known[self.dist]} number(s), got {len(args)}: {args}"
-            )
-        for v in args:
-            if not np.isfinite(float(v)):
-                raise BayesziError(f"prior {self.dist!r} has a non-finite parameter {v!r}")
-        object.__setattr__(self, "a", float(self.a))
-        object.__setattr__(self, "b", None if self.b is None else float(self.b))
-        object.__setattr__(self, "c", None if self.c is None else float(self.c))
-        positive = args[1:] if self.dist in COEF_DISTS else args
-        if any(float(v) <= 0 for v in positive):
-            raise BayesziError(f"prior {self.dist!r} needs positive scale parameters, got {args}")
-
-    @property
-    def is_coef(self) -> bool:
-        """Whether this prior suits a coefficient (real line)."""
-        return self.dist in COEF_DISTS
-
-    def scaled(self, factor: float, shift: float = 0.0) -> Prior:
-        """The same prior for ``factor * beta + shift`` (location-scale families only)."""
-        if not self.is_coef:
-            raise BayesziError("only coefficient priors can be rescaled")
-        return Prior(self.dist, self.a * factor + shift, self.b * abs(factor), self.c)
-
-    def to_list(self) -> list[Any]:
-        """JSON-friendly form ``[dist, a, b, c]`` without trailing ``None``."""
-        out = [self.dist, self.a, self.b, self.c]
-        while out[-1] is None:
-            out.pop()
-        return out
-
-
-def as_prior(value: Any, where: str) -> Prior:
-    """Accept a :class:`Prior`, or a list/tuple ``["normal", 0, 1]``, naming ``where`` on error."""
-    if isinstance(value, Prior):
-        return value
-    if isinstance(value, (list, tuple)) and value and isinstance(value[0], str):
-        if len(value) > 4:
-            raise BayesziError(f"prior for {where} has too many numbers: {list(value)}; e.g. "
-                               "['normal', 0, 1] or ['student_t', 0, 1, 3]")
-        try:
-            return Prior(*value)
-        except BayesziError as err:
-            raise BayesziError(f"prior for {where}: {err}") from None
-    raise BayesziError(
-        f"prior for {where} must be a Prior or a list like ['normal', 0, 1], got {value!r}"
-    )
+POSITIVE = tuple(d for d in PARAMETERS if d not in REAL_LINE)
 
 
 # Defaults, each with its reason (mirrored in docs/priors.md).
 COUNTS_COEF_SD = 1.0
-"""Normal(0, 1) per 2 sd of a continuous input (per unit of a binary one): a rate ratio
+"""Normal, mean 0, sd 1, per 2 sd of a continuous input (per unit of a binary one): a rate ratio
 between 1/7 and 7 is 95% likely for such a change, wide for field data yet it keeps the prior
 predictive from producing astronomically large counts when several terms add up."""
 ZEROS_COEF_SD = 1.5
-"""Normal(0, 1.5) on the logit scale per 2 sd: odds ratios up to about 20 remain plausible,
+"""Normal, mean 0, sd 1.5, on the logit scale per 2 sd: odds ratios up to about 20 remain plausible,
 while the prior does not pile mass at probabilities of exactly 0 or 1 (a wider prior on the
 logit scale does, which also makes separated data sample badly)."""
 INTERCEPT_SD = 1.5
 """Intercepts are centred on the data (log mean rate, or logit of the zero share) with sd 1.5:
 the data decide, the prior only rules out values many orders of magnitude away."""
 DISPERSION_RATE = 3.0
-"""sqrt(alpha) ~ Exponential(3): the penalised-complexity idea (Simpson et al. 2017,
+"""sqrt(alpha): Exponential, rate 3: the penalised-complexity idea (Simpson et al. 2017,
 Stat. Sci.) puts an exponential prior on the distance from the Poisson, which for the
 negative binomial grows like sqrt(alpha) near alpha = 0 (from memory of that paper's NB
 example); rate 3 gives P(alpha > 1) = exp(-3) = 0.05, shrinking toward the Poisson unless the
 data ask for overdispersion."""
 GROUP_SD = {"counts": 1.0, "zeros": 1.5}
-"""Half-normal(1) for the sd of group effects on the log-rate scale (groups differing by a
-factor of e^2 = 7 between typical high and low groups are unusual but allowed); half-normal
-(1.5) on the logit scale, for the same reason as the zeros coefficients."""
+"""Half-normal, sd 1, for the sd of group effects on the log-rate scale (groups differing by a
+factor of e^2 = 7 between typical high and low groups are unusual but allowed); half-normal,
+sd 1.5, on the logit scale, for the same reason as the zeros coefficients."""
 LKJ_ETA = 2.0
 """LKJ(2) on the correlation of a group's counts and zeros intercepts: mildly favours small
 correlations, so the data must show a correlation before it is reported."""
@@ -162,35 +110,33 @@ def intercept_centres(y: np.ndarray, log_offset: np.ndarray, zeros_kind: str | N
 class PriorSet:
     """The resolved priors of one model, per part and term, on the internal scale."""
 
-    counts: dict[str, Prior]
-    zeros: dict[str, Prior]
-    dispersion: Prior
-    group_sd: dict[str, Prior]
+    counts: dict[str, PriorDistribution]
+    zeros: dict[str, PriorDistribution]
+    dispersion: PriorDistribution
+    group_sd: dict[str, PriorDistribution]
     lkj_eta: float
-    user_scale: dict[str, dict[str, Prior]]
+    user_scale: dict[str, dict[str, PriorDistribution]]
+    #: per part, each term's readable label (what the table shows)
+    labels: dict[str, dict[str, str]]
 
     def table(self) -> list[dict[str, Any]]:
-        """Rows (part, term, prior on the user's scale) for reports."""
+        """Rows (part, term label, prior on the user's scale) for reports."""
         rows = []
         for part in ("counts", "zeros"):
+            shown = self.labels.get(part, {})
             for term, p in self.user_scale.get(part, {}).items():
-                rows.append({"part": part, "term": term, "prior": _fmt(p)})
-        rows.append({"part": "counts", "term": "sqrt(dispersion)", "prior": _fmt(self.dispersion)})
+                rows.append({"part": part, "term": shown.get(term, term), "prior": str(p)})
+        rows.append({"part": "counts", "term": "sqrt(dispersion)", "prior": str(self.dispersion)})
         for part, p in self.group_sd.items():
-            rows.append({"part": part, "term": "group sd", "prior": _fmt(p)})
+            rows.append({"part": part, "term": ALL_GROUPS_SD_LABEL, "prior": str(p)})
         return rows
-
-
-def _fmt(p: Prior) -> str:
-    args = ", ".join(f"{v:.3g}" for v in (p.a, p.b, p.c) if v is not None)
-    return f"{p.dist}({args})"
 
 
 def resolve(design: Any, overrides: Mapping[str, Any] | None) -> PriorSet:
     """Resolve defaults and ``overrides`` for a :class:`~bayeszi.model.design.Design`."""
     if overrides is not None and not isinstance(overrides, Mapping):
-        raise BayesziError(f"priors must be a dict such as {{'counts': {{'depth': ['normal', 0, "
-                           f"0.5]}}}}, got {overrides!r}")
+        raise BayesziError("priors must be a dict such as {'counts': {'depth': {'distribution': "
+                           f"'normal', 'mean': 0, 'sd': 0.5}}}}, got {overrides!r}")
     overrides = dict(overrides or {})
     unknown = sorted(set(overrides) - {"counts", "zeros", "dispersion", "group_sd", "lkj_eta"})
     if unknown:
@@ -200,8 +146,9 @@ def resolve(design: Any, overrides: Mapping[str, Any] | None) -> PriorSet:
         )
     c0, z0 = intercept_centres(design.y, design.log_offset,
                                zero_mechanism(design.spec.family))
-    parts: dict[str, dict[str, Prior]] = {}
-    user: dict[str, dict[str, Prior]] = {}
+    parts: dict[str, dict[str, PriorDistribution]] = {}
+    user: dict[str, dict[str, PriorDistribution]] = {}
+    labels: dict[str, dict[str, str]] = {}
     for part, pdes, centre, sd in (("counts", design.counts, c0, COUNTS_COEF_SD),
                                    ("zeros", design.zeros, z0, ZEROS_COEF_SD)):
         if pdes is None:
@@ -211,58 +158,74 @@ def resolve(design: Any, overrides: Mapping[str, Any] | None) -> PriorSet:
             continue
         parts[part], user[part] = _part_priors(part, pdes, overrides.get(part) or {}, centre,
                                                sd)
+        labels[part] = dict(zip(pdes.terms, pdes.labels, strict=True))
     return PriorSet(parts.get("counts", {}), parts.get("zeros", {}),
                     _dispersion_prior(overrides), _group_sd_priors(overrides),
-                    _lkj_eta(overrides), user)
+                    _lkj_eta(overrides), user, labels)
+
+
+def _given_by_term(part: str, pdes: Any, given: Any) -> dict[str, Any]:
+    """The user's priors of one part keyed by term name; keys may be labels or term names."""
+    if not isinstance(given, Mapping):
+        raise BayesziError(f"priors[{part!r}] must map terms to priors, got {given!r}")
+    out: dict[str, Any] = {}
+    for key, value in given.items():
+        term = pdes.term_of(key) if isinstance(key, str) else None
+        if term is None:
+            raise BayesziError(f"priors[{part!r}] names unknown term {key!r}; terms of the "
+                               f"{part} part: {pdes.labels}")
+        if term in out:
+            raise BayesziError(f"priors[{part!r}] gives term {pdes.label(term)!r} two priors "
+                               f"(under {term!r} and under its label); keep one")
+        out[term] = value
+    return out
 
 
 def _part_priors(part: str, pdes: Any, given: Any, centre: float, sd: float
-                 ) -> tuple[dict[str, Prior], dict[str, Prior]]:
+                 ) -> tuple[dict[str, PriorDistribution], dict[str, PriorDistribution]]:
     """(internal-scale, user-scale) coefficient priors of one part, overrides applied."""
-    if not isinstance(given, Mapping):
-        raise BayesziError(f"priors[{part!r}] must map term names to priors, got {given!r}")
-    bad = sorted(set(given) - set(pdes.terms))
-    if bad:
-        raise BayesziError(f"priors[{part!r}] names unknown term(s) {bad}; terms of the "
-                           f"{part} part: {pdes.terms}")
-    internal: dict[str, Prior] = {}
-    shown: dict[str, Prior] = {}
+    by_term = _given_by_term(part, pdes, given)
+    internal: dict[str, PriorDistribution] = {}
+    shown: dict[str, PriorDistribution] = {}
     for j, term in enumerate(pdes.terms):
-        if term in given:
-            p = as_prior(given[term], f"{part} term {term!r}")
-            if not p.is_coef:
-                raise BayesziError(f"prior for {part} term {term!r} must be one of "
-                                   f"{sorted(COEF_DISTS)}, got {p.dist!r}")
+        if term in by_term:
+            where = f"{part} term {pdes.label(term)!r}"
+            p = as_distribution(by_term[term], where)
+            if not p.real_line:
+                raise BayesziError(f"prior for {where} must be one of {list(REAL_LINE)} (a "
+                                   f"coefficient can be negative), got {p.distribution!r}")
             shown[term] = p
             internal[term] = p if j == pdes.intercept else p.scaled(pdes.scale[j])
         elif j == pdes.intercept:
-            internal[term] = shown[term] = Prior("normal", centre, INTERCEPT_SD)
+            internal[term] = shown[term] = normal(mean=centre, sd=INTERCEPT_SD)
         else:
-            internal[term] = Prior("normal", 0.0, sd)
+            internal[term] = normal(mean=0.0, sd=sd)
             shown[term] = internal[term].scaled(1.0 / pdes.scale[j])
     return internal, shown
 
 
-def _dispersion_prior(overrides: Mapping[str, Any]) -> Prior:
+def _dispersion_prior(overrides: Mapping[str, Any]) -> PriorDistribution:
     """The prior on sqrt(alpha), positive-valued."""
-    disp = as_prior(overrides.get("dispersion", Prior("exponential", DISPERSION_RATE)),
-                    "dispersion")
-    if disp.is_coef:
+    disp = as_distribution(overrides.get("dispersion", exponential(rate=DISPERSION_RATE)),
+                           "the dispersion")
+    if disp.real_line:
         raise BayesziError("the dispersion prior (on sqrt(alpha)) must be positive-valued: "
-                           f"one of {sorted(SCALE_DISTS)}")
+                           f"one of {list(POSITIVE)}")
     return disp
 
 
-def _group_sd_priors(overrides: Mapping[str, Any]) -> dict[str, Prior]:
+def _group_sd_priors(overrides: Mapping[str, Any]) -> dict[str, PriorDistribution]:
     """The priors on the group sds of each part, positive-valued."""
     gsd_in = overrides.get("group_sd") or {}
     if not isinstance(gsd_in, Mapping):
-        raise BayesziError("priors['group_sd'] must map 'counts'/'zeros' to priors")
+        raise BayesziError("priors['group_sd'] must map 'counts'/'zeros' to priors, e.g. "
+                           "{'counts': {'distribution': 'half_normal', 'sd': 0.5}}")
     gsd = {}
     for part in ("counts", "zeros"):
-        p = as_prior(gsd_in.get(part, Prior("halfnormal", GROUP_SD[part])), f"{part} group sd")
-        if p.is_coef:
-            raise BayesziError(f"the {part} group sd prior must be one of {sorted(SCALE_DISTS)}")
+        p = as_distribution(gsd_in.get(part, half_normal(sd=GROUP_SD[part])),
+                            f"the {part} group sd")
+        if p.real_line:
+            raise BayesziError(f"the {part} group sd prior must be one of {list(POSITIVE)}")
         gsd[part] = p
     return gsd
 

@@ -14,13 +14,15 @@ Example
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 import pandas as pd
 from matplotlib.axes import Axes
 from matplotlib.figure import Figure
-from scipy import stats
 
 from bayeszi.answers.checks import model_label
+from bayeszi.answers.residual_checks import binned_residuals, pit_ecdf, residual_predictor
 from bayeszi.base import names, options
 from bayeszi.base.errors import BayesziError
 
@@ -65,11 +67,14 @@ def rootogram_figure(table: pd.DataFrame, ax: Axes | None = None) -> Figure:
     """Hanging rootogram (Tukey 1977, Exploratory Data Analysis) of a
     :func:`~bayeszi.answers.checks.count_frequencies` table.
 
-    On the square-root scale, a sand bar of height sqrt(observed) hangs from the teal curve
-    sqrt(expected); the teal band is the posterior interval of sqrt(expected). Where a bar
-    stops above the zero line the model expects more records with that count than were
-    seen; where it reaches below, fewer. The zero bin is hatched, the tail bin labelled
-    "K+1+". Pass ``ax`` to draw into an existing Axes (its figure is returned).
+    On the square-root scale, a teal step outline gives sqrt(expected) over each count; from
+    it hangs a sand bar of height sqrt(observed), so the bar ends at
+    sqrt(expected) - sqrt(observed). A slate tick at each count's centre spans where the bar
+    may end when the data are like the model's replicated data sets: from
+    sqrt(expected) - sqrt(replicated upper) to sqrt(expected) - sqrt(replicated lower). A bar
+    ending below its tick means more records with that count than the model produces, above
+    it fewer. The zero bin is hatched, the tail bin labelled "K+1+". Pass ``ax`` to draw
+    into an existing Axes (its figure is returned).
 
     Example
     -------
@@ -85,22 +90,19 @@ def rootogram_figure(table: pd.DataFrame, ax: Axes | None = None) -> Figure:
         kind = names.zero_mechanism(family) if family else None
         source = "combine both parts" if kind else "come from the counts part"
         _subtitle(fig, family, f"expected frequencies {source}; bars hang from the "
-                               "expected curve")
+                               "expected value")
     else:
         fig = ax.figure
     k = np.arange(len(table))
     top = table["sqrt expected"].to_numpy()
-    bottom = table["hanging bottom"].to_numpy()
-    height = table["sqrt observed"].to_numpy()
-    ax.bar(k, height, bottom=bottom, width=0.8, color=OBSERVED, edgecolor=OBSERVED_EDGE,
-           linewidth=0.6, label="observed records (bar hangs from the curve)", zorder=2)
+    ax.bar(k, table["sqrt observed"].to_numpy(), bottom=table["hanging bottom"].to_numpy(),
+           width=0.8, color=OBSERVED, edgecolor=OBSERVED_EDGE, linewidth=0.6,
+           label="observed records (bar hangs from the expected value)", zorder=2)
     if len(k):
         ax.patches[0].set_hatch("///")
-    ax.fill_between(k, np.sqrt(table[lo_name].to_numpy()), np.sqrt(table[hi_name].to_numpy()),
-                    color=EXPECTED_BAND, alpha=0.7, step=None, zorder=3,
-                    label=f"{interval:.0%} posterior interval of the expected number")
-    ax.plot(k, top, color=EXPECTED, marker="o", markersize=3.5, linewidth=1.6, zorder=4,
-            label="expected number (posterior mean)")
+        ax.stairs(top, np.arange(len(k) + 1) - 0.5, baseline=None, color=EXPECTED,
+                  linewidth=1.8, zorder=4, label="expected number (posterior mean)")
+    _replicated_ticks(ax, table, interval, lo_name, hi_name)
     ax.axhline(0.0, color="black", linewidth=0.9, linestyle=(0, (4, 2)), zorder=5)
     labels = list(table.index.astype(str))
     step = max(1, int(np.ceil(len(k) / 20)))
@@ -115,6 +117,22 @@ def rootogram_figure(table: pd.DataFrame, ax: Axes | None = None) -> Figure:
     ax.grid(axis="y", color="#dddddd", linewidth=0.5, zorder=0)
     ax.set_axisbelow(True)
     return fig
+
+
+def _replicated_ticks(ax: Axes, table: pd.DataFrame, interval: float, lo_name: str,
+                      hi_name: str) -> None:
+    """At each count's centre, where a hanging bar ends in ``interval`` of replicated data."""
+    lo_col, hi_col = f"replicated {lo_name}", f"replicated {hi_name}"
+    if lo_col not in table.columns or not len(table):
+        return
+    top = table["sqrt expected"].to_numpy()
+    low = top - np.sqrt(table[hi_col].to_numpy())
+    high = top - np.sqrt(table[lo_col].to_numpy())
+    k = np.arange(len(table))
+    ax.vlines(k, low, high, color=FEWER, linewidth=2.2, zorder=6,
+              label=f"where the bar ends in {interval:.0%} of replicated data sets")
+    ax.plot(np.repeat(k, 2), np.concatenate([low, high]).reshape(2, -1).T.ravel(),
+            linestyle="none", marker="_", markersize=7, color=FEWER, zorder=6)
 
 
 def _interval_names(interval: float) -> tuple[str, str]:
@@ -280,21 +298,28 @@ def _levels_panel(ax: Axes, table: pd.DataFrame, group: str) -> None:
 # =============================================================================================
 
 
-def residual_figure(res: pd.DataFrame) -> Figure:
-    """QQ plot and residual-versus-expected plot of randomized quantile residuals.
+def residual_figure(res: pd.DataFrame, against: Any = None, data: pd.DataFrame | None = None,
+                    bins: int | None = None) -> Figure:
+    """Randomized quantile residuals drawn two ways: their PIT values against the uniform,
+    and their mean in bins of a predictor.
 
-    ``res`` is a :func:`~bayeszi.answers.checks.residuals` table. Left: sorted residuals against
-    standard normal quantiles, with a pointwise 95% band for n independent N(0, 1) values
-    (from the Beta distribution of uniform order statistics) and the Kolmogorov-Smirnov
-    p-value against N(0, 1). Right: residual against the posterior mean of E[Y] (log
-    scale), zeros and positive counts in different colours, with lines at 0 and +-2.
+    ``res`` is a :func:`~bayeszi.answers.checks.residuals` table. Left: the ECDF of the PIT
+    values minus u, with the simultaneous 95% band of
+    :func:`~bayeszi.answers.residual_checks.uniform_ecdf_band` (the whole curve stays inside
+    it for 95% of uniform samples of that size); a curve bowing up means too many small PIT
+    values (counts below what the model expects), a curve bowing down too many large ones.
+    Right: the mean residual in bins of ``against`` (a column of ``data``, the fitted data;
+    default: the log of the expected count), each with +-2 standard errors
+    (:func:`~bayeszi.answers.residual_checks.binned_residuals`), and a line at 0. The figure
+    carries no test statistic: :func:`~bayeszi.answers.residual_checks.residual_statistics`
+    gives the numbers.
 
     Example
     -------
-    >>> fig = residual_figure(residuals(m))                         # doctest: +SKIP
+    >>> fig = residual_figure(residuals(m), against="depth", data=m.data)   # doctest: +SKIP
     """
-    r = res["residual"].to_numpy(dtype=np.float64)
-    n = r.size
+    predictor = residual_predictor(res, against, data)
+    binned = binned_residuals(res["residual"].to_numpy(), predictor, bins)
     method = res.attrs.get("method", "posterior")
     how = ("posterior predictive CDF" if method == "posterior"
            else "leave-one-out predictive CDF (PSIS weights)")
@@ -302,38 +327,57 @@ def residual_figure(res: pd.DataFrame) -> Figure:
     _subtitle(fig, res.attrs.get("family"),
               f"randomized quantile residuals (Dunn & Smyth 1996) from the {how}; "
               f"one uniform draw per record (seed {res.attrs.get('seed')})")
-    ax = fig.add_subplot(1, 2, 1)
-    order = np.sort(r)
-    i = np.arange(1, n + 1)
-    theory = stats.norm.ppf((i - 0.5) / n)
-    band_lo = stats.norm.ppf(stats.beta.ppf(0.025, i, n + 1 - i))
-    band_hi = stats.norm.ppf(stats.beta.ppf(0.975, i, n + 1 - i))
-    ax.fill_between(theory, band_lo, band_hi, color=EXPECTED_BAND, alpha=0.6,
-                    label="95% pointwise band under the model")
-    ax.plot(theory, order, ".", color=OBSERVED_EDGE, markersize=2.5, label="residuals")
-    lim = [float(min(theory[0], order[0])), float(max(theory[-1], order[-1]))]
-    ax.plot(lim, lim, color=EXPECTED, linewidth=1.0)
-    p = stats.kstest(r, "norm").pvalue if n else float("nan")
-    ax.text(0.03, 0.97, f"Kolmogorov-Smirnov vs N(0, 1): p = {p:.3g}", transform=ax.transAxes,
-            fontsize=8, va="top")
-    ax.set_xlabel("standard normal quantile")
-    ax.set_ylabel("residual (sorted)")
-    ax.set_title("QQ plot", fontsize=9, loc="left")
-    ax.legend(fontsize=7, frameon=False, loc="lower right")
-
-    ax2 = fig.add_subplot(1, 2, 2)
-    mu = res["expected count"].to_numpy(dtype=np.float64)
-    zero = res["y"].to_numpy() == 0
-    ax2.scatter(mu[~zero], r[~zero], s=5, color=OBSERVED_EDGE, alpha=0.5, label="observed y > 0",
-                linewidths=0)
-    ax2.scatter(mu[zero], r[zero], s=5, color=FEWER, alpha=0.5, label="observed y = 0",
-                linewidths=0)
-    for level, style in ((0.0, "-"), (2.0, ":"), (-2.0, ":")):
-        ax2.axhline(level, color=NEUTRAL, linewidth=0.8, linestyle=style)
-    if np.all(mu > 0):
-        ax2.set_xscale("log")
-    ax2.set_xlabel("expected count, posterior mean of E[Y] (both parts)")
-    ax2.set_ylabel("residual")
-    ax2.set_title("residual against expected count", fontsize=9, loc="left")
-    ax2.legend(fontsize=7, frameon=False, loc="lower right", markerscale=2)
+    _pit_panel(fig.add_subplot(1, 2, 1), pit_ecdf(res["PIT"].to_numpy()))
+    _binned_panel(fig.add_subplot(1, 2, 2), binned)
     return fig
+
+
+def _pit_panel(ax: Axes, ecdf: pd.DataFrame) -> None:
+    """ECDF(u) - u of the PIT values against the simultaneous band for uniform values."""
+    u = ecdf["u"].to_numpy()
+    level = ecdf.attrs.get("level", 0.95)
+    ax.fill_between(u, ecdf["lower - u"], ecdf["upper - u"], step="mid", color=EXPECTED_BAND,
+                    alpha=0.45, linewidth=0, label=f"{level:.0%} band for uniform values")
+    for col in ("lower - u", "upper - u"):
+        ax.step(u, ecdf[col], where="mid", color=EXPECTED, linewidth=0.8)
+    ax.step(u, ecdf["ECDF - u"], where="mid", color=OBSERVED_EDGE, linewidth=1.6,
+            label="share of PIT values <= u, minus u")
+    out = ecdf["outside"].to_numpy()
+    if out.any():
+        ax.plot(u[out], ecdf["ECDF - u"].to_numpy()[out], "o", color=MORE, markersize=3.5,
+                label="outside the band")
+    ax.axhline(0.0, color=NEUTRAL, linewidth=0.8)
+    ax.set_xlim(0, 1)
+    ax.set_xlabel("u (PIT value)")
+    ax.set_ylabel("ECDF(u) - u")
+    ax.set_title(f"PIT values of {ecdf.attrs.get('records', 0)} records\nagainst the uniform",
+                 fontsize=9, loc="left")
+    ax.legend(fontsize=7, frameon=False, loc="upper center", bbox_to_anchor=(0.5, -0.14),
+              ncols=2)
+
+
+def _binned_panel(ax: Axes, binned: pd.DataFrame) -> None:
+    """Mean residual per bin with +-2 standard errors, and the zero line."""
+    levels = binned.attrs.get("kind") == "levels"
+    x = np.arange(len(binned)) if levels else binned["predictor mean"].to_numpy()
+    mean = binned["mean residual"].to_numpy()
+    ax.axhline(0.0, color=NEUTRAL, linewidth=0.9)
+    ax.vlines(x, binned["mean - 2 se"], binned["mean + 2 se"], color=EXPECTED, linewidth=2.0,
+              label="+-2 standard errors")
+    ax.plot(x, mean, "s", color=OBSERVED_EDGE, markersize=4.5, label="mean residual in the bin")
+    name = binned.attrs.get("predictor", "")
+    if levels:
+        ax.set_xticks(x, binned["bin"], fontsize=7 if len(x) > 12 else 8,
+                      rotation=45 if len(x) > 6 else 0)
+    left = binned.attrs.get("left out", 0)
+    note = f"; {left} without a value left out" if left else ""
+    if binned.attrs.get("kind") == "equal-count bins":
+        what = f"{len(binned)} bins of about {int(binned['records'].median())} records"
+    else:
+        what = "one bin per value"
+    ax.set_xlabel(name)
+    ax.set_ylabel("mean residual")
+    ax.set_title(f"mean residual by {name}\n{what}{note}", fontsize=9, loc="left")
+    ax.legend(fontsize=7, frameon=False, loc="upper center", bbox_to_anchor=(0.5, -0.14),
+              ncols=2)
+    ax.grid(axis="y", color="#e5e5e5", linewidth=0.5)

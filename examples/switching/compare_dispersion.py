@@ -29,7 +29,7 @@ from bayeszi.data import load_crayfish
 
 SEED = 20261202
 SETTINGS = dict(draws=500, warmup_steps=500, chains=2, cores=1, seed=SEED, progressbar=False)
-COUNTS = "crayfish ~ water_temp + C(substrate) + depth + canopy"
+COUNTS = "crayfish ~ water_temp + substrate + depth + canopy"
 TERM = "water_temp"
 
 

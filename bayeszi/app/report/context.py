@@ -44,6 +44,8 @@ class ReportInput:
     ``saved_fits``); ``notes`` holds warnings raised while fitting, per model.
     ``predictions`` says whose scenario predictions the report shows: ``"models"`` (each
     model's), ``"averaged"`` (the models averaged by their stacking weights) or ``"both"``.
+    ``residuals_against`` names the column of ``data`` that the residual figure bins the
+    residuals by (None: the log of the expected count).
 
     Example
     -------
@@ -62,6 +64,8 @@ class ReportInput:
     contrasts: Sequence[Contrast] = ()
     preferred: str | None = None
     predictions: str = "models"
+    exact_refits: bool = False
+    residuals_against: str | None = None
     provenance: dict[str, Any] = field(default_factory=dict)
     notes: dict[str, list[str]] = field(default_factory=dict)
 
@@ -164,18 +168,20 @@ def plain(frame: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
-def loo_answers(fits: Mapping[str, FittedModel], log: WarningLog
+def loo_answers(fits: Mapping[str, FittedModel], log: WarningLog, exact_refits: bool = False
                 ) -> tuple[dict[str, LooEstimate], pd.DataFrame | None]:
-    """PSIS-LOO of every model, once each, and with two or more models their comparison.
+    """PSIS-LOO of every model, once each, and with two or more models their comparison;
+    with ``exact_refits`` the rows of high Pareto k are refitted exactly.
 
     With several models the estimates' own warnings are left to :func:`rank_models`, which
     repeats them for every model it ranks.
     """
     if len(fits) < 2:
-        return {n: log.caught("LOO", loo, f, label=n) for n, f in fits.items()}, None
+        return {n: log.caught("LOO", loo, f, label=n, exact_refits=exact_refits)
+                for n, f in fits.items()}, None
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        ests = {n: loo(f, label=n) for n, f in fits.items()}
+        ests = {n: loo(f, label=n, exact_refits=exact_refits) for n, f in fits.items()}
     return ests, plain(log.caught("LOO comparison", rank_models, ests))
 
 
@@ -202,7 +208,7 @@ def choose_preferred(inp: ReportInput, comparison: pd.DataFrame | None) -> tuple
 def build_context(inp: ReportInput) -> ReportContext:
     """Compute the answers several sections share, once each (see :class:`ReportContext`)."""
     log = WarningLog()
-    ests, comparison = loo_answers(inp.fits, log)
+    ests, comparison = loo_answers(inp.fits, log, inp.exact_refits)
     preferred, reason = choose_preferred(inp, comparison)
     return ReportContext(
         inp=inp, log=log, loo=ests, comparison=comparison, preferred=preferred,

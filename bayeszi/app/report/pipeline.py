@@ -20,6 +20,7 @@ from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
+from bayeszi.answers.comparison import refit_advice
 from bayeszi.app.report.context import ReportInput
 from bayeszi.app.report.output import OutputFolder
 from bayeszi.app.report.sections import build_document
@@ -75,16 +76,22 @@ def save_fit(fitted: FittedModel, path: str, provenance: dict[str, Any]) -> str:
         fitted.idata.posterior.attrs.pop(PROVENANCE_ATTR, None)
 
 
+#: How a report's reader asks for exact LOO refits (they ran a study, not Python).
+REFIT_ADVICE = ("set exact_refits = true in the study file's [study] table, or add "
+                "--exact-refits to bayeszi run or bayeszi report")
+
+
 def run_study(study: Study, out: str, command: str = "", progress: Progress = _quiet,
-              save_fits: bool = False, data: pd.DataFrame | None = None,
-              provenance: dict[str, Any] | None = None,
+              save_fits: bool = False, exact_refits: bool | None = None,
+              data: pd.DataFrame | None = None, provenance: dict[str, Any] | None = None,
               inspect: Callable[[dict[str, FittedModel]], None] | None = None) -> str:
     """Fit, compare, check and predict as ``study`` says; write the report folder ``out``.
 
     Nothing is sampled before the output folder, the data and every candidate and scenario
-    have been checked. Returns the absolute path of the finished folder. ``data`` replaces
-    the study's data file (one stratum's rows, say); ``provenance`` adds to the footer's
-    facts; ``inspect`` is called with the fits before the report is built.
+    have been checked. ``exact_refits`` (None: as the study says) refits the rows of high
+    Pareto k exactly for LOO. ``data`` replaces the study's data file (one stratum's rows,
+    say); ``provenance`` adds to the footer's facts; ``inspect`` is called with the fits
+    before the report is built. Returns the absolute path of the finished folder.
     """
     folder = OutputFolder(out)  # fails before any work when out cannot be written
     with folder:
@@ -117,13 +124,17 @@ def run_study(study: Study, out: str, command: str = "", progress: Progress = _q
             title=study.title, summary=study.summary, fits=fits, data=data,
             interval=study.interval, unit=study.exposure_unit, seed=study.seed,
             scenarios=study.scenarios, contrasts=study.contrasts, preferred=study.preferred,
-            predictions=study.predictions, provenance=provenance, notes=notes)
+            predictions=study.predictions,
+            exact_refits=study.exact_refits if exact_refits is None else exact_refits,
+            residuals_against=study.residuals_against,
+            provenance=provenance, notes=notes)
         return _finish(inp, folder, progress)
 
 
 def _finish(inp: ReportInput, folder: OutputFolder, progress: Progress) -> str:
     progress("building the report ...")
-    doc, footer, warned = build_document(inp, progress=lambda s: progress(f"  {s}"))
+    with refit_advice(REFIT_ADVICE):
+        doc, footer, warned = build_document(inp, progress=lambda s: progress(f"  {s}"))
     for w in warned:
         progress(f"      warning: {' '.join(w.split())}")
     files = write_document(doc, folder, footer)
@@ -169,17 +180,29 @@ def load_saved(paths: Sequence[str]) -> tuple[dict[str, FittedModel], dict[str, 
 
 
 def report_saved(paths: Sequence[str], out: str, command: str = "", title: str | None = None,
-                 interval: float = 0.9, progress: Progress = _quiet) -> str:
-    """Write a report folder ``out`` from saved fits (no scenarios: the study is not known)."""
+                 interval: float = 0.9, progress: Progress = _quiet,
+                 exact_refits: bool = False, residuals_against: str | None = None) -> str:
+    """Write a report folder ``out`` from saved fits (no scenarios: the study is not known).
+
+    ``exact_refits`` refits the rows of high Pareto k exactly for LOO; ``residuals_against``
+    names a column of the fitted data to bin the residuals by in the residual figure
+    (default: the log of the expected count).
+    """
     folder = OutputFolder(out)
     with folder:
         fits, provenance = load_saved(paths)
         provenance["command"] = command
         first = next(iter(fits.values()))
         data = first.data
+        if residuals_against is not None and residuals_against not in data.columns:
+            raise BayesziError(
+                f"residuals_against={residuals_against!r} is not a column of the fitted data "
+                f"(a saved fit keeps the columns its model uses); columns available: "
+                f"{list(map(str, data.columns))}")
         seeds = {f.spec.sampler.seed for f in fits.values()}
         inp = ReportInput(
             title=title or f"bayeszi report: {', '.join(fits)}", fits=fits, data=data,
             interval=interval, seed=seeds.pop() if len(seeds) == 1 else None,
+            exact_refits=exact_refits, residuals_against=residuals_against,
             provenance=provenance)
         return _finish(inp, folder, progress)

@@ -17,7 +17,6 @@ process) is multiplied by 1.08 (90% interval 1.06 to 1.09); higher.
 
 from __future__ import annotations
 
-import re
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -26,23 +25,25 @@ import pandas as pd
 from bayeszi.app.report.document import format_number
 from bayeszi.base import names
 from bayeszi.families import get_family
+from bayeszi.model.term_labels import indicator_parts
 
 if TYPE_CHECKING:
     from bayeszi.fitting.fitted import FittedModel
 
 
-def _term_phrase(term: str, design: Any, part: str) -> str:
-    m = re.fullmatch(r"C\((\w+)\)\[T\.(.+)\]", term) or re.fullmatch(r"(\w+)\[T\.(.+)\]", term)
-    if m:
-        col, level = m.group(1), m.group(2)
-        ref = design.levels.get(col, [None])[0]
-        return f"{col} {level}" + (f" (against {ref})" if ref is not None else "")
+def _term_phrase(label: str, design: Any, part: str) -> str:
+    """The subject of a coefficient's sentence, from its label in the coefficients table."""
+    parts = indicator_parts(label)
+    if parts is not None:
+        col, level, ref = parts
+        return f"{col} {level} (against {ref})"
     pdes = design.counts if part == "counts" else design.zeros
-    if pdes is not None and term in pdes.terms:
+    term = pdes.term_of(label) if pdes is not None else None
+    if term is not None:
         col = pdes.X[:, pdes.terms.index(term)]
         if np.all((col == 0) | (col == 1)):
-            return f"{term} = 1 (against 0)"
-    return f"Each one-unit increase in {term}"
+            return f"{label} = 1 (against 0)"
+    return f"Each one-unit increase in {label}"
 
 
 def _direction(lo: float, hi: float, up: str, down: str) -> str:

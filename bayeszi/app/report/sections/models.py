@@ -16,6 +16,7 @@ import pandas as pd
 from bayeszi.app.report.context import ReportContext
 from bayeszi.app.report.document import Section, Table, Text
 from bayeszi.app.report.sections.common import table_blocks, zeros_label
+from bayeszi.base.names import ALL_GROUPS_SD_LABEL
 from bayeszi.families import get_family
 
 INTRO = ("Each candidate has a counts part (log link; the mean of the count process, with "
@@ -55,9 +56,9 @@ def _prior_rows(name: str, f: Any) -> list[dict[str, Any]]:
     for r in f.priors.table():
         if r["term"] == "sqrt(dispersion)" and not fam.has_dispersion:
             continue
-        if r["term"] == "group sd" and not s.groups:
+        if r["term"] == ALL_GROUPS_SD_LABEL and not s.groups:
             continue
-        if r["term"] == "group sd" and r["part"] == "zeros" and not fam.zeros_kind:
+        if r["term"] == ALL_GROUPS_SD_LABEL and r["part"] == "zeros" and not fam.zeros_kind:
             continue
         out.append({"model": name, **r})
     return out

@@ -16,7 +16,14 @@ from bayeszi.plots.checkplots import rootogram_figure
 
 INTRO = ("A hanging rootogram (Tukey) hangs the observed frequency of each count from the "
          "model's expected frequency, both on a square-root scale: bars ending above zero "
-         "mean fewer records with that count than expected, below zero more.")
+         "mean fewer records with that count than expected, below zero more. How far is too "
+         "far is shown by the data sets the model replicates: the 'replicated' columns give "
+         "the central interval of the number of records with each count in them.")
+CAPTION = ("Model {name}: hanging rootogram. The step line is the square root of the expected "
+           "number of records with each count; each bar, the square root of the observed "
+           "number, hangs from it. The tick at each count's centre spans where the bar would "
+           "end in {interval:.0%} of the model's replicated data sets: a bar ending below its "
+           "tick means more records with that count than the model produces, above it fewer.")
 
 
 def section_rootograms(ctx: ReportContext) -> Section:
@@ -25,13 +32,14 @@ def section_rootograms(ctx: ReportContext) -> Section:
     blocks: list = [Text(INTRO)]
     for name, f in ctx.fits.items():
         raw = ctx.caught(f"rootogram of {name}", count_frequencies, f,
-                         interval=ctx.inp.interval)
+                         interval=ctx.inp.interval, seed=ctx.inp.seed or 0)
         blocks += table_blocks(f"count_frequencies_{name}", plain(raw),
                                f"Model {name}: observed and expected number of records per "
-                               "count", index=True, columns=["count", "observed", "expected",
-                                                             lo, hi])
+                               "count, and the number in replicated data sets", index=True,
+                               columns=["count", "observed", "expected", lo, hi,
+                                        f"replicated {lo}", f"replicated {hi}"])
         blocks.append(Figure(f"rootogram_{name}", rootogram_figure(raw),
-                             f"Model {name}: hanging rootogram."))
+                             CAPTION.format(name=name, interval=ctx.inp.interval)))
     return Section("rootograms", "Rootograms", blocks)
 
 
