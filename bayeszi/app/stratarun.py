@@ -34,6 +34,7 @@ from __future__ import annotations
 import contextlib
 import os
 import shutil
+import threading
 import time
 import warnings
 from collections.abc import Callable
@@ -98,16 +99,18 @@ class StrataResult:
 
 
 # ---------------------------------------------------------------------- on a worker
-_WORKER_CACHE: list[Any] = []
+_WORKER_CACHE = threading.local()
 
 
 def _cache() -> Any:
-    """This process's compiled-density cache (made on first use)."""
+    """This worker thread's compiled-density cache (made on first use). One per thread: a
+    cached function holds one stratum's data at a time, so two fits running side by side
+    in one process (``dask worker --nthreads 2``) must not share it."""
     from bayeszi.model.reuse import DensityCache
 
-    if not _WORKER_CACHE:
-        _WORKER_CACHE.append(DensityCache())
-    return _WORKER_CACHE[0]
+    if not hasattr(_WORKER_CACHE, "cache"):
+        _WORKER_CACHE.cache = DensityCache()
+    return _WORKER_CACHE.cache
 
 
 def _timings(fits: dict[str, Any], into: dict[str, float]) -> None:
