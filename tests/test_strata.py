@@ -5,9 +5,10 @@
 - The compiled density reused with another stratum's data gives the density of a fresh
   compile (to 1e-9 at random points), and another structure compiles anew.
 - The shipped moth example (two groups x three regions of its data) runs end to end on a
-  local cluster through ``bayeszi run``; with reuse off, each stratum's coefficient table
-  equals a direct ``bayeszi.fit`` on the stratum's rows with the same seed (the same draws:
-  the chains of one fit run one after the other in both).
+  local cluster: a Ctrl-C after the first stratum leaves it whole and recorded, and
+  ``bayeszi run --resume`` runs the other three; with reuse off, each stratum's coefficient
+  table equals a direct ``bayeszi.fit`` on the stratum's rows with the same seed (the same
+  draws: the chains of one fit run one after the other in both).
 - A real scheduler and two workers, started here with Dask's own commands on 127.0.0.1:
   one worker is killed while strata run; every stratum still ends done (or is done after
   ``resume``), no stratum folder is half-written, and the answers (reuse on) equal fits
@@ -195,25 +196,45 @@ def test_reused_density_equals_a_fresh_compile():
 
 # ---------------------------------------------------------------------- local cluster
 def test_example_runs_on_a_local_cluster_and_equals_direct_fits(tmp_path, capsys):
+    from bayeszi.app.stratarun import run_strata
+
     path = _small_study(tmp_path, reuse=False)
     out = tmp_path / "out"
-    rc = main(["run", str(path), "--out", str(out), "--workers", "2", *SHORT])
+    # Ctrl-C after the first stratum: the run stops, finished strata stay whole
+    study = load_study(str(path)).with_sampler(draws=100, warmup_steps=100)
+
+    def press_ctrl_c(line: str) -> None:
+        if line.startswith("strata: 1 done"):
+            raise KeyboardInterrupt
+
+    with pytest.raises(KeyboardInterrupt, match=r"interrupted: 1 finished stratum folder"):
+        run_strata(study, str(out), workers=2, progress=press_ctrl_c)
+    manifest = json.loads((out / "manifest.json").read_text(encoding="utf-8"))["strata"]
+    assert [v["status"] for v in manifest.values()].count("done") == 1
+    for name in os.listdir(out / "strata"):
+        if not name.startswith("."):  # a folder under strata/ is a whole report
+            assert (out / "strata" / name / "report.html").is_file()
+    # --resume runs the rest, through the command line
+    rc = main(["run", str(path), "--out", str(out), "--workers", "2", "--resume", *SHORT])
     err = capsys.readouterr().err
     assert rc == 0, err
-    assert "2 worker process(es)" in err and "4 done, 0 running, 0 failed" in err
+    assert "resuming: 1 stratum(s) already done, 3 to run" in err
+    assert "2 worker process(es)" in err and "3 done, 0 running, 0 failed" in err
     manifest = json.loads((out / "manifest.json").read_text(encoding="utf-8"))["strata"]
     status = {k: v["status"] for k, v in manifest.items()}
     assert status == {"emerald / coast": "done", "emerald / island": "skipped",
                       "emerald / lowland": "done", "pug / coast": "done",
                       "pug / island": "skipped", "pug / lowland": "done"}
     assert "only 20 records" in manifest["pug / island"]["reason"]
+    assert not [n for n in os.listdir(out / "strata") if n.startswith(".")]
     strata = pd.read_csv(out / "overview" / "tables" / "strata.csv")
     assert list(strata["status"]).count("done") == 4
     coef = pd.read_csv(out / "overview" / "tables" / "coefficient_by_stratum.csv")
     assert set(coef["term"]) == {"min_temp"} and len(coef) == 4
     page = (out / "overview" / "report.html").read_text(encoding="utf-8")
     assert page.count('href="../strata/') == 4
-    study = load_study(str(path)).with_sampler(draws=100, warmup_steps=100, cores=1)
+    # reuse off: every stratum's numbers are those of bayeszi.fit on its rows, same seed
+    study = study.with_sampler(cores=1)
     data = study.load_data()
     for group in GROUPS:
         for region in ("coast", "lowland"):
