@@ -149,6 +149,12 @@ def test_study_strata_keys_are_checked(tmp_path):
         "at = 11": "'at' in \\[overview\\] is 11",
         "reuse = 1": "'reuse' in \\[cluster\\]",
     }
+    # the flags of a strata run are refused for a study without strata, before any work
+    from bayeszi.app.study import demo_study_path
+
+    for flags in (["--resume"], ["--scheduler", "tcp://127.0.0.1:1"], ["--workers", "2"]):
+        assert main(["run", demo_study_path(), "--out", str(tmp_path / "r"), *flags]) == 2
+    assert not (tmp_path / "r").exists()
     for new, message in cases.items():
         key = new.split(" = ")[0]
         bad = re.sub(rf"(?m)^{key} = .*$", new, text, count=1)
