@@ -163,6 +163,27 @@ def test_study_strata_keys_are_checked(tmp_path):
             load_study(str(path))
 
 
+def test_hurdle_stratum_without_zeros_is_skipped_with_its_reason(tmp_path):
+    from bayeszi.app.strata import plan_strata
+    from bayeszi.app.study import parse_study
+
+    rng = np.random.default_rng(3)
+    x = rng.normal(size=120)
+    y = rng.poisson(np.exp(0.5 + 0.3 * x))
+    sp = np.repeat(["a", "b"], 60)
+    y[sp == "b"] = np.maximum(y[sp == "b"], 1)  # b: no zero count
+    pd.DataFrame({"sp": sp, "x": x, "y": y}).to_csv(tmp_path / "d.csv", index=False)
+    (tmp_path / "s.toml").write_text("# strata built from a dictionary below\n")
+    study = parse_study({"study": {"data": "d.csv", "response": "y", "strata": "sp"},
+                         "model": [{"name": "h", "family": "hurdle-poisson", "counts": "x"}]},
+                        str(tmp_path / "s.toml"))
+    plan = plan_strata(study, study.load_data())
+    reasons = {s.name: s.skipped for s in plan.strata}
+    assert reasons["a"] == ""
+    assert "has no zeros, so a hurdle family cannot estimate" in reasons["b"]
+    assert [s.records for s in plan.strata] == [60, 60]
+
+
 # ---------------------------------------------------------------------- compiled once
 def test_reused_density_equals_a_fresh_compile():
     from pymc.blocking import DictToArrayBijection
