@@ -64,6 +64,8 @@ PUBLIC_MODULES: dict[str, str] = {
     "bayeszi.model.collinearity": "sensitivity.md",
     "bayeszi.fitting.preview": "sensitivity.md",
     "bayeszi.app.study": "study-file.md",
+    "bayeszi.app.strata": "strata.md",
+    "bayeszi.app.stratarun": "strata.md",
     "bayeszi.app.report": "cli.md",
     "bayeszi.app.cli": "cli.md",
 }

@@ -1,8 +1,10 @@
 """The ``bayeszi`` command line: ``run``, ``demo``, ``fit``, ``predict`` and ``report``.
 
 Exit codes: 0 success; 2 user error (a one-line message, no traceback: a bad study file, a
-missing column, an unwritable output folder, a bad flag); 1 internal failure (a bug: the
-message says so; set ``BAYESZI_DEBUG=1`` to see the traceback). Progress and warnings go to
+missing column, an unwritable output folder, a bad flag, an unreachable scheduler); 3 a
+study with strata ran but some strata failed (the others were written; ``--resume`` retries
+the failed ones); 1 internal failure (a bug: the message says so; set ``BAYESZI_DEBUG=1``
+to see the traceback); 130 interrupted (Ctrl-C). Progress and warnings go to
 standard error, results (the fit summary, predictions without ``--out``) to standard output.
 See docs/cli.md.
 
@@ -76,10 +78,39 @@ def _run(args: argparse.Namespace) -> int:
     from bayeszi.app.study import load_study
 
     study = load_study(args.study).with_sampler(**_overrides(args)).with_preview(args.preview)
+    if study.strata:
+        return _run_strata(args, study)
+    asked = [f for f, v in (("--scheduler", getattr(args, "scheduler", None)),
+                            ("--workers", getattr(args, "workers", None)),
+                            ("--resume", getattr(args, "resume", False))) if v]
+    if asked:
+        raise BayesziError(f"{' and '.join(asked)} apply to studies with strata; this study "
+                           "names none (add strata = [\"COLUMN\"] to [study], see "
+                           "docs/strata.md)")
     dest = run_study(study, args.out, command=args.command_line, progress=args.console,
                      save_fits=args.save_fits, exact_refits=args.exact_refits or None,
                      vector_figures=args.vector_figures or None)
     print(os.path.join(dest, "report.html"))
+    return 0
+
+
+#: exit code of a strata run in which some strata failed (the others were written)
+STRATA_FAILED = 3
+
+
+def _run_strata(args: argparse.Namespace, study: Any) -> int:
+    from bayeszi.app.stratarun import run_strata
+
+    if args.save_fits:
+        raise BayesziError("--save-fits is not offered for studies with strata; each stratum's "
+                           "report folder holds its tables and figures")
+    result = run_strata(study, args.out, scheduler=args.scheduler, workers=args.workers,
+                        resume=args.resume, command=args.command_line, progress=args.console)
+    print(result.overview)
+    if result.failed:
+        args.console(f"bayeszi: {result.failed} stratum(s) failed (reasons in the overview and "
+                     "manifest.json); rerun with --resume to retry them")
+        return STRATA_FAILED
     return 0
 
 
@@ -228,6 +259,16 @@ def _add_run(sub: Any) -> None:
     r.add_argument("--out", required=True, metavar="DIR", help="report folder to write "
                    "(replaced if it holds an earlier bayeszi report)")
     _common_run_flags(r)
+    r.add_argument("--scheduler", metavar="ADDRESS", default=None,
+                   help="studies with strata: run them on the Dask cluster whose scheduler is "
+                   "at ADDRESS, e.g. tcp://10.0.0.5:8786 (default: the study's [cluster], else "
+                   "a local cluster sized to this machine)")
+    r.add_argument("--workers", type=int, metavar="N", default=None,
+                   help="studies with strata: worker processes of the local cluster "
+                   "(default: one per core a fit uses)")
+    r.add_argument("--resume", action="store_true",
+                   help="studies with strata: keep the strata DIR already holds finished "
+                   "(same data, same study) and run only the rest")
     r.set_defaults(func=_run)
 
 
@@ -361,8 +402,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     except BayesziError as err:
         print(f"bayeszi: error: {' '.join(str(err).split())}", file=sys.stderr)
         return 2
-    except KeyboardInterrupt:
-        print("bayeszi: interrupted; nothing was written", file=sys.stderr)
+    except KeyboardInterrupt as exc:
+        said = " ".join(str(exc).split())  # a strata run says what it kept
+        said = said if said.startswith("interrupted:") else "interrupted; nothing was written"
+        print(f"bayeszi: {said}", file=sys.stderr)
         return 130
     except Exception as err:  # internal failure: say so plainly
         if os.environ.get("BAYESZI_DEBUG"):

@@ -40,10 +40,11 @@ from bayeszi.base.spec import ModelSpec, SamplerSettings
 from bayeszi.fitting.candidates import Candidate, CheckedCandidates, check_candidates
 
 # Allowed keys, per table. Kept here so that the error messages and docs/study-file.md agree.
-TOP_KEYS = ("study", "sampler", "model", "scenario", "contrast")
+TOP_KEYS = ("study", "sampler", "model", "scenario", "contrast", "overview", "cluster")
 STUDY_KEYS = ("title", "summary", "data", "response", "exposure", "offset", "exposure_unit",
               "groups", "nested", "seed", "interval", "preferred", "predictions",
-              "exact_refits", "residuals_against", "preview", "vector_figures")
+              "exact_refits", "residuals_against", "preview", "vector_figures", "strata",
+              "min_records")
 SAMPLER_KEYS = ("draws", "warmup_steps", "chains", "cores", "acceptance_target", "sampler",
                 "until_enough", "block_draws", "draws_limit")
 MODEL_KEYS = ("name", "family", "counts", "zeros", "groups", "varying", "nested",
@@ -51,6 +52,13 @@ MODEL_KEYS = ("name", "family", "counts", "zeros", "groups", "varying", "nested"
 MODEL_SAMPLER_KEYS = ("draws", "warmup_steps", "acceptance_target")
 SCENARIO_KEYS = ("name", "values", "vary", "groups")
 CONTRAST_KEYS = ("name", "scenario", "change")
+#: [overview]: what the strata overview puts side by side (docs/strata.md)
+OVERVIEW_KEYS = ("term", "part", "scenario", "at")
+#: [cluster]: where the strata run (docs/strata.md)
+CLUSTER_KEYS = ("scheduler", "workers", "reuse")
+#: strata with fewer records are skipped (a rule of thumb, common practice: about ten
+#: records per coefficient of a small two-part model; raise it for bigger models)
+MIN_RECORDS = 30
 #: values of ``predictions`` in [study]: every model's scenario predictions (the default),
 #: only those of the models averaged by their stacking weights, or both
 PREDICTIONS = ("models", "averaged", "both")
@@ -148,6 +156,41 @@ class Contrast:
 
 
 @dataclass(frozen=True)
+class Overview:
+    """What the strata overview compares across strata: the coefficient of ``term`` in
+    ``part`` (as a rate or odds ratio) and the prediction of scenario ``scenario`` at the
+    value ``at`` of its varied column (None: the first value; None scenario: the first).
+
+    Example
+    -------
+    >>> Overview(term="depth").part
+    'counts'
+    """
+
+    term: str | None = None
+    part: str = "counts"
+    scenario: str | None = None
+    at: Any = None
+
+
+@dataclass(frozen=True)
+class Cluster:
+    """Where the strata of a study run: a Dask scheduler's address (None: a local cluster
+    of ``workers`` processes, None: sized to the machine) and whether fits of one model
+    structure reuse its compiled density (``reuse``).
+
+    Example
+    -------
+    >>> Cluster().reuse
+    True
+    """
+
+    scheduler: str | None = None
+    workers: int | None = None
+    reuse: bool = True
+
+
+@dataclass(frozen=True)
 class Study:
     """A checked study file. Build it with :func:`load_study`."""
 
@@ -172,6 +215,10 @@ class Study:
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
     scenarios: tuple[Scenario, ...] = ()
     contrasts: tuple[Contrast, ...] = ()
+    strata: tuple[str, ...] = ()
+    min_records: int = MIN_RECORDS
+    overview: Overview = field(default_factory=Overview)
+    cluster: Cluster = field(default_factory=Cluster)
 
     # ------------------------------------------------------------------ data
     def load_data(self) -> pd.DataFrame:
@@ -419,6 +466,8 @@ def parse_study(raw: Mapping[str, Any], path: str) -> Study:
                  for c, where in _tables(top.get("contrast"), "contrast", CONTRAST_KEYS)]
     _unique([c.name for c in contrasts], "contrast")
     preferred = _text(st.get("preferred"), "preferred", "[study]")
+    strata = _names(st.get("strata"), "strata", "[study]")
+    _strata_columns(strata, response, exposure, offset, groups)
     if preferred is not None and preferred not in [c.name for c in cands]:
         raise BayesziError(f"'preferred' in [study] names {preferred!r}, which is not a model; "
                            f"models: {[c.name for c in cands]}")
@@ -435,6 +484,9 @@ def parse_study(raw: Mapping[str, Any], path: str) -> Study:
         residuals_against=_text(st.get("residuals_against"), "residuals_against", "[study]"),
         preview=check_preview(st.get("preview", "no")),
         sampler=sampler, scenarios=tuple(scenarios), contrasts=tuple(contrasts),
+        strata=strata, min_records=_min_records(st),
+        overview=_overview(top.get("overview", {}), scenarios),
+        cluster=_cluster(top.get("cluster", {})),
     )
 
 
@@ -444,6 +496,69 @@ def _flag(st: Mapping[str, Any], key: str) -> bool:
     if not isinstance(value, bool):
         raise BayesziError(f"'{key}' in [study] must be true or false, got {value!r}")
     return value
+
+
+def _strata_columns(strata: tuple[str, ...], response: str, exposure: str | None,
+                    offset: str | None, groups: tuple[str, ...]) -> None:
+    """Strata columns may not be the response, the effort or a grouping column."""
+    if len(set(strata)) != len(strata):
+        raise BayesziError(f"'strata' in [study] names a column twice: {list(strata)}")
+    for col in strata:
+        role = {response: "the response", exposure: "the exposure", offset: "the offset"}
+        if col in role:
+            raise BayesziError(f"'strata' in [study] names {col!r}, which is {role[col]}; "
+                               "strata are columns such as species or region")
+        if col in groups:
+            raise BayesziError(f"'strata' in [study] names {col!r}, which is also a grouping "
+                               "column; within one stratum it would have one level. Keep it "
+                               "in one of the two")
+
+
+def _min_records(st: Mapping[str, Any]) -> int:
+    value = st.get("min_records", MIN_RECORDS)
+    if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+        raise BayesziError(f"'min_records' in [study] must be a whole number of at least 1, "
+                           f"got {value!r}; strata with fewer records are skipped")
+    return value
+
+
+def _overview(raw: Any, scenarios: list[Scenario]) -> Overview:
+    """The [overview] table (all keys optional), checked against the scenarios."""
+    ov = _strict(raw, OVERVIEW_KEYS, "[overview]")
+    term = _text(ov.get("term"), "term", "[overview]")
+    part = ov.get("part", "counts")
+    if part not in ("counts", "zeros"):
+        raise BayesziError(f"'part' in [overview] must be 'counts' or 'zeros', got {part!r}")
+    scenario = _text(ov.get("scenario"), "scenario", "[overview]")
+    names = [x.name for x in scenarios]
+    if scenario is not None and scenario not in names:
+        raise BayesziError(f"'scenario' in [overview] names {scenario!r}, which is not a "
+                           f"[[scenario]]; scenarios: {names}")
+    at = ov.get("at")
+    if at is not None:
+        at = _scalar(at, "at", "[overview]")
+        chosen = next((x for x in scenarios if x.name == scenario), scenarios[0] if
+                      scenarios else None)
+        options = [v for vs in (chosen.vary.values() if chosen else ()) for v in vs]
+        if at not in options:
+            raise BayesziError(f"'at' in [overview] is {at!r}, which is not a value the "
+                               f"scenario varies; its values: {options}")
+    return Overview(term=term, part=part, scenario=scenario, at=at)
+
+
+def _cluster(raw: Any) -> Cluster:
+    """The [cluster] table: a scheduler address, a local cluster's size, reuse on/off."""
+    cl = _strict(raw, CLUSTER_KEYS, "[cluster]")
+    scheduler = _text(cl.get("scheduler"), "scheduler", "[cluster]")
+    workers = cl.get("workers")
+    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int)
+                                or workers < 1):
+        raise BayesziError(f"'workers' in [cluster] must be a whole number of at least 1, "
+                           f"got {workers!r}")
+    reuse = cl.get("reuse", True)
+    if not isinstance(reuse, bool):
+        raise BayesziError(f"'reuse' in [cluster] must be true or false, got {reuse!r}")
+    return Cluster(scheduler=scheduler, workers=workers, reuse=reuse)
 
 
 def _predictions(st: Mapping[str, Any]) -> str:
@@ -639,5 +754,5 @@ def _contrast(c: dict[str, Any], where: str, scenario_names: list[str]) -> Contr
     return Contrast(name, scen, change)
 
 
-__all__ = ["Contrast", "Scenario", "Study", "demo_study_path", "load_study", "parse_study",
-           "read_table", "sha256_of"]
+__all__ = ["Cluster", "Contrast", "Overview", "Scenario", "Study", "demo_study_path",
+           "load_study", "parse_study", "read_table", "sha256_of"]

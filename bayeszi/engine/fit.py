@@ -41,6 +41,7 @@ from bayeszi.model.design import Design, build_design
 from bayeszi.model.diagnostics import Diagnostics, diagnose
 from bayeszi.model.enough import STOP_FIXED, STOP_LIMIT, BlockPlan, sample_until_enough
 from bayeszi.model.priors import resolve
+from bayeszi.model.reuse import attach_active
 from bayeszi.model.sample import run_nuts
 
 INTERRUPTED = "sampling interrupted: nothing was kept or written; rerun fit() to start again"
@@ -67,6 +68,7 @@ def fit_record(data: pd.DataFrame, spec: ModelSpec, prior_draws: int = 0,
     priors = resolve(design, spec.priors)
     built = build_model(design, priors)
     t1 = time.perf_counter()
+    attach_active(built.model)  # a compiled density reused across strata, when one is active
     idata = _sample_or_interrupt(built.model, spec.sampler, built.n_rows,
                                  _enough_judge(design))
     t2 = time.perf_counter()

@@ -45,6 +45,13 @@ class Bullets:
 
 
 @dataclass
+class Links:
+    """A list of links to other pages: ``(label, relative address)`` pairs."""
+
+    items: Sequence[tuple[str, str]]
+
+
+@dataclass
 class Table:
     """A table: ``name`` names its CSV file; ``index`` keeps the frame's index as columns.
 
@@ -72,7 +79,7 @@ class Figure:
     caption: str
 
 
-Block = Text | Bullets | Table | Figure
+Block = Text | Bullets | Links | Table | Figure
 
 
 @dataclass
@@ -204,6 +211,10 @@ def _block_html(block: Block, images: Mapping[str, bytes]) -> str:
         items = "".join(f"<li>{_esc(i)}</li>" for i in block.items)
         ul = f"<ul>{items}</ul>"
         return ul if block.kind == "text" else f'<div class="{_esc(block.kind)}">{ul}</div>'
+    if isinstance(block, Links):
+        items = "".join(f'<li><a href="{_esc(href)}">{_esc(label)}</a></li>'
+                        for label, href in block.items)
+        return f'<ul class="links">{items}</ul>'
     if isinstance(block, Table):
         return _table_html(block)
     if isinstance(block, Figure):

@@ -41,7 +41,8 @@ def footer_lines(provenance: Mapping[str, Any], fits: Mapping[str, FittedModel],
     """The reproducibility footer: versions, seed, data hash, command line, time.
 
     ``provenance`` may hold ``data_path``, ``data_sha256``, ``study_path``,
-    ``study_sha256``, ``saved_fits`` (path -> sha256), ``fit command`` and ``command``.
+    ``study_sha256``, ``saved_fits`` (path -> sha256), ``fit command``, ``command`` and,
+    for one stratum of a study, ``stratum``, ``stratum_records`` and ``stratum_sha256``.
     """
     p = provenance
     lines = ["Versions: " + ", ".join(f"{k} {v}" for k, v in versions().items())]
@@ -50,6 +51,9 @@ def footer_lines(provenance: Mapping[str, Any], fits: Mapping[str, FittedModel],
                  + (f" (models: {', '.join(seeds)})" if seeds and seeds != [str(seed)] else ""))
     if p.get("data_sha256"):
         lines.append(f"Data: {p.get('data_path', '?')} (sha256 {p['data_sha256']})")
+    if p.get("stratum"):
+        lines.append(f"Stratum: {p['stratum']} ({p.get('stratum_records', '?')} records, "
+                     f"sha256 {p.get('stratum_sha256', '?')} of its rows as CSV)")
     if p.get("study_sha256"):
         lines.append(f"Study file: {p.get('study_path', '?')} (sha256 {p['study_sha256']})")
     for fit_path, digest in p.get("saved_fits", {}).items():

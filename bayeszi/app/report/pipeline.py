@@ -18,6 +18,8 @@ import os
 from collections.abc import Callable, Sequence
 from typing import TYPE_CHECKING, Any
 
+import pandas as pd
+
 from bayeszi.answers.comparison import refit_advice
 from bayeszi.app.report.context import ReportInput
 from bayeszi.app.report.document import Document
@@ -102,7 +104,9 @@ REFIT_ADVICE = ("set exact_refits = true in the study file's [study] table, or a
 
 def run_study(study: Study, out: str, command: str = "", progress: Progress = _quiet,
               save_fits: bool = False, exact_refits: bool | None = None,
-              vector_figures: bool | None = None) -> str:
+              vector_figures: bool | None = None, data: pd.DataFrame | None = None,
+              provenance: dict[str, Any] | None = None,
+              inspect: Callable[[dict[str, FittedModel]], None] | None = None) -> str:
     """Fit, compare, check and predict as ``study`` says; write the report folder ``out``.
 
     Nothing is sampled before the output folder, the data and every candidate and scenario
@@ -111,18 +115,22 @@ def run_study(study: Study, out: str, command: str = "", progress: Progress = _q
     (approximately, :mod:`bayeszi.fitting.preview`) before sampling and the report compares
     the previews with the posteriors; with ``"only"`` the folder holds the previews alone and
     nothing is sampled. ``vector_figures`` (None: as the study says) also writes every figure
-    as SVG. Returns the absolute path of the finished folder.
+    as SVG. ``data`` replaces the study's data file (one stratum's rows, say);
+    ``provenance`` adds to the footer's facts; ``inspect`` is called with the fits before the
+    report is built. Returns the absolute path of the finished folder.
     """
     folder = OutputFolder(out)  # fails before any work when out cannot be written
     with folder:
-        data = study.load_data()
+        given = data is not None
+        data = study.load_data() if data is None else data
         checked = study.check(data)
-        progress(f"{study.title}: {len(data)} records from {os.path.basename(study.data_path)}, "
+        source = "given" if given else os.path.basename(study.data_path)
+        progress(f"{study.title}: {len(data)} records from {source}, "
                  f"{len(study.candidates)} candidate model(s)")
-        provenance: dict[str, Any] = {
+        provenance = {
             "data_path": study.data_path, "data_sha256": study.data_sha256(),
             "study_path": study.path, "study_sha256": study.study_sha256(),
-            "command": command,
+            "command": command, **(provenance or {}),
         }
         previews = {}
         if study.preview in ("first", "only"):
@@ -133,6 +141,8 @@ def run_study(study: Study, out: str, command: str = "", progress: Progress = _q
                           study.vector_figures if vector_figures is None else vector_figures)
         run = fit_each(data, checked, _StudyProgress(study, progress))
         fits, notes = run.fits, run.warnings
+        if inspect is not None:
+            inspect(fits)
         if save_fits:
             from bayeszi.app.study import sha256_of
 
