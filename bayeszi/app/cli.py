@@ -17,6 +17,7 @@ bayeszi 0.1.0
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import os
 import shlex
 import sys
@@ -70,7 +71,9 @@ def _run(args: argparse.Namespace) -> int:
     from bayeszi.app.report import run_study
     from bayeszi.app.study import load_study
 
-    study = load_study(args.study).with_sampler(**_overrides(args))
+    # each fit's progress while it samples (in place on a terminal, else a line every 30 s)
+    study = load_study(args.study).with_sampler(**_overrides(args),
+                                                progressbar=not args.quiet)
     dest = run_study(study, args.out, command=args.command_line, progress=args.console,
                      save_fits=args.save_fits)
     print(os.path.join(dest, "report.html"))
@@ -109,6 +112,8 @@ def _fit(args: argparse.Namespace) -> int:
                      offset=args.offset, groups=args.groups or None, draws=args.draws,
                      tune=args.tune, chains=args.chains, cores=args.cores,
                      target_accept=args.target_accept, seed=args.seed)
+    spec = dataclasses.replace(spec, sampler=dataclasses.replace(
+        spec.sampler, progressbar=not args.quiet))  # progress while it samples
     name = args.name or spec.family
     checked = check_candidates(data, [Candidate(name, spec)], noun="model")  # before sampling
     args.console(f"fitting {spec.family} to {len(data)} records of {args.data} ...")

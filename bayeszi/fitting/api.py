@@ -83,6 +83,9 @@ def fit(data: pd.DataFrame, counts: str, zeros: str | None = "~ 1", family: str 
     priors : overrides, see :mod:`bayeszi.model.priors`.
     prior_draws : also store this many prior and prior predictive draws.
     draws, tune, chains, cores, target_accept, seed, progressbar, sampler : NUTS settings.
+        ``progressbar`` shows bayeszi's progress line while sampling (iterations done,
+        time elapsed, an estimate of the time left; default: when standard error is a
+        terminal). ``sampler="auto"`` takes nutpie for big fits, PyMC's NUTS for small ones.
 
     Returns
     -------
