@@ -185,3 +185,52 @@ def test_diagnostics_skip_raw_variables_by_name_prefix():
     idata = az.from_dict(posterior={v: np.zeros((2, 5)) for v in names})
     assert parameter_names(idata) == ["counts_effect_zone_z_1", "counts_sd_water_level_x",
                                       "counts_coef"]
+
+
+# ---------------------------------------------------------------- partly centred levels
+def _panel_model(monkeypatch, min_levels):
+    import simulate
+
+    monkeypatch.setattr(build, "PARTIAL_MIN_LEVELS", min_levels)
+    df = simulate.panel(150)
+    spec = ModelSpec(counts="y ~ x + u", zeros="~ u", family="zinb", exposure="e",
+                     groups=("unit",))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        design = build_design(df, spec)
+    return design, build.build_model(design, resolve(design, None)).model
+
+
+def test_partly_centred_levels_are_the_same_model(monkeypatch):
+    """Exact: with effects b = sd^w z' (z' ~ N(0, sd^(1-w))) and b = sd z (z ~ N(0, 1)),
+    the joint densities of the sampled variables at the same effects differ only by the
+    change of variables, log p_nc - log p_partial = sum_j (1 - w_j) log sd."""
+    design, partial = _panel_model(monkeypatch, 100)
+    w = build.level_weights(design, "counts")["unit"]
+    assert w.size == 150 and 0 < w.min() < 0.5 < w.max() < 1    # a real mix of forms
+    assert build.level_weights(design, "zeros") == {}            # no clear spread: w = 1
+    _, plain = _panel_model(monkeypatch, None)
+    rng = np.random.default_rng(4)
+    point = plain.initial_point()
+    point = {k: v + rng.normal(0, 0.3, np.shape(v)) for k, v in point.items()}
+    sd = float(np.exp(point["counts_sd_unit_log__"]))
+    other = dict(point)
+    other["counts_z_unit"] = point["counts_z_unit"] * sd ** (1.0 - w)  # same effects
+    lp_plain = plain.compile_logp()(point)
+    lp_partial = partial.compile_logp()(other)
+    np.testing.assert_allclose(lp_plain - lp_partial, np.sum(1.0 - w) * np.log(sd),
+                               rtol=1e-9)
+    # and the effects the two models compute from those points are the same
+    def effects(model):
+        out = model.replace_rvs_by_values([model["counts_effect_unit"]])[0]
+        return model.compile_fn(out, inputs=model.value_vars, on_unused_input="ignore")
+
+    fe_plain, fe_partial = effects(plain), effects(partial)
+    np.testing.assert_allclose(fe_plain(point), fe_partial(other), rtol=1e-12)
+
+
+def test_few_levels_are_never_partly_centred():
+    df = _sites()
+    design = build_design(df, ModelSpec(counts="y ~ x", zeros=None, family="negbin",
+                                        groups=("site",)))
+    assert build.level_weights(design) == {}
