@@ -45,10 +45,6 @@ CENTRE_MIN_RECORDS = 50
 #: Information on the zeros-part logit is taken as the binomial information of the zero
 #: share divided by this: extra zeros and count zeros cannot be told apart record by record.
 ZEROS_DILUTION = 4.0
-#: Levels not centred get a partly centred intercept (see :func:`level_weights`) when their
-#: grouping column has at least this many levels (the moment estimates are then sharp);
-#: None: never.
-PARTIAL_MIN_LEVELS: int | None = 200
 
 
 def _dist(name: str, p: Prior, dims: str | tuple[str, ...] | None = None,
@@ -191,48 +187,6 @@ def _level_moments(design: Design, g: GroupDesign, part: str, n: np.ndarray
     return np.log(p / (1 - p)), ZEROS_DILUTION / ((n + 1) * p * (1 - p))
 
 
-def level_weights(design: Design, part: str = "counts") -> dict[str, np.ndarray]:
-    """Per grouping column, the weight ``w`` of each level's partly centred intercept.
-
-    Between the non-centred form (``effect = sd z``, z ~ Normal(0, 1), w = 1) and the
-    centred one (w = 0) lies ``effect = sd^w z`` with ``z ~ Normal(0, sd^(1 - w))``: the
-    same model, with the level's data and the group sd less tied together when ``w`` is the
-    prior's share of the level's precision, ``w = 1 / (1 + sd^2 I)``, I the data's
-    information on the level's intercept (the partially non-centred form; Papaspiliopoulos,
-    Roberts & Skold 2007, Stat. Sci., from memory). ``sd^2`` and ``1 / I`` are the moment
-    estimates of :func:`centred_levels`. Used for grouping columns with many levels (at
-    least :data:`PARTIAL_MIN_LEVELS`), whose levels hold a few records each: thousands of
-    sites or persons, where neither pure form samples well. Elsewhere: empty.
-
-    Example
-    -------
-    >>> import numpy as np, pandas as pd
-    >>> from bayeszi.base.spec import ModelSpec
-    >>> from bayeszi.model.design import build_design
-    >>> rng = np.random.default_rng(2)
-    >>> s = np.repeat(np.arange(300), 4)
-    >>> df = pd.DataFrame({"y": rng.poisson(np.exp(1 + rng.normal(0, 0.7, 300)[s])),
-    ...                    "s": s.astype(str)})
-    >>> w = level_weights(build_design(df, ModelSpec(counts="y ~ 1", family="poisson",
-    ...                                              groups=("s",))))["s"]
-    >>> bool(0 < w.min() and w.max() < 1)
-    True
-    """
-    spec = design.spec
-    pdes = design.counts if part == "counts" else design.zeros
-    if PARTIAL_MIN_LEVELS is None or len(design.groups) != 1 or spec.correlated \
-            or pdes is None or pdes.intercept is None \
-            or len(design.groups[0].levels) < PARTIAL_MIN_LEVELS:
-        return {}
-    g = design.groups[0]
-    n = np.bincount(g.codes, minlength=len(g.levels)).astype(float)
-    est, var = _level_moments(design, g, part, n)
-    between = float(np.var(est, ddof=1) - np.mean(var))
-    if not between > 0:
-        return {}
-    return {g.name: 1.0 / (1.0 + between / var)}
-
-
 def group_level_columns(pdes: PartDesign, g: GroupDesign) -> tuple[np.ndarray, np.ndarray]:
     """Columns of ``pdes`` (intercept excluded) constant within every level of ``g`` (group-
     level predictors such as a reach's barrier), and their value per level.
@@ -258,42 +212,28 @@ def _level_centre(pdes: PartDesign, coef, g: GroupDesign):
     return coef[pdes.intercept] + pt.dot(pt.as_tensor_variable(values), coef[cols])
 
 
-def _raw_effects(part: str, g: GroupDesign, sd, weights: np.ndarray | None, dims: str):
-    """``sd z`` with z ~ Normal(0, 1), or with ``weights`` the partly centred
-    ``sd^w z`` with z ~ Normal(0, sd^(1 - w)) (:func:`level_weights`)."""
-    if weights is None:
-        return sd * pm.Normal(names.group_raw(part, g.name), 0.0, 1.0, dims=dims)
-    w = pt.as_tensor_variable(np.asarray(weights, dtype=float))
-    log_sd = pt.log(sd)
-    z = pm.Normal(names.group_raw(part, g.name), 0.0, pt.exp((1.0 - w) * log_sd), dims=dims)
-    return pt.exp(w * log_sd) * z
-
-
-def _intercepts(part: str, g: GroupDesign, sd, centre, centred: np.ndarray | None,
-                weights: np.ndarray | None = None):
-    """Intercept effects of group ``g`` in ``part``: non-centred (or partly centred with
-    ``weights``, one per level), or centred for the levels in ``centred``:
-    ``{part}_level_{g}`` ~ Normal(centre, sd) and effect = level - centre, with ``centre``
-    (one value per level) the part's intercept plus its group-level predictors
-    (:func:`group_level_columns`)."""
+def _intercepts(part: str, g: GroupDesign, sd, centre, centred: np.ndarray | None):
+    """Intercept effects of group ``g`` in ``part``: non-centred, or centred for the levels
+    in ``centred``: ``{part}_level_{g}`` ~ Normal(centre, sd) and effect = level - centre,
+    with ``centre`` (one value per level) the part's intercept plus its group-level
+    predictors (:func:`group_level_columns`)."""
     if centred is None:
-        eff = _raw_effects(part, g, sd, weights, g.name)
-        return pm.Deterministic(names.effect(part, g.name), eff, dims=g.name)
+        z = pm.Normal(names.group_raw(part, g.name), 0.0, 1.0, dims=g.name)
+        return pm.Deterministic(names.effect(part, g.name), sd * z, dims=g.name)
     rich, poor = np.flatnonzero(centred), np.flatnonzero(~centred)
     level = pm.Normal(names.level(part, g.name), centre[rich], sd,
                       dims=names.centred_dim(part, g.name))
     eff = pt.zeros(len(g.levels))
     eff = pt.set_subtensor(eff[rich], level - centre[rich])
     if poor.size:
-        eff = pt.set_subtensor(eff[poor], _raw_effects(
-            part, g, sd, None if weights is None else weights[poor],
-            names.noncentred_dim(part, g.name)))
+        z = pm.Normal(names.group_raw(part, g.name), 0.0, 1.0,
+                      dims=names.noncentred_dim(part, g.name))
+        eff = pt.set_subtensor(eff[poor], sd * z)
     return pm.Deterministic(names.effect(part, g.name), eff, dims=g.name)
 
 
 def _group_terms(design: Design, priors: PriorSet, g: GroupDesign, eta_c, eta_z,
-                 centres: dict | None = None, centred: dict | None = None,
-                 weights: dict | None = None):
+                 centres: dict | None = None, centred: dict | None = None):
     """Add group ``g``'s intercepts (both parts) and varying slopes to the linear predictors.
 
     Non-centred: effect = sd * z with z ~ Normal(0, 1), which samples well when a group
@@ -312,8 +252,7 @@ def _group_terms(design: Design, priors: PriorSet, g: GroupDesign, eta_c, eta_z,
         for part in parts:
             sd = _dist(names.group_sd(part, g.name), priors.group_sd[part])
             mask = (centred or {}).get(part)
-            eff = _intercepts(part, g, sd, (centres or {}).get(part), mask,
-                              (weights or {}).get(part))
+            eff = _intercepts(part, g, sd, (centres or {}).get(part), mask)
             if part == "counts":
                 eta_c = eta_c + eff[codes]
             else:
@@ -356,7 +295,6 @@ def build_model(design: Design, priors: PriorSet) -> BuiltModel:
         coords[names.slope_term_dim(part)] = list(terms)
     # which levels get centred intercepts: decided on the records, before pooling
     centred = {part: centred_levels(design, part) for part in ("counts", "zeros")}
-    partial = {part: level_weights(design, part) for part in ("counts", "zeros")}
     for part, masks in centred.items():
         for name, mask in masks.items():
             levels = np.asarray(coords[name], dtype=object)
@@ -382,9 +320,7 @@ def build_model(design: Design, priors: PriorSet) -> BuiltModel:
         for g in design.groups:
             masks = {part: m[g.name] for part, m in centred.items() if g.name in m}
             centres = {part: _level_centre(*coefs[part], g) for part in masks}
-            weights = {part: w[g.name] for part, w in partial.items() if g.name in w}
-            eta_c, eta_z = _group_terms(design, priors, g, eta_c, eta_z, centres, masks,
-                                        weights)
+            eta_c, eta_z = _group_terms(design, priors, g, eta_c, eta_z, centres, masks)
         if fam.has_dispersion:
             sqrt_alpha = _dist(names.DISPERSION_SQRT, priors.dispersion)
             log_alpha = 2.0 * pt.log(sqrt_alpha)
