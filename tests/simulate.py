@@ -175,3 +175,22 @@ def fitted_from_user_draws(df: pd.DataFrame, spec, b: np.ndarray, g: np.ndarray 
                        divergences=0, draws=len(b), chains=2)
     return FittedModel(spec, design, idata, resolve(design, None),
                        df[design.used_columns].copy(), diag)
+
+
+def panel(n_groups: int = 150, seed: int = 21) -> pd.DataFrame:
+    """A small panel: ``n_groups`` units seen 1-6 times each (3.3 on average), ZINB with a
+    unit intercept in both parts (sds 0.6 and 1.0), a continuous predictor ``x`` per record
+    and ``u`` per unit, exposure ``e``. The shape of benchmarks/bench_panel.py's panel, small."""
+    rng = np.random.default_rng(seed)
+    times = 1 + rng.binomial(5, 0.46, n_groups)
+    unit = np.repeat(np.arange(n_groups), times)
+    n = unit.size
+    u = rng.gamma(2.0, 0.6, n_groups)[unit]
+    x = rng.normal(0.0, 1.0, n)
+    e = rng.uniform(2.0, 20.0, n)
+    eta_c = -1.3 + 0.3 * x - 0.35 * u + rng.normal(0.0, 0.6, n_groups)[unit] + np.log(e)
+    eta_z = -0.6 + 0.7 * u + rng.normal(0.0, 1.0, n_groups)[unit]
+    y = rng.poisson(rng.gamma(1.0 / 0.8, 0.8 * np.exp(eta_c)))
+    y[rng.random(n) < 1.0 / (1.0 + np.exp(-eta_z))] = 0
+    return pd.DataFrame({"y": y.astype(np.int64), "x": x, "u": u, "e": e,
+                         "unit": [f"p{i:04d}" for i in unit]})

@@ -19,6 +19,7 @@ bayeszi 0.1.0
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import os
 import shlex
 import sys
@@ -77,7 +78,9 @@ def _run(args: argparse.Namespace) -> int:
     from bayeszi.app.report import run_study
     from bayeszi.app.study import load_study
 
-    study = load_study(args.study).with_sampler(**_overrides(args)).with_preview(args.preview)
+    # each fit's progress while it samples (in place on a terminal, else a line every 30 s)
+    study = load_study(args.study).with_sampler(
+        **_overrides(args), progressbar=not args.quiet).with_preview(args.preview)
     if study.strata:
         return _run_strata(args, study)
     asked = [f for f, v in (("--scheduler", getattr(args, "scheduler", None)),
@@ -146,6 +149,8 @@ def _fit(args: argparse.Namespace) -> int:
                      offset=args.offset, groups=args.groups or None, draws=args.draws,
                      warmup_steps=args.warmup_steps, chains=args.chains, cores=args.cores,
                      acceptance_target=args.acceptance_target, seed=args.seed)
+    spec = dataclasses.replace(spec, sampler=dataclasses.replace(
+        spec.sampler, progressbar=not args.quiet))  # progress while it samples
     name = args.name or spec.family
     checked = check_candidates(data, [Candidate(name, spec)], noun="model")  # before sampling
     args.console(f"fitting {spec.family} to {len(data)} records of {args.data} ...")

@@ -96,6 +96,9 @@ def fit(data: pd.DataFrame, counts: str, zeros: str | None = "~ 1", family: str 
         thresholds (R-hat 1.01, ESS 400), at most ``draws_limit`` per chain; ``draws`` is then
         not used. The fit says how many draws it took and why it stopped
         (``print(fit)`` and the models table of a report).
+        ``progressbar`` shows bayeszi's progress line while sampling (iterations done,
+        time elapsed, an estimate of the time left; default: when standard error is a
+        terminal). ``sampler="auto"`` takes nutpie for big fits, PyMC's NUTS for small ones.
 
     Returns
     -------

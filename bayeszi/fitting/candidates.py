@@ -45,7 +45,9 @@ from bayeszi.fitting import api
 from bayeszi.fitting.fitted import FittedModel
 from bayeszi.model.collinearity import warn_collinear
 from bayeszi.model.design import Design, build_design
+from bayeszi.model.patterns import find_patterns
 from bayeszi.model.priors import resolve
+from bayeszi.model.sample import fit_work, nutpie_problem, slow_fit_warning
 from bayeszi.model.validate import check_frame
 
 
@@ -264,7 +266,8 @@ def check_candidates(data: pd.DataFrame, candidates: Sequence[Candidate],
     A problem is a :class:`BayesziError` prefixed with ``noun`` and the candidate's name
     (``"candidate 'zip': ..."``). Each data warning, collinear predictors included
     (:mod:`bayeszi.model.collinearity`), is shown once, naming the candidates it concerns
-    unless it concerns all of them.
+    unless it concerns all of them; so is the warning that a big fit will be slow because
+    nutpie cannot be imported (:func:`bayeszi.model.sample.slow_fit_warning`).
 
     Example
     -------
@@ -284,12 +287,24 @@ def check_candidates(data: pd.DataFrame, candidates: Sequence[Candidate],
                 warn_collinear(designs[c.name])
             except BayesziError as err:
                 raise BayesziError(f"{noun} {c.name!r}: {err}") from None
+            _warn_if_slow(c.spec, designs[c.name])
         for w in caught:
             seen.setdefault(str(w.message), (w.category, []))[1].append(c.name)
     for text, (category, names) in seen.items():
         who = "" if len(names) == len(candidates) else f" ({noun}(s) {', '.join(names)})"
         warnings.warn(text + who, category, stacklevel=2)
     return CheckedCandidates(tuple(candidates), designs, frozenset(seen), noun)
+
+
+def _warn_if_slow(spec: ModelSpec, design: Design) -> None:
+    """Before sampling: the warning a big fit gets when nutpie cannot be imported (the fit
+    raises the same text again, which is then not shown twice)."""
+    if spec.sampler.sampler != "auto" or nutpie_problem() is None:
+        return
+    work = fit_work(find_patterns(design).n_patterns, spec.sampler)
+    message = slow_fit_warning(spec.sampler.sampler, work)
+    if message is not None:
+        warnings.warn(message, BayesziWarning, stacklevel=3)
 
 
 def fit_each(data: pd.DataFrame, checked: CheckedCandidates,

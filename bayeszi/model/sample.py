@@ -1,7 +1,8 @@
-"""Run NUTS on CPU: PyMC's sampler, or nutpie for big fits when it is installed.
+"""Run NUTS on CPU: PyMC's sampler for small fits, nutpie for big ones.
 
 :func:`run_nuts` samples a PyMC model and returns an ArviZ InferenceData; the diagnostics
-of the draws are :mod:`bayeszi.model.diagnostics`.
+of the draws are :mod:`bayeszi.model.diagnostics`. Progress is bayeszi's own line
+(:mod:`bayeszi.model.progress`); the samplers' progress bars and advice stay hidden.
 
 Example
 -------
@@ -23,6 +24,7 @@ import xarray as xr
 
 from bayeszi.base.errors import BayesziWarning
 from bayeszi.base.spec import SamplerSettings
+from bayeszi.model.progress import SamplingProgress
 
 
 def _cores(settings: SamplerSettings) -> int:
@@ -31,32 +33,77 @@ def _cores(settings: SamplerSettings) -> int:
     return max(1, min(settings.chains, os.cpu_count() or 1))
 
 
-#: ``sampler="auto"`` uses nutpie (when installed) once a fit's work, patterns x (warm-up steps +
+#: ``sampler="auto"`` uses nutpie once a fit's work, patterns x (warm-up steps +
 #: draws) x chains, reaches this; below it PyMC's NUTS finishes first, because numba's
 #: compile (about 15 s) takes longer than PyTensor's C compile. Measured
 #: (docs/performance.md): nutpie lost at 2.4e5 (400 records x 300 iterations x 2 chains,
 #: 1.8x slower) and at 6e6-8e6 (2,000 records, 2 x 2,000 iterations: PyMC 0-30% faster),
 #: and was 2.9x faster at 2.6e7 (20,000 discrete records).
 NUTPIE_MIN_WORK = 1e7
+#: from this much work on, a fit that has to fall back to PyMC's NUTS (nutpie cannot be
+#: imported) warns before sampling that it will be slow: nutpie was 2.9x faster at 2.6e7
+#: and PyMC's NUTS gave no answer in 25 minutes at 8e7 (docs/performance.md).
+SLOW_WITHOUT_NUTPIE_WORK = 2e7
+
+
+def nutpie_problem() -> str | None:
+    """Why nutpie (with numba, which it compiles PyMC models with) cannot be used here, or
+    None when both import.
+
+    Example
+    -------
+    >>> nutpie_problem() is None or isinstance(nutpie_problem(), str)
+    True
+    """
+    try:
+        import numba  # noqa: F401
+        import nutpie  # noqa: F401
+    except Exception as err:  # missing, or broken by a version clash: treated as absent
+        return f"{type(err).__name__}: {' '.join(str(err).split())[:200]}"
+    return None
 
 
 def nutpie_version() -> str | None:
-    """The installed nutpie's version, or None when it (or numba, which it compiles PyMC
-    models with) cannot be imported."""
-    try:
-        import numba  # noqa: F401
-        import nutpie
-    except Exception:  # not installed, or broken by a version clash: treated as absent
+    """The installed nutpie's version, or None when it (or numba) cannot be imported."""
+    if nutpie_problem() is not None:
         return None
+    import nutpie
+
     return str(getattr(nutpie, "__version__", "unknown"))
+
+
+def slow_fit_warning(requested: str, work: float | None) -> str | None:
+    """The warning a fit of ``work`` gets before sampling when ``sampler=requested`` would
+    take nutpie but nutpie cannot be imported; None when there is nothing to say.
+
+    Example
+    -------
+    >>> slow_fit_warning("pymc", 1e12) is None     # PyMC's NUTS asked for by name
+    True
+    """
+    if requested != "auto" or (work is not None and work < SLOW_WITHOUT_NUTPIE_WORK):
+        return None
+    problem = nutpie_problem()
+    if problem is None:
+        return None
+    size = "" if work is None else f" (about {work / 1e6:,.0f} million record evaluations)"
+    return (
+        f"this is a big fit{size}, and nutpie, the sampler bayeszi uses for big fits, "
+        f"cannot be imported here ({problem}); PyMC's NUTS will sample instead and can take "
+        "several times as long (for a 20,000-record panel: no answer in 25 minutes against "
+        "about 2). nutpie is a dependency of bayeszi: reinstall it with "
+        "'pip install \"nutpie[pymc]>=0.16.8,<0.17\"' (it needs numba too), or pass "
+        "sampler='pymc' to go ahead with PyMC's NUTS without this warning"
+    )
 
 
 def choose_sampler(requested: str, work: float | None = None) -> str:
     """``"pymc"`` or ``"nutpie"`` for a requested ``"auto"``, ``"pymc"`` or ``"nutpie"``.
 
-    ``"auto"`` takes nutpie when it is installed and ``work`` (patterns x iterations x
-    chains; None counts as large) reaches :data:`NUTPIE_MIN_WORK`, else PyMC's NUTS.
-    nutpie is optional: asked for by name but missing, it falls back to PyMC's NUTS with a
+    ``"auto"`` takes nutpie when it can be imported and ``work`` (patterns x iterations x
+    chains; None counts as large) reaches :data:`NUTPIE_MIN_WORK`, else PyMC's NUTS; a big
+    fit that falls back to PyMC's NUTS warns first (:func:`slow_fit_warning`). nutpie asked
+    for by name but not importable falls back to PyMC's NUTS with a
     :class:`BayesziWarning` that says how to install it.
 
     Example
@@ -69,13 +116,18 @@ def choose_sampler(requested: str, work: float | None = None) -> str:
     if requested == "pymc":
         return "pymc"
     if requested == "auto":
-        big = work is None or work >= NUTPIE_MIN_WORK
-        return "nutpie" if big and nutpie_version() is not None else "pymc"
+        if work is not None and work < NUTPIE_MIN_WORK:
+            return "pymc"
+        message = slow_fit_warning(requested, work)
+        if message is not None:
+            warnings.warn(message, BayesziWarning, stacklevel=3)
+        return "nutpie" if nutpie_version() is not None else "pymc"
     if nutpie_version() is None:
         warnings.warn(
-            "sampler='nutpie' was asked for but nutpie is not installed (or failed to "
-            "import); using PyMC's NUTS instead. Install it with 'pip install nutpie[pymc]' or "
-            "pass sampler='pymc' to silence this warning",
+            "sampler='nutpie' was asked for but nutpie cannot be imported "
+            f"({nutpie_problem()}); using PyMC's NUTS instead. Reinstall it with "
+            "'pip install \"nutpie[pymc]>=0.16.8,<0.17\"' or pass sampler='pymc' to silence "
+            "this warning",
             BayesziWarning,
             stacklevel=3,
         )
@@ -110,20 +162,121 @@ def _quiet_pymc():
     return quiet()
 
 
+def _progress(settings: SamplerSettings, show: bool, label: str) -> SamplingProgress | None:
+    """bayeszi's progress line for this fit, or None when progress is off."""
+    if not show:
+        return None
+    total = (settings.warmup_steps + settings.draws) * settings.chains
+    return SamplingProgress(total, f"{label}, {settings.chains} chain(s)")
+
+
+def _pymc_callback(progress: SamplingProgress | None):
+    """A ``pm.sample`` callback that feeds ``progress`` (None: no callback)."""
+    if progress is None:
+        return None
+    counts = {"done": 0, "divergent": 0}
+
+    def callback(trace, draw) -> None:
+        counts["done"] += 1
+        stats = draw.stats[0] if isinstance(draw.stats, list) and draw.stats else {}
+        counts["divergent"] += bool(stats.get("diverging", False)) and not draw.tuning
+        progress.update(counts["done"], counts["divergent"])
+
+    return callback
+
+
 def _sample_pymc(model: pm.Model, settings: SamplerSettings, progress: bool
                  ) -> az.InferenceData:
+    display = _progress(settings, progress, "PyMC's NUTS")
     with model, _quiet_pymc():
-        return pm.sample(
+        idata = pm.sample(
             draws=settings.draws,
             tune=settings.warmup_steps,
             chains=settings.chains,
             cores=_cores(settings),
             target_accept=settings.acceptance_target,
             random_seed=settings.seed,
-            progressbar=progress,
+            progressbar=False,
+            callback=_pymc_callback(display),
             idata_kwargs={"log_likelihood": False},
             compute_convergence_checks=False,
         )
+    if display is not None:
+        display.close()
+    return idata
+
+
+#: what nutpie's progress callback renders for us: draws done, draws in all, divergences
+_NUTPIE_TEMPLATE = ("{{ total_finished_draws }} {{ total_draws }}"
+                    "{% for chain in chains %} {{ chain.divergences }}{% endfor %}")
+
+
+def _nutpie_settings(settings: SamplerSettings):
+    """nutpie's sampler settings for ``settings`` (see :data:`NUTPIE_OPTIONS`)."""
+    from nutpie import _lib
+
+    nuts = _lib.PyNutsSettings.Diag(settings.seed)
+    nuts.num_tune = settings.warmup_steps
+    nuts.num_draws = settings.draws
+    nuts.num_chains = settings.chains
+    nuts.target_accept = settings.acceptance_target
+    return nuts
+
+
+def _nutpie_with_progress(compiled, settings: SamplerSettings, display: SamplingProgress):
+    """Start nutpie with a progress callback that feeds ``display``; returns the running
+    sampler. Uses nutpie's lower-level sampler interface (as ``nutpie.sample`` does inside);
+    None when this nutpie does not offer it, and the caller samples without progress."""
+    try:
+        from nutpie import _lib
+        from nutpie.sample import _BackgroundSampler
+    except ImportError:
+        return None
+
+    def feed(text: str) -> None:
+        parts = [int(float(v)) for v in text.split()]
+        if len(parts) >= 2:
+            display.update(parts[0], sum(parts[2:]))
+
+    try:
+        nuts = _nutpie_settings(settings)
+        kind = _lib.ProgressType.template_callback(500, _NUTPIE_TEMPLATE, _cores(settings),
+                                                   feed)
+        sampler = object.__new__(_BackgroundSampler)
+        sampler._settings, sampler._compiled_model = nuts, compiled
+        sampler._save_warmup, sampler._return_raw_trace = False, False
+        sampler._html, sampler._zarr_store = None, None
+        sampler._store = _lib.PyStorage.arrow()
+        sampler._sampler = compiled._make_sampler(
+            nuts, np.zeros(compiled.n_dim), _cores(settings), kind, sampler._store)
+    except (AttributeError, TypeError):  # another nutpie inside: no progress, same fit
+        return None
+    return sampler
+
+
+def _nutpie_draws(compiled, settings: SamplerSettings, progress: bool) -> az.InferenceData:
+    """Sample a compiled model with nutpie; all draws or a KeyboardInterrupt."""
+    import nutpie
+
+    display = _progress(settings, progress, "nutpie")
+    sampler = _nutpie_with_progress(compiled, settings, display) if display else None
+    if sampler is None:
+        idata = nutpie.sample(
+            compiled, draws=settings.draws, tune=settings.warmup_steps, chains=settings.chains,
+            cores=_cores(settings), seed=settings.seed, progress_bar=False,
+            save_warmup=False, target_accept=settings.acceptance_target,
+        )
+    else:
+        try:
+            idata = sampler.wait()
+        except BaseException:  # Ctrl-C or a failure: stop the chains, keep nothing
+            sampler.cancel()
+            raise
+        display.close()
+    if idata.posterior.sizes.get("draw", 0) < settings.draws:
+        # nutpie returns what it has when interrupted; a fit keeps all draws or none
+        raise KeyboardInterrupt("nutpie stopped before all draws were taken")
+    return idata
 
 
 def _sample_nutpie(model: pm.Model, settings: SamplerSettings, progress: bool
@@ -133,14 +286,7 @@ def _sample_nutpie(model: pm.Model, settings: SamplerSettings, progress: bool
     with _quiet_pymc(), warnings.catch_warnings():
         warnings.simplefilter("ignore")  # numba's cache notes
         compiled = nutpie.compile_pymc_model(model)
-        idata = nutpie.sample(
-            compiled, draws=settings.draws, tune=settings.warmup_steps, chains=settings.chains,
-            cores=_cores(settings), seed=settings.seed, progress_bar=progress,
-            save_warmup=False, target_accept=settings.acceptance_target,
-        )
-    if idata.posterior.sizes.get("draw", 0) < settings.draws:
-        # nutpie returns what it has when interrupted; a fit keeps all draws or none
-        raise KeyboardInterrupt("nutpie stopped before all draws were taken")
+        idata = _nutpie_draws(compiled, settings, progress)
     stats = idata.sample_stats
     if "maxdepth_reached" in stats and "reached_max_treedepth" not in stats:
         stats["reached_max_treedepth"] = stats["maxdepth_reached"]
@@ -161,9 +307,10 @@ def run_nuts(model: pm.Model, settings: SamplerSettings, rows: int) -> az.Infere
     sampling, in NumPy (:func:`bayeszi.engine.pointwise.pattern_log_likelihood`). ``rows`` is
     the number of rows the density sums over (patterns), which the automatic choice weighs.
 
-    ``settings.sampler`` picks PyMC's NUTS (``"pymc"``), nutpie (``"nutpie"``, optional:
-    falls back to PyMC with a warning when missing) or the measured default (``"auto"``,
-    see :func:`choose_sampler`).
+    ``settings.sampler`` picks PyMC's NUTS (``"pymc"``), nutpie (``"nutpie"``: falls back
+    to PyMC with a warning when it cannot be imported) or the measured default (``"auto"``,
+    see :func:`choose_sampler`). ``settings.progressbar`` (None: when standard error is a
+    terminal) shows bayeszi's progress line (:class:`~bayeszi.model.progress.SamplingProgress`).
     The attribute ``bayeszi_sampler`` reads ``"pymc-nuts"`` or ``"nutpie-<version>"``.
     """
     progress = settings.progressbar
