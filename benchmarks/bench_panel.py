@@ -47,6 +47,7 @@ import signal
 import statistics
 import subprocess
 import sys
+import threading
 import time
 import tracemalloc
 import warnings
@@ -128,7 +129,8 @@ def _plain_fit(df, seed: int, progress_file: str | None) -> dict:
 
 
 def _progress_callback(path: str | None):
-    """Append "chain iteration seconds" to ``path`` every 100 iterations of a chain."""
+    """Append "chain iteration seconds" to ``path`` at a chain's iterations 1, 10 and every
+    100th (seconds from the start of sampling)."""
     if not path:
         return None
     t0 = time.perf_counter()
@@ -136,7 +138,7 @@ def _progress_callback(path: str | None):
 
     def callback(trace, draw):
         done[draw.chain] = done.get(draw.chain, 0) + 1
-        if done[draw.chain] % 100 == 0:
+        if done[draw.chain] in (1, 10) or done[draw.chain] % 100 == 0:
             with open(path, "a") as fh:
                 fh.write(f"{draw.chain} {done[draw.chain]} {time.perf_counter() - t0:.0f}\n")
 
@@ -281,9 +283,12 @@ def _run_child(run: str, seed: int, cap: float, folder: Path) -> dict:
     proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
                             start_new_session=True,
                             env={**os.environ, "PYTHONWARNINGS": "ignore"})
+    watch = _MemoryWatch(proc.pid)
+    watch.start()
     try:
         stdout, stderr = proc.communicate(timeout=cap)
     except subprocess.TimeoutExpired:
+        watch.stop()
         os.killpg(proc.pid, signal.SIGKILL)
         proc.communicate()
         lines = progress.read_text().split("\n") if progress.exists() else []
@@ -293,7 +298,8 @@ def _run_child(run: str, seed: int, cap: float, folder: Path) -> dict:
             last[int(chain)] = (int(it), int(sec))
         return {"run": run, "stopped_after_s": cap, "iterations_done_by_chain": last,
                 "error": f"not finished within the cap of {cap:.0f} s",
-                "load_average_after": os.getloadavg()}
+                "polled_peak_rss_mb": watch.peaks(), "load_average_after": os.getloadavg()}
+    watch.stop()
     res = subprocess.CompletedProcess(cmd, proc.returncode, stdout, stderr)
     lines = [ln for ln in res.stdout.splitlines() if ln.startswith("{")]
     if res.returncode != 0 or not lines:
@@ -301,8 +307,42 @@ def _run_child(run: str, seed: int, cap: float, folder: Path) -> dict:
         return {"run": run, "error": " | ".join(tail)}
     out = json.loads(lines[-1])
     out["process_s"] = time.perf_counter() - t0
+    out["polled_peak_rss_mb"] = watch.peaks()
     out["load_average_after"] = os.getloadavg()
     return out
+
+
+class _MemoryWatch(threading.Thread):
+    """Every 2 s, the resident memory of a fit's process and of its workers (the processes
+    of its session), from /proc: peaks that survive a fit stopped at the cap."""
+
+    def __init__(self, pid: int) -> None:
+        super().__init__(daemon=True)
+        self.pid, self.main, self.worker = pid, 0.0, 0.0
+        self.done = threading.Event()
+
+    def run(self) -> None:
+        while not self.done.wait(2.0):
+            for entry in Path("/proc").iterdir():
+                if not entry.name.isdigit():
+                    continue
+                try:
+                    stat = (entry / "stat").read_text().rsplit(")", 1)[1].split()
+                    if int(stat[3]) != self.pid:  # session id
+                        continue
+                    rss = int(stat[21]) * os.sysconf("SC_PAGE_SIZE") / 2**20
+                except (OSError, IndexError, ValueError):
+                    continue
+                if int(entry.name) == self.pid:
+                    self.main = max(self.main, rss)
+                else:
+                    self.worker = max(self.worker, rss)
+
+    def stop(self) -> None:
+        self.done.set()
+
+    def peaks(self) -> dict:
+        return {"main": self.main, "largest_worker": self.worker}
 
 
 def table(results: list[dict]) -> str:
@@ -313,9 +353,11 @@ def table(results: list[dict]) -> str:
     for r in results:
         if "error" in r:
             done = r.get("iterations_done_by_chain")
+            mem = r.get("polled_peak_rss_mb") or {}
             lines.append(f"| {r['run']} | - | > {r.get('stopped_after_s', 0):.0f} "
-                         f"| - | {r['error'][:60]}; iterations per chain: {done} |"
-                         + " - |" * 7)
+                         f"| - | {r['error'][:60]}; (iterations, s) per chain: {done} |"
+                         + " - |" * 4 + f" {mem.get('main', 0):.0f} / "
+                         f"{mem.get('largest_worker', 0):.0f} (polled) |" + " - |" * 3)
             continue
         lines.append(
             f"| {r['run']} | {r['sampler']} | {r['wall_s']:.0f} | {r['cpu_s']:.0f} | "

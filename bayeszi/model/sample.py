@@ -42,7 +42,8 @@ def _cores(settings: SamplerSettings) -> int:
 NUTPIE_MIN_WORK = 1e7
 #: from this much work on, a fit that has to fall back to PyMC's NUTS (nutpie cannot be
 #: imported) warns before sampling that it will be slow: nutpie was 2.9x faster at 2.6e7
-#: and PyMC's NUTS gave no answer in 25 minutes at 8e7 (docs/performance.md).
+#: (docs/performance.md), and on a real 20,000-record panel (8e7) PyMC's NUTS gave no
+#: answer in 25 minutes where nutpie took 4 (issue 23).
 SLOW_WITHOUT_NUTPIE_WORK = 2e7
 
 
@@ -90,8 +91,7 @@ def slow_fit_warning(requested: str, work: float | None) -> str | None:
     return (
         f"this is a big fit{size}, and nutpie, the sampler bayeszi uses for big fits, "
         f"cannot be imported here ({problem}); PyMC's NUTS will sample instead and can take "
-        "several times as long (for a 20,000-record panel: no answer in 25 minutes against "
-        "about 2). nutpie is a dependency of bayeszi: reinstall it with "
+        "several times as long. nutpie is a dependency of bayeszi: reinstall it with "
         "'pip install \"nutpie[pymc]>=0.16.8,<0.17\"' (it needs numba too), or pass "
         "sampler='pymc' to go ahead with PyMC's NUTS without this warning"
     )
