@@ -159,7 +159,9 @@ def test_ctrl_c_in_cli_fit_exits_130_and_writes_nothing(tmp_path, monkeypatch, c
 def test_ctrl_c_in_cli_run_leaves_no_partial_report(tmp_path, monkeypatch, capsys,
                                                      pymc_sampler):
     small_frame().to_csv(tmp_path / "d.csv", index=False)
-    (tmp_path / "s.toml").write_text('[study]\ndata = "d.csv"\nresponse = "y"\n[[model]]\n'
+    # a fixed number of draws, so that the run goes through pm.sample (patched below)
+    (tmp_path / "s.toml").write_text('[study]\ndata = "d.csv"\nresponse = "y"\n'
+                                     '[sampler]\ndraws = 50\n[[model]]\n'
                                      'name = "p"\nfamily = "poisson"\ncounts = "x"\n')
     old = tmp_path / "old-report"  # an earlier report at the destination stays as it was
     old.mkdir()

@@ -155,6 +155,12 @@ def rows_sha256(rows: pd.DataFrame) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
+def _result_settings(spec: dict[str, Any]) -> dict[str, Any]:
+    """A spec's settings without those that cannot change its results (the progress line)."""
+    sampler = {k: v for k, v in spec.get("sampler", {}).items() if k != "progressbar"}
+    return {**spec, "sampler": sampler}
+
+
 def study_key(study: Study) -> str:
     """A hash of everything about the study that changes a stratum's results.
 
@@ -165,7 +171,7 @@ def study_key(study: Study) -> str:
     """
     facts = {
         "study_sha256": study.study_sha256(),
-        "candidates": [[c.name, c.spec.to_dict()] for c in study.candidates],
+        "candidates": [[c.name, _result_settings(c.spec.to_dict())] for c in study.candidates],
         "strata": list(study.strata),
         "reuse": study.cluster.reuse,
         "bayeszi": __version__,
