@@ -184,6 +184,24 @@ def test_hurdle_stratum_without_zeros_is_skipped_with_its_reason(tmp_path):
     assert [s.records for s in plan.strata] == [60, 60]
 
 
+def test_overview_flags_read_the_stratum_tables(tmp_path):
+    """The overview's flags are the preferred model's sampler flag and the readings of its
+    prior-sensitivity table, as the stratum's report wrote them."""
+    from bayeszi.answers.sensitivity import DOMINATES, READING
+    from bayeszi.app.report.overview import _flags
+
+    tables = tmp_path / "tables"
+    tables.mkdir()
+    pd.DataFrame({"model": ["zinb", "zip"], "flag": ["divergences", ""]}).to_csv(
+        tables / "diagnostics.csv", index=False)
+    pd.DataFrame({"part": ["counts", "zeros", "zeros"], "term": ["Intercept", "woodland", "x"],
+                  READING: ["", DOMINATES, DOMINATES]}).to_csv(
+        tables / "sensitivity_zinb.csv", index=False)
+    assert _flags(str(tmp_path), "zinb") == ("divergences",
+                                             f"{DOMINATES} (zeros woodland, zeros x)")
+    assert _flags(str(tmp_path), "zip") == ("", "")
+
+
 # ---------------------------------------------------------------------- compiled once
 def test_reused_density_equals_a_fresh_compile():
     from pymc.blocking import DictToArrayBijection
