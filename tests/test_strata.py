@@ -265,6 +265,7 @@ def test_example_runs_on_a_local_cluster_and_equals_direct_fits(tmp_path, capsys
     assert rc == 0, err
     assert "resuming: 1 stratum(s) already done, 3 to run" in err
     assert "2 worker process(es)" in err and "3 done, 0 running, 0 failed" in err
+    assert "already in use" not in err  # the local cluster takes a free port
     manifest = json.loads((out / "manifest.json").read_text(encoding="utf-8"))["strata"]
     status = {k: v["status"] for k, v in manifest.items()}
     assert status == {"emerald / coast": "done", "emerald / island": "skipped",
@@ -308,14 +309,16 @@ def dask_cluster(tmp_path):
 
     try:
         start([_bin("dask"), "scheduler", "--host", "127.0.0.1", "--port", "0",
-               "--no-dashboard", "--scheduler-file", str(info)])
+               "--no-dashboard", "--dashboard-address", "127.0.0.1:0",
+               "--scheduler-file", str(info)])
         for _ in range(600):
             if info.exists() and info.stat().st_size:
                 break
             time.sleep(0.1)
         address = json.loads(info.read_text())["address"]
         start([_bin("dask"), "worker", address, "--nworkers", "2", "--nthreads", "1",
-               "--host", "127.0.0.1", "--no-dashboard"])
+               "--host", "127.0.0.1", "--no-dashboard", "--dashboard-address",
+               "127.0.0.1:0"])
         yield address
     finally:
         for p in reversed(procs):

@@ -165,13 +165,20 @@ def study_key(study: Study) -> str:
     """
     facts = {
         "study_sha256": study.study_sha256(),
-        "candidates": [[c.name, c.spec.to_dict()] for c in study.candidates],
+        "candidates": [[c.name, _result_settings(c.spec.to_dict())] for c in study.candidates],
         "strata": list(study.strata),
         "reuse": study.cluster.reuse,
         "bayeszi": __version__,
     }
     text = json.dumps(facts, sort_keys=True, default=str)
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def _result_settings(spec: dict[str, Any]) -> dict[str, Any]:
+    """A spec as a dictionary without the settings that change no number (the progress
+    display), so that a run from the command line and one from Python share keys."""
+    sampler = {k: v for k, v in dict(spec.get("sampler", {})).items() if k != "progressbar"}
+    return {**spec, "sampler": sampler}
 
 
 def stratum_study(study: Study, name: str) -> Study:
