@@ -184,6 +184,24 @@ def test_hurdle_stratum_without_zeros_is_skipped_with_its_reason(tmp_path):
     assert [s.records for s in plan.strata] == [60, 60]
 
 
+def test_overview_flags_read_the_stratum_tables(tmp_path):
+    """The overview's flags are the preferred model's sampler flag and the readings of its
+    prior-sensitivity table, as the stratum's report wrote them."""
+    from bayeszi.answers.sensitivity import DOMINATES, READING
+    from bayeszi.app.report.overview import _flags
+
+    tables = tmp_path / "tables"
+    tables.mkdir()
+    pd.DataFrame({"model": ["zinb", "zip"], "flag": ["divergences", ""]}).to_csv(
+        tables / "diagnostics.csv", index=False)
+    pd.DataFrame({"part": ["counts", "zeros", "zeros"], "term": ["Intercept", "woodland", "x"],
+                  READING: ["", DOMINATES, DOMINATES]}).to_csv(
+        tables / "sensitivity_zinb.csv", index=False)
+    assert _flags(str(tmp_path), "zinb") == ("divergences",
+                                             f"{DOMINATES} (zeros woodland, zeros x)")
+    assert _flags(str(tmp_path), "zip") == ("", "")
+
+
 # ---------------------------------------------------------------------- compiled once
 def test_reused_density_equals_a_fresh_compile():
     from pymc.blocking import DictToArrayBijection
@@ -247,6 +265,7 @@ def test_example_runs_on_a_local_cluster_and_equals_direct_fits(tmp_path, capsys
     assert rc == 0, err
     assert "resuming: 1 stratum(s) already done, 3 to run" in err
     assert "2 worker process(es)" in err and "3 done, 0 running, 0 failed" in err
+    assert "already in use" not in err  # the local cluster takes a free port
     manifest = json.loads((out / "manifest.json").read_text(encoding="utf-8"))["strata"]
     status = {k: v["status"] for k, v in manifest.items()}
     assert status == {"emerald / coast": "done", "emerald / island": "skipped",
@@ -290,14 +309,16 @@ def dask_cluster(tmp_path):
 
     try:
         start([_bin("dask"), "scheduler", "--host", "127.0.0.1", "--port", "0",
-               "--no-dashboard", "--scheduler-file", str(info)])
+               "--no-dashboard", "--dashboard-address", "127.0.0.1:0",
+               "--scheduler-file", str(info)])
         for _ in range(600):
             if info.exists() and info.stat().st_size:
                 break
             time.sleep(0.1)
         address = json.loads(info.read_text())["address"]
         start([_bin("dask"), "worker", address, "--nworkers", "2", "--nthreads", "1",
-               "--host", "127.0.0.1", "--no-dashboard"])
+               "--host", "127.0.0.1", "--no-dashboard", "--dashboard-address",
+               "127.0.0.1:0"])
         yield address
     finally:
         for p in reversed(procs):

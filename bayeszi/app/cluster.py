@@ -83,8 +83,12 @@ def _local(n_workers: int, cores_per_fit: int) -> tuple[Any, Any]:
     # PyMC runs parallel chains in child processes, which daemonic workers may not have
     settings = {"distributed.worker.daemon": cores_per_fit <= 1}
     with dask.config.set(settings):
+        # no dashboard; the scheduler's small HTTP server on a free port of 127.0.0.1 (its
+        # default, 8787 on every interface, clashes with any other Dask on the machine)
         cluster = LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True,
                                host="127.0.0.1", dashboard_address=None,
+                               scheduler_kwargs={"dashboard": False,
+                                                 "dashboard_address": "127.0.0.1:0"},
                                silence_logs=logging.ERROR)
     try:
         client = Client(cluster, set_as_default=False)

@@ -180,6 +180,13 @@ def study_key(study: Study) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
+def _result_settings(spec: dict[str, Any]) -> dict[str, Any]:
+    """A spec as a dictionary without the settings that change no number (the progress
+    display), so that a run from the command line and one from Python share keys."""
+    sampler = {k: v for k, v in dict(spec.get("sampler", {})).items() if k != "progressbar"}
+    return {**spec, "sampler": sampler}
+
+
 def stratum_study(study: Study, name: str) -> Study:
     """The single study one stratum runs: the study with the stratum's name in its title.
 

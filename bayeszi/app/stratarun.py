@@ -328,6 +328,7 @@ def run_strata(study: Study, out: str, scheduler: str | None = None,
     dest = check_strata_destination(out)
     if study.sampler.cores is None:
         study = study.with_sampler(cores=1)  # a stratum's chains one after the other
+    study = study.with_sampler(progressbar=False)  # workers show no sampling progress
     plan = plan_strata(study, study.load_data())
     if not plan.running:
         raise _nothing_runs(plan)

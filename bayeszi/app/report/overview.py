@@ -25,7 +25,6 @@ Example
 
 from __future__ import annotations
 
-import glob
 import os
 from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
@@ -34,6 +33,7 @@ import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure as MplFigure
 
+from bayeszi.answers.sensitivity import READING
 from bayeszi.app.report.document import Document, Figure, Links, Section, Table, Text
 from bayeszi.app.report.figures import _plain_log_axis
 from bayeszi.app.report.output import OutputFolder
@@ -73,21 +73,23 @@ def preferred_model(study: Study, folder: str) -> tuple[str, float]:
 
 
 def _flags(folder: str, model: str) -> tuple[str, str]:
-    """The preferred model's sampler flags and any prior-sensitivity flags of the report."""
+    """The preferred model's sampler flags and the readings of its prior-sensitivity table
+    (each distinct reading once, with the parameters it concerns)."""
     diag = _read(folder, "diagnostics")
     sampler = ""
     if diag is not None and "flag" in diag.columns:
         row = diag[diag["model"].astype(str) == model]
         sampler = "" if row.empty or pd.isna(row["flag"].iloc[0]) else str(row["flag"].iloc[0])
-    sens = []
-    for path in sorted(glob.glob(os.path.join(folder, "tables", "*sensitiv*.csv"))):
-        t = pd.read_csv(path)
-        if "flag" not in t.columns:
-            continue
-        if "model" in t.columns:
-            t = t[t["model"].astype(str) == model]
-        sens += [str(f) for f in t["flag"].dropna() if str(f).strip()]
-    return sampler, "; ".join(dict.fromkeys(sens))
+    sens = _read(folder, f"sensitivity_{model}")
+    if sens is None or READING not in sens.columns:
+        return sampler, ""
+    flagged = sens[sens[READING].fillna("").astype(str).str.strip() != ""]
+    label = [c for c in ("part", "term") if c in flagged.columns] or [flagged.columns[0]]
+    readings: dict[str, list[str]] = {}
+    for _, r in flagged.iterrows():
+        readings.setdefault(str(r[READING]), []).append(" ".join(str(r[c]) for c in label))
+    return sampler, "; ".join(f"{k} ({', '.join(v[:3])}{' ...' if len(v) > 3 else ''})"
+                              for k, v in readings.items())
 
 
 def _coefficient(study: Study, folder: str, model: str, stratum: str) -> dict[str, Any] | None:
