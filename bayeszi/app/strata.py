@@ -155,12 +155,6 @@ def rows_sha256(rows: pd.DataFrame) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
-def _result_settings(spec: dict[str, Any]) -> dict[str, Any]:
-    """A spec's settings without those that cannot change its results (the progress line)."""
-    sampler = {k: v for k, v in spec.get("sampler", {}).items() if k != "progressbar"}
-    return {**spec, "sampler": sampler}
-
-
 def study_key(study: Study) -> str:
     """A hash of everything about the study that changes a stratum's results.
 

@@ -274,6 +274,11 @@ def _each(done: Any, futures: dict[Any, Stratum], folders: dict[str, str],
             text = " ".join(str(err).split())[:300]
             res = {"status": FAILED, "reason": f"{type(err).__name__}: {text} (the worker "
                    "running it stopped; rerun with --resume)"}
+        # Done with: let the scheduler forget it, so that if the worker holding its result
+        # dies later, Dask does not run the stratum again (a second run would rewrite a
+        # finished folder and could leave a half-written one after this run has ended).
+        fut.release()
+        keys.discard(fut.key)
         status = res.pop("status")
         manifest.record(s.name, _entry(s, folders[s.name], status, **res))
         if status == DONE:
