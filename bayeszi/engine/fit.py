@@ -19,7 +19,6 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
-import os
 import signal
 import threading
 import time
@@ -42,7 +41,7 @@ from bayeszi.model.diagnostics import Diagnostics, diagnose
 from bayeszi.model.enough import STOP_FIXED, STOP_LIMIT, BlockPlan, sample_until_enough
 from bayeszi.model.priors import resolve
 from bayeszi.model.reuse import attach_active
-from bayeszi.model.sample import run_nuts
+from bayeszi.model.sample import chain_cores, run_nuts
 
 INTERRUPTED = "sampling interrupted: nothing was kept or written; rerun fit() to start again"
 
@@ -101,13 +100,6 @@ def _enough_judge(design: Design):
     return judge
 
 
-def _cores(settings: SamplerSettings) -> int:
-    """Cores for the chains: as set, else one per chain up to the machine's."""
-    if settings.cores is not None:
-        return settings.cores
-    return max(1, min(settings.chains, os.cpu_count() or 1))
-
-
 def _draw(model: pm.Model, settings: SamplerSettings, rows: int, judge) -> az.InferenceData:
     """Fixed draws through :func:`run_nuts`, or blocks until enough; the sample_stats attrs
     say how many draws per chain were taken and why sampling stopped."""
@@ -119,7 +111,7 @@ def _draw(model: pm.Model, settings: SamplerSettings, rows: int, judge) -> az.In
             model, chains=settings.chains, warmup_steps=settings.warmup_steps,
             plan=BlockPlan(settings.block_draws, settings.draws_limit),
             acceptance_target=settings.acceptance_target, seed=settings.seed, judge=judge,
-            processes=settings.chains > 1 and _cores(settings) > 1)
+            processes=settings.chains > 1 and chain_cores(settings) > 1)
         idata, stop = run.idata, run.stop
         idata.sample_stats.attrs["bayeszi_sampler"] = "pymc-nuts-blocks"
     attrs = idata.sample_stats.attrs

@@ -27,7 +27,8 @@ from bayeszi.base.spec import SamplerSettings
 from bayeszi.model.progress import SamplingProgress
 
 
-def _cores(settings: SamplerSettings) -> int:
+def chain_cores(settings: SamplerSettings) -> int:
+    """Cores for the chains: as set, else one per chain up to the machine's."""
     if settings.cores is not None:
         return settings.cores
     return max(1, min(settings.chains, os.cpu_count() or 1))
@@ -193,7 +194,7 @@ def _sample_pymc(model: pm.Model, settings: SamplerSettings, progress: bool
             draws=settings.draws,
             tune=settings.warmup_steps,
             chains=settings.chains,
-            cores=_cores(settings),
+            cores=chain_cores(settings),
             target_accept=settings.acceptance_target,
             random_seed=settings.seed,
             progressbar=False,
@@ -240,7 +241,7 @@ def _nutpie_with_progress(compiled, settings: SamplerSettings, display: Sampling
 
     try:
         nuts = _nutpie_settings(settings)
-        kind = _lib.ProgressType.template_callback(500, _NUTPIE_TEMPLATE, _cores(settings),
+        kind = _lib.ProgressType.template_callback(500, _NUTPIE_TEMPLATE, chain_cores(settings),
                                                    feed)
         sampler = object.__new__(_BackgroundSampler)
         sampler._settings, sampler._compiled_model = nuts, compiled
@@ -248,7 +249,7 @@ def _nutpie_with_progress(compiled, settings: SamplerSettings, display: Sampling
         sampler._html, sampler._zarr_store = None, None
         sampler._store = _lib.PyStorage.arrow()
         sampler._sampler = compiled._make_sampler(
-            nuts, np.zeros(compiled.n_dim), _cores(settings), kind, sampler._store)
+            nuts, np.zeros(compiled.n_dim), chain_cores(settings), kind, sampler._store)
     except (AttributeError, TypeError):  # another nutpie inside: no progress, same fit
         return None
     return sampler
@@ -263,7 +264,7 @@ def _nutpie_draws(compiled, settings: SamplerSettings, progress: bool) -> az.Inf
     if sampler is None:
         idata = nutpie.sample(
             compiled, draws=settings.draws, tune=settings.warmup_steps, chains=settings.chains,
-            cores=_cores(settings), seed=settings.seed, progress_bar=False,
+            cores=chain_cores(settings), seed=settings.seed, progress_bar=False,
             save_warmup=False, target_accept=settings.acceptance_target,
         )
     else:
