@@ -31,6 +31,7 @@ seconds move with the load: compare within a run)::
 
     python benchmarks/bench_panel.py --runs bayeszi plain --cap 1500 --out benchmarks/results
     python benchmarks/bench_panel.py --gradient --variants
+    python benchmarks/bench_panel.py --runs bayeszi:auto:until_enough=1:warmup_steps=300
 
 Example
 -------
@@ -146,15 +147,33 @@ def _progress_callback(path: str | None):
 
 
 # ---------------------------------------------------------------------------- (b) bayeszi
-def _bayeszi_fit(df, seed: int, sampler: str) -> dict:
+def _run_options(run: str) -> tuple[str, dict]:
+    """``bayeszi[:sampler[:name=value...]]`` as the sampler and fit() options, e.g.
+    ``bayeszi:auto:until_enough=1:warmup_steps=300``."""
+    parts = run.split(":")
+    sampler = parts[1] if len(parts) > 1 and parts[1] else "auto"
+    options = {}
+    for item in parts[2:]:
+        key, value = item.split("=", 1)
+        options[key] = bool(int(value)) if key == "until_enough" else int(value)
+    return sampler, options
+
+
+def _bayeszi_fit(df, seed: int, run: str) -> dict:
     import bayeszi as bz
 
+    sampler, options = _run_options(run)
     t0 = time.perf_counter()
-    fitted = bz.fit(df, **_spec_kwargs(), seed=seed, progressbar=False, sampler=sampler)
+    fitted = bz.fit(df, **_spec_kwargs(), seed=seed, progressbar=False, sampler=sampler,
+                    **options)
     wall = time.perf_counter() - t0
     out = _summary(fitted.idata, BAYESZI_PARAMETERS, wall,
                    fitted.idata.sample_stats.attrs["bayeszi_sampler"])
     out["timing"] = fitted.timing
+    attrs = fitted.idata.sample_stats.attrs
+    out["draws_per_chain"] = int(fitted.idata.posterior.sizes["draw"])
+    out["stop"] = str(attrs.get("bayeszi_stop", "fixed number"))
+    out["options"] = options
     out.update(_measure_loo(lambda: fitted.loo().elpd))
     return out
 
@@ -206,7 +225,7 @@ def child(run: str, seed: int, progress_file: str | None) -> dict:
     if run == "plain":
         out = _plain_fit(df, seed, progress_file)
     else:
-        out = _bayeszi_fit(df, seed, run.split(":", 1)[1] if ":" in run else "auto")
+        out = _bayeszi_fit(df, seed, run)
     out.update(run=run, records=len(df), groups=int(df["feeder"].nunique()), seed=seed)
     return out
 
@@ -372,7 +391,9 @@ def main(argv: list[str] | None = None) -> int:
     """Command line: ``python benchmarks/bench_panel.py --help``."""
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--runs", nargs="+", default=["bayeszi", "plain"],
-                    help="bayeszi, bayeszi:pymc, bayeszi:nutpie, plain (in this order)")
+                    help="bayeszi, bayeszi:pymc, bayeszi:nutpie, plain (in this order); "
+                         "fit() options after the sampler, e.g. "
+                         "bayeszi:auto:until_enough=1:warmup_steps=300")
     ap.add_argument("--seed", type=int, default=SEED)
     ap.add_argument("--cap", type=float, default=1500.0, help="seconds per fit")
     ap.add_argument("--out", default=None, help="folder for panel.json and panel.md")

@@ -26,3 +26,17 @@ def test_blas_advice_is_not_shown_after_importing_bayeszi() -> None:
     assert "BLAS" not in with_ and "conda" not in with_, with_
     if ldflags == "''":  # no system BLAS here: PyTensor does warn when bayeszi is not loaded
         assert "could not link to a BLAS" in without, without
+
+
+ONE_CHAIN = ("import numpy as np, arviz as az; "
+             "az.rhat(np.random.default_rng(1).normal(size=(1, 200)))")
+
+
+def test_arviz_one_chain_note_is_not_shown_after_importing_bayeszi() -> None:
+    """One chain: ArviZ logs "Shape validation failed" to standard error; bayeszi says what
+    one chain means in its own warning, so the note is dropped once bayeszi.model is loaded.
+    The probe shows ArviZ does log it without bayeszi (else this test could not fail)."""
+    _, without = _run(ONE_CHAIN)
+    _, with_ = _run("import bayeszi.model; " + ONE_CHAIN)
+    assert "Shape validation failed" in without, without
+    assert "Shape validation failed" not in with_, with_

@@ -8,6 +8,8 @@ same seed, warm-up and total draws (a property of the code, no tolerance).
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import pandas as pd
 import pymc as pm
@@ -95,7 +97,6 @@ def test_block_sizes_fill_up_to_the_limit():
 @pytest.mark.parametrize("settings, words", [
     ({"until_enough": True, "chains": 1}, "chains=2"),
     ({"until_enough": True, "block_draws": 500, "draws_limit": 400}, "block_draws"),
-    ({"until_enough": True, "sampler": "nutpie"}, "nutpie"),
     ({"until_enough": "yes"}, "True or False"),
     ({"draws_limit": 0}, "draws_limit"),
 ])
@@ -137,7 +138,7 @@ def test_a_study_file_draws_until_enough_unless_it_fixes_draws():
     assert _until_enough_default({})["until_enough"] is True
     assert _until_enough_default({"draws": 500})["until_enough"] is False
     assert _until_enough_default({"chains": 1})["until_enough"] is False
-    assert _until_enough_default({"sampler": "nutpie"})["until_enough"] is False
+    assert _until_enough_default({"sampler": "nutpie"})["until_enough"] is True
     with pytest.raises(BayesziError, match="not both"):
         _until_enough_default({"draws": 500, "until_enough": True})
 
@@ -155,3 +156,44 @@ def test_command_line_draws_fix_the_number_and_draws_limit_asks_for_blocks():
     capped = fixed.with_sampler(**_overrides(args))
     assert all(c.spec.sampler.until_enough and c.spec.sampler.draws_limit == 800
                for c in capped.candidates)
+
+
+# ----------------------------------------------------------------------- nutpie (big fits)
+def _slow_normal_model() -> pm.Model:
+    """A model slow enough (50,000 records) that the run is still going when the first
+    blocks are judged, so the judging of a running sampler is what is tested."""
+    y = np.random.default_rng(4).normal(1.0, 2.0, size=50_000)
+    with pm.Model() as model:
+        mu = pm.Normal("mu", 0, 5)
+        sd = pm.HalfNormal("sd", 3)
+        pm.Normal("y", mu, sd, observed=y)
+    return model
+
+
+def test_nutpie_until_enough_keeps_exactly_the_draws_of_a_fixed_run():
+    """nutpie, stopped at a block boundary, keeps value for value the draws of a fixed
+    nutpie run of that many draws with the same seed (a property of the code)."""
+    from bayeszi.model.enough_nutpie import nutpie_until_enough
+    from bayeszi.model.sample import _nutpie_draws, compile_nutpie
+
+    model = _slow_normal_model()
+    compiled = compile_nutpie(model)
+    settings = SamplerSettings(draws=300, warmup_steps=100, chains=2, seed=9, sampler="nutpie")
+    seen: list[int] = []
+
+    def judge(idata):  # enough at 300 draws; records every block it is shown, in order
+        seen.append(int(idata.posterior.sizes["draw"]))
+        assert not np.isnan(idata.posterior["mu"].values).any()
+        return seen[-1] >= 300
+
+    run = nutpie_until_enough(model, settings, BlockPlan(100, 3000), judge, compiled=compiled)
+    assert (run.draws, run.stop, run.blocks, seen) == (300, STOP_ENOUGH, 3, [100, 200, 300])
+    fixed = _nutpie_draws(compiled, settings, progress=False)
+    for name in ("mu", "sd"):
+        np.testing.assert_array_equal(run.idata.posterior[name].values,
+                                      fixed.posterior[name].values)
+    assert "observed_data" in run.idata.groups()
+    never = nutpie_until_enough(model, dataclasses.replace(settings, draws=200),
+                                BlockPlan(100, 200), judge=lambda idata: False,
+                                compiled=compiled)
+    assert (never.draws, never.stop) == (200, STOP_LIMIT)

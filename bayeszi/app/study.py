@@ -351,7 +351,7 @@ class Study:
 
 def _until_enough_default(raw: Mapping[str, Any]) -> dict[str, Any]:
     """[sampler] with ``until_enough`` filled in: a study file draws until enough unless it
-    asks for a fixed ``draws``, a single chain (R-hat needs two) or nutpie.
+    asks for a fixed ``draws`` or a single chain (R-hat needs two).
 
     >>> _until_enough_default({})["until_enough"], _until_enough_default({"draws": 500})
     (True, {'draws': 500, 'until_enough': False})
@@ -362,8 +362,7 @@ def _until_enough_default(raw: Mapping[str, Any]) -> dict[str, Any]:
                            "'until_enough = true' (blocks until R-hat and ESS pass, at most "
                            "'draws_limit'), not both")
     if "until_enough" not in out:
-        out["until_enough"] = ("draws" not in out and out.get("chains", 2) != 1
-                               and out.get("sampler") != "nutpie")
+        out["until_enough"] = "draws" not in out and out.get("chains", 2) != 1
     return out
 
 

@@ -38,7 +38,8 @@ class SamplerSettings:
     ``until_enough=True`` draws in blocks of ``block_draws`` per chain until every reported
     parameter's R-hat, bulk ESS and tail ESS pass the warning thresholds, or until
     ``draws_limit`` draws per chain; ``draws`` is then not used
-    (:mod:`bayeszi.model.enough`).
+    (:mod:`bayeszi.model.enough` for PyMC's NUTS, :mod:`bayeszi.model.enough_nutpie` for
+    nutpie).
     """
 
     draws: int = 1000
@@ -109,10 +110,6 @@ class SamplerSettings:
             raise BayesziError(
                 "until_enough needs chains=2 or more: R-hat, one of the measures it waits for, "
                 "compares chains; set chains=2 or until_enough=False")
-        if self.sampler == "nutpie":
-            raise BayesziError(
-                "until_enough continues PyMC's NUTS chains block by block, which nutpie cannot "
-                "do; set sampler='auto' (or 'pymc'), or until_enough=False to use nutpie")
 
     @property
     def most_draws(self) -> int:

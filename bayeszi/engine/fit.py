@@ -38,10 +38,19 @@ from bayeszi.engine.record import FitRecord, Posterior
 from bayeszi.model.build import build_model
 from bayeszi.model.design import Design, build_design
 from bayeszi.model.diagnostics import Diagnostics, diagnose
-from bayeszi.model.enough import STOP_FIXED, STOP_LIMIT, BlockPlan, sample_until_enough
+from bayeszi.model.enough import STOP_ENOUGH, STOP_FIXED, STOP_LIMIT, BlockPlan, sample_until_enough
+from bayeszi.model.enough_nutpie import nutpie_until_enough
 from bayeszi.model.priors import resolve
+from bayeszi.model.progress import SamplingProgress
 from bayeszi.model.reuse import attach_active
-from bayeszi.model.sample import chain_cores, run_nuts
+from bayeszi.model.sample import (
+    chain_cores,
+    choose_sampler,
+    fit_work,
+    nutpie_version,
+    run_nuts,
+    show_progress,
+)
 
 INTERRUPTED = "sampling interrupted: nothing was kept or written; rerun fit() to start again"
 
@@ -100,18 +109,37 @@ def _enough_judge(design: Design):
     return judge
 
 
+def _blocks_display(settings: SamplerSettings) -> SamplingProgress | None:
+    """The progress line of PyMC's NUTS in blocks (told after warm-up and each block)."""
+    if not show_progress(settings):
+        return None
+    return SamplingProgress((settings.warmup_steps + settings.draws_limit) * settings.chains,
+                            f"PyMC's NUTS, {settings.chains} chain(s), until enough")
+
+
 def _draw(model: pm.Model, settings: SamplerSettings, rows: int, judge) -> az.InferenceData:
     """Fixed draws through :func:`run_nuts`, or blocks until enough; the sample_stats attrs
     say how many draws per chain were taken and why sampling stopped."""
     if not settings.until_enough:
         idata = run_nuts(model, settings, rows)
         stop = STOP_FIXED
+    elif choose_sampler(settings.sampler, fit_work(rows, settings)) == "nutpie":
+        run = nutpie_until_enough(model, settings, BlockPlan(settings.block_draws,
+                                                             settings.draws_limit),
+                                  judge, show_progress(settings))
+        idata, stop = run.idata, run.stop
+        idata.sample_stats.attrs["bayeszi_sampler"] = f"nutpie-{nutpie_version()}-blocks"
     else:
+        display = _blocks_display(settings)
         run = sample_until_enough(
             model, chains=settings.chains, warmup_steps=settings.warmup_steps,
             plan=BlockPlan(settings.block_draws, settings.draws_limit),
             acceptance_target=settings.acceptance_target, seed=settings.seed, judge=judge,
+            on_block=None if display is None else lambda drawn, _limit: display.update(
+                (settings.warmup_steps + drawn) * settings.chains),
             processes=settings.chains > 1 and chain_cores(settings) > 1)
+        if display is not None:
+            display.close("enough draws" if run.stop == STOP_ENOUGH else None)
         idata, stop = run.idata, run.stop
         idata.sample_stats.attrs["bayeszi_sampler"] = "pymc-nuts-blocks"
     attrs = idata.sample_stats.attrs

@@ -13,7 +13,6 @@ Example
 
 from __future__ import annotations
 
-import logging
 import warnings
 from dataclasses import dataclass, field
 
@@ -23,6 +22,7 @@ import pandas as pd
 
 from bayeszi.base import names as var_names
 from bayeszi.base.errors import BayesziWarning
+from bayeszi.model.convergence import diagnostics_table
 
 
 @dataclass(frozen=True)
@@ -111,13 +111,8 @@ def diagnose(idata: az.InferenceData, thresholds: Thresholds | None = None) -> D
     th = thresholds or Thresholds()
     names = parameter_names(idata)
     chains = int(idata.posterior.sizes["chain"])
-    log = logging.getLogger("arviz")
-    level = log.level
-    log.setLevel(logging.CRITICAL)  # one chain: arviz logs a shape message; we say it plainly
-    try:
-        summ = az.summary(idata, var_names=names, kind="diagnostics", round_to="none")
-    finally:
-        log.setLevel(level)
+    # ArviZ's algorithms for all parameters at once (az.summary loops over scalars)
+    summ = diagnostics_table(idata.posterior, names)
     summ = summ[["r_hat", "ess_bulk", "ess_tail"]].set_axis(
         list(var_names.DIAGNOSTIC_COLUMNS), axis=1)
     if chains < 2:

@@ -108,15 +108,29 @@ class SamplingProgress:
             self._show(self.text(now))
             self.last_shown = now
 
-    def close(self) -> None:
+    def close(self, early: str | None = None) -> None:
         """Show the closing line (once; without a terminal only after earlier lines, so a
-        short fit adds nothing to a log)."""
+        short fit adds nothing to a log). ``early`` says why sampling stopped before the
+        planned iterations (e.g. ``"enough draws"``); the line then says so.
+
+        >>> import io
+        >>> buf = io.StringIO()
+        >>> p = SamplingProgress(100, "pymc", stream=buf, clock=iter([0, 31, 40]).__next__)
+        >>> p.update(60); p.close("enough draws")
+        >>> buf.getvalue().splitlines()[-1]
+        'sampling (pymc): 60 iterations, stopped early (enough draws), done in 0m40s'
+        """
         if self.closed:
             return
         self.closed = True
         if not (self.tty or self.shown):
             return
-        self._show(self.text(self.clock()))
+        now = self.clock()
+        if early and self.done < self.total:
+            self._show(f"sampling ({self.label}): {self.done:,} iterations, stopped early "
+                       f"({early}), done in {clock_text(now - self.t0)}")
+        else:
+            self._show(self.text(now))
         if self.tty:
             self.stream.write("\n")
             self.stream.flush()

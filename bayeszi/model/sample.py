@@ -224,24 +224,25 @@ def _nutpie_settings(settings: SamplerSettings):
     return nuts
 
 
-def _nutpie_with_progress(compiled, settings: SamplerSettings, display: SamplingProgress):
-    """Start nutpie with a progress callback that feeds ``display``; returns the running
-    sampler. Uses nutpie's lower-level sampler interface (as ``nutpie.sample`` does inside);
-    None when this nutpie does not offer it, and the caller samples without progress."""
+def start_nutpie(compiled, nuts, cores: int, feed, template: str = None):
+    """Start nutpie in the background with ``nuts`` (its settings object) and a progress
+    callback ``feed(text)`` fed ``template`` rendered twice a second; returns the running
+    sampler (nutpie's ``_BackgroundSampler``: ``wait``, ``inspect``, ``cancel``). Uses
+    nutpie's lower-level sampler interface (as ``nutpie.sample`` does inside); None when this
+    nutpie does not offer it.
+
+    Example
+    -------
+    >>> sampler = start_nutpie(compiled, _nutpie_settings(settings), 2, print)  # doctest: +SKIP
+    >>> idata = sampler.wait()                                                 # doctest: +SKIP
+    """
     try:
         from nutpie import _lib
         from nutpie.sample import _BackgroundSampler
     except ImportError:
         return None
-
-    def feed(text: str) -> None:
-        parts = [int(float(v)) for v in text.split()]
-        if len(parts) >= 2:
-            display.update(parts[0], sum(parts[2:]))
-
     try:
-        nuts = _nutpie_settings(settings)
-        kind = _lib.ProgressType.template_callback(500, _NUTPIE_TEMPLATE, chain_cores(settings),
+        kind = _lib.ProgressType.template_callback(500, template or _NUTPIE_TEMPLATE, cores,
                                                    feed)
         sampler = object.__new__(_BackgroundSampler)
         sampler._settings, sampler._compiled_model = nuts, compiled
@@ -249,10 +250,21 @@ def _nutpie_with_progress(compiled, settings: SamplerSettings, display: Sampling
         sampler._html, sampler._zarr_store = None, None
         sampler._store = _lib.PyStorage.arrow()
         sampler._sampler = compiled._make_sampler(
-            nuts, np.zeros(compiled.n_dim), chain_cores(settings), kind, sampler._store)
-    except (AttributeError, TypeError):  # another nutpie inside: no progress, same fit
+            nuts, np.zeros(compiled.n_dim), cores, kind, sampler._store)
+    except (AttributeError, TypeError):  # another nutpie inside
         return None
     return sampler
+
+
+def _nutpie_with_progress(compiled, settings: SamplerSettings, display: SamplingProgress):
+    """Start nutpie with a progress callback that feeds ``display``; None when this nutpie
+    does not offer its lower-level interface (the caller samples without progress)."""
+    def feed(text: str) -> None:
+        parts = [int(float(v)) for v in text.split()]
+        if len(parts) >= 2:
+            display.update(parts[0], sum(parts[2:]))
+
+    return start_nutpie(compiled, _nutpie_settings(settings), chain_cores(settings), feed)
 
 
 def _nutpie_draws(compiled, settings: SamplerSettings, progress: bool) -> az.InferenceData:
@@ -280,18 +292,21 @@ def _nutpie_draws(compiled, settings: SamplerSettings, progress: bool) -> az.Inf
     return idata
 
 
-def _sample_nutpie(model: pm.Model, settings: SamplerSettings, progress: bool
-                   ) -> az.InferenceData:
+def compile_nutpie(model: pm.Model):
+    """The model compiled for nutpie (numba), with PyMC's and numba's chatter hidden."""
     import nutpie
 
     with _quiet_pymc(), warnings.catch_warnings():
         warnings.simplefilter("ignore")  # numba's cache notes
-        compiled = nutpie.compile_pymc_model(model)
-        idata = _nutpie_draws(compiled, settings, progress)
+        return nutpie.compile_pymc_model(model)
+
+
+def as_pymc_idata(model: pm.Model, idata: az.InferenceData) -> az.InferenceData:
+    """nutpie's draws read as PyMC's: the tree-depth flag under PyMC's name and the
+    observed counts stored as PyMC stores them."""
     stats = idata.sample_stats
     if "maxdepth_reached" in stats and "reached_max_treedepth" not in stats:
         stats["reached_max_treedepth"] = stats["maxdepth_reached"]
-    # the observed counts, as PyMC stores them
     obs = {}
     for rv in model.observed_RVs:
         dims = tuple(model.named_vars_to_dims.get(rv.name) or ())
@@ -299,6 +314,23 @@ def _sample_nutpie(model: pm.Model, settings: SamplerSettings, progress: bool
                                     coords={d: list(model.coords[d]) for d in dims})
     idata.add_groups(observed_data=xr.Dataset(obs))
     return idata
+
+
+def _sample_nutpie(model: pm.Model, settings: SamplerSettings, progress: bool
+                   ) -> az.InferenceData:
+    compiled = compile_nutpie(model)
+    with _quiet_pymc(), warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        idata = _nutpie_draws(compiled, settings, progress)
+    return as_pymc_idata(model, idata)
+
+
+def show_progress(settings: SamplerSettings) -> bool:
+    """Whether the fit shows bayeszi's progress line: as set, else when standard error is a
+    terminal."""
+    if settings.progressbar is None:
+        return sys.stderr.isatty()
+    return bool(settings.progressbar)
 
 
 def run_nuts(model: pm.Model, settings: SamplerSettings, rows: int) -> az.InferenceData:
@@ -314,9 +346,7 @@ def run_nuts(model: pm.Model, settings: SamplerSettings, rows: int) -> az.Infere
     terminal) shows bayeszi's progress line (:class:`~bayeszi.model.progress.SamplingProgress`).
     The attribute ``bayeszi_sampler`` reads ``"pymc-nuts"`` or ``"nutpie-<version>"``.
     """
-    progress = settings.progressbar
-    if progress is None:
-        progress = sys.stderr.isatty()
+    progress = show_progress(settings)
     name = choose_sampler(settings.sampler, fit_work(rows, settings))
     if name == "nutpie":
         idata = _sample_nutpie(model, settings, bool(progress))
