@@ -82,3 +82,23 @@ def test_many_parameters_in_chunks_equal_one_by_one():
     whole = rhat_ess(x)
     np.testing.assert_allclose(whole[-7:], rhat_ess(x[-7:]), rtol=1e-12)
     np.testing.assert_allclose(whole[:3], _arviz(x[:3]), rtol=1e-9)
+
+
+def test_passes_says_what_diagnose_says():
+    """The short-cut check (small variables first) agrees with the full diagnosis, also
+    when only one of thousands of group effects fails."""
+    from bayeszi.model.diagnostics import diagnose, passes
+
+    rng = np.random.default_rng(2)
+    effects = rng.normal(size=(2, 500, 300))
+    good = az.from_dict(posterior={"counts_coef": rng.normal(size=(2, 500, 3)),
+                                   "counts_effect_site": effects},
+                        sample_stats={"diverging": np.zeros((2, 500), bool)})
+    stuck = effects.copy()
+    stuck[1, :, 17] += 3.0  # one effect whose chains disagree
+    bad = az.from_dict(posterior={"counts_coef": rng.normal(size=(2, 500, 3)),
+                                  "counts_effect_site": stuck},
+                       sample_stats={"diverging": np.zeros((2, 500), bool)})
+    for idata, expected in ((good, True), (bad, False)):
+        diag = diagnose(idata)
+        assert passes(idata) is (not diag.bad_rhat and not diag.bad_ess) is expected

@@ -37,7 +37,7 @@ from bayeszi.engine.pointwise import pattern_log_likelihood
 from bayeszi.engine.record import FitRecord, Posterior
 from bayeszi.model.build import build_model
 from bayeszi.model.design import Design, build_design
-from bayeszi.model.diagnostics import Diagnostics, diagnose
+from bayeszi.model.diagnostics import Diagnostics, diagnose, passes
 from bayeszi.model.enough import STOP_ENOUGH, STOP_FIXED, STOP_LIMIT, BlockPlan, sample_until_enough
 from bayeszi.model.enough_nutpie import nutpie_until_enough
 from bayeszi.model.priors import resolve
@@ -104,8 +104,7 @@ def _enough_judge(design: Design):
     included, as the diagnostics table shows them) passes the R-hat and ESS thresholds."""
     def judge(idata: az.InferenceData) -> bool:
         add_user_scale(idata, design)
-        diag = diagnose(idata)
-        return not diag.bad_rhat and not diag.bad_ess
+        return passes(idata)
     return judge
 
 

@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import fft, stats
+from scipy import fft, special, stats
 
 #: parameters per chunk: bounds the memory of the FFTs (chunk x chains x 2 draws complex)
 CHUNK = 512
@@ -47,7 +47,7 @@ def _z_scale(x: np.ndarray) -> np.ndarray:
     """Normal scores of the ranks of each parameter's draws (all chains together)."""
     flat = x.reshape(x.shape[0], -1)
     ranks = stats.rankdata(flat, method="average", axis=1)
-    z = stats.norm.ppf((ranks - BLOM) / (flat.shape[1] - 2 * BLOM + 1))
+    z = special.ndtri((ranks - BLOM) / (flat.shape[1] - 2 * BLOM + 1))  # = norm.ppf
     return z.reshape(x.shape)
 
 
@@ -108,7 +108,8 @@ def _rhat(y: np.ndarray) -> np.ndarray:
 def _chunk_table(x: np.ndarray) -> np.ndarray:
     """R-hat, bulk ESS and tail ESS of a chunk of valid parameters (no NaN)."""
     split = _split(x)
-    bulk = _ess(_z_scale(split))
+    z_split = _z_scale(split)  # shared by bulk ESS and bulk R-hat
+    bulk = _ess(z_split)
     flat = x.reshape(x.shape[0], -1)
     tails = []
     for prob in (0.05, 0.95):
@@ -119,7 +120,7 @@ def _chunk_table(x: np.ndarray) -> np.ndarray:
         rhat = np.full(x.shape[0], np.nan)
     else:
         folded = np.abs(split - np.median(split.reshape(split.shape[0], -1), axis=1)[:, None, None])
-        rhat = np.maximum(_rhat(_z_scale(split)), _rhat(_z_scale(folded)))
+        rhat = np.maximum(_rhat(z_split), _rhat(_z_scale(folded)))
     return np.column_stack([rhat, bulk, tail])
 
 
