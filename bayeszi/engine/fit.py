@@ -38,17 +38,10 @@ from bayeszi.engine.record import FitRecord, Posterior
 from bayeszi.model.build import build_model
 from bayeszi.model.design import Design, build_design
 from bayeszi.model.diagnostics import Diagnostics, diagnose
-from bayeszi.model.enough import STOP_FIXED, STOP_LIMIT, BlockPlan, BlockRun, sample_until_enough
-from bayeszi.model.enough_nutpie import nutpie_until_enough
+from bayeszi.model.enough import STOP_FIXED, STOP_LIMIT, BlockPlan, sample_until_enough
 from bayeszi.model.priors import resolve
 from bayeszi.model.reuse import attach_active
-from bayeszi.model.sample import (
-    chain_cores,
-    choose_until_enough,
-    compile_nutpie,
-    run_nuts,
-    sampler_label,
-)
+from bayeszi.model.sample import chain_cores, run_nuts
 
 INTERRUPTED = "sampling interrupted: nothing was kept or written; rerun fit() to start again"
 
@@ -109,35 +102,22 @@ def _enough_judge(design: Design):
 
 def _draw(model: pm.Model, settings: SamplerSettings, rows: int, judge) -> az.InferenceData:
     """Fixed draws through :func:`run_nuts`, or blocks until enough; the sample_stats attrs
-    say which sampler ran, how many draws per chain were taken and why sampling stopped."""
+    say how many draws per chain were taken and why sampling stopped."""
     if not settings.until_enough:
         idata = run_nuts(model, settings, rows)
         stop = STOP_FIXED
     else:
-        run = _blocks(model, settings, judge)
+        run = sample_until_enough(
+            model, chains=settings.chains, warmup_steps=settings.warmup_steps,
+            plan=BlockPlan(settings.block_draws, settings.draws_limit),
+            acceptance_target=settings.acceptance_target, seed=settings.seed, judge=judge,
+            processes=settings.chains > 1 and chain_cores(settings) > 1)
         idata, stop = run.idata, run.stop
+        idata.sample_stats.attrs["bayeszi_sampler"] = "pymc-nuts-blocks"
     attrs = idata.sample_stats.attrs
     attrs["bayeszi_draws"] = int(idata.posterior.sizes.get("draw", 0))
     attrs["bayeszi_stop"] = stop
     return idata
-
-
-def _blocks(model: pm.Model, settings: SamplerSettings, judge) -> BlockRun:
-    """Draws until enough with the sampler :func:`choose_until_enough` picks."""
-    plan = BlockPlan(settings.block_draws, settings.draws_limit)
-    common = {"chains": settings.chains, "warmup_steps": settings.warmup_steps, "plan": plan,
-              "acceptance_target": settings.acceptance_target, "seed": settings.seed,
-              "judge": judge}
-    name = choose_until_enough(settings.sampler)
-    if name == "nutpie-jax":
-        run = nutpie_until_enough(model, compile_nutpie(model, name),
-                                  cores=chain_cores(settings), **common)
-        run.idata.sample_stats.attrs["bayeszi_sampler"] = sampler_label(name) + "-blocks"
-        return run
-    run = sample_until_enough(model, processes=settings.chains > 1
-                              and chain_cores(settings) > 1, **common)
-    run.idata.sample_stats.attrs["bayeszi_sampler"] = "pymc-nuts-blocks"
-    return run
 
 
 def _diagnosed(idata: az.InferenceData, design: Design) -> Diagnostics:

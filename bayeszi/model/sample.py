@@ -1,4 +1,4 @@
-"""Run NUTS on CPU: PyMC's sampler (or nutpie on JAX) for small fits, nutpie for big ones.
+"""Run NUTS on CPU: PyMC's sampler for small fits, nutpie for big ones.
 
 :func:`run_nuts` samples a PyMC model and returns an ArviZ InferenceData; the diagnostics
 of the draws are :mod:`bayeszi.model.diagnostics`. Progress is bayeszi's own line
@@ -65,25 +65,6 @@ def nutpie_problem() -> str | None:
     return None
 
 
-def jax_problem() -> str | None:
-    """Why nutpie's JAX backend cannot be used here (JAX, an optional extra, or nutpie
-    missing), or None when it can.
-
-    Example
-    -------
-    >>> jax_problem() is None or isinstance(jax_problem(), str)
-    True
-    """
-    problem = nutpie_problem()
-    if problem is not None:
-        return problem
-    try:
-        import jax  # noqa: F401
-    except Exception as err:  # missing, or broken by a version clash: treated as absent
-        return f"{type(err).__name__}: {' '.join(str(err).split())[:200]}"
-    return None
-
-
 def nutpie_version() -> str | None:
     """The installed nutpie's version, or None when it (or numba) cannot be imported."""
     if nutpie_problem() is not None:
@@ -117,40 +98,27 @@ def slow_fit_warning(requested: str, work: float | None) -> str | None:
     )
 
 
-def _jax_for_small_fits() -> bool:
-    """Whether ``"auto"`` takes nutpie on JAX for a small fit: JAX imports, and no compiled
-    PyMC density is being reused (a strata run's :func:`bayeszi.model.reuse.using` block,
-    where PyMC's NUTS needs no compile at all)."""
-    from bayeszi.model.reuse import active
-
-    return active() is None and jax_problem() is None
-
-
 def choose_sampler(requested: str, work: float | None = None) -> str:
-    """``"pymc"``, ``"nutpie"`` or ``"nutpie-jax"`` for a requested ``"auto"``, ``"pymc"`` or
-    ``"nutpie"``.
+    """``"pymc"`` or ``"nutpie"`` for a requested ``"auto"``, ``"pymc"`` or ``"nutpie"``.
 
     ``"auto"`` takes nutpie when it can be imported and ``work`` (patterns x iterations x
-    chains; None counts as large) reaches :data:`NUTPIE_MIN_WORK`. Below that it takes
-    nutpie on JAX (``"nutpie-jax"``) when JAX can be imported (:func:`jax_problem`; an
-    optional extra) and no compiled density is being reused (strata), because its compile
-    is the shortest (docs/performance.md, "Compile backends for small fits"), else PyMC's
-    NUTS; a big fit that falls back to PyMC's NUTS
-    warns first (:func:`slow_fit_warning`). nutpie asked for by name but not importable
-    falls back to PyMC's NUTS with a :class:`BayesziWarning` that says how to install it.
+    chains; None counts as large) reaches :data:`NUTPIE_MIN_WORK`, else PyMC's NUTS; a big
+    fit that falls back to PyMC's NUTS warns first (:func:`slow_fit_warning`). nutpie asked
+    for by name but not importable falls back to PyMC's NUTS with a
+    :class:`BayesziWarning` that says how to install it.
 
     Example
     -------
     >>> choose_sampler("pymc")
     'pymc'
-    >>> choose_sampler("auto", work=1e4) in ("pymc", "nutpie-jax")   # a small fit
-    True
+    >>> choose_sampler("auto", work=1e4)   # a small fit: PyMC starts faster
+    'pymc'
     """
     if requested == "pymc":
         return "pymc"
     if requested == "auto":
         if work is not None and work < NUTPIE_MIN_WORK:
-            return "nutpie-jax" if _jax_for_small_fits() else "pymc"
+            return "pymc"
         message = slow_fit_warning(requested, work)
         if message is not None:
             warnings.warn(message, BayesziWarning, stacklevel=3)
@@ -166,66 +134,6 @@ def choose_sampler(requested: str, work: float | None = None) -> str:
         )
         return "pymc"
     return "nutpie"
-
-
-def choose_until_enough(requested: str) -> str:
-    """The sampler of draws until enough: ``"nutpie-jax"`` for ``"auto"`` when JAX can be
-    imported and no compiled density is being reused (nutpie looked at block by block,
-    :mod:`bayeszi.model.enough_nutpie`), else ``"pymc"`` (PyMC's NUTS continued block by
-    block, :mod:`bayeszi.model.enough`).
-
-    Example
-    -------
-    >>> choose_until_enough("pymc")
-    'pymc'
-    """
-    if requested == "auto" and _jax_for_small_fits():
-        return "nutpie-jax"
-    return "pymc"
-
-
-def sampler_label(name: str) -> str:
-    """What ``sample_stats.attrs["bayeszi_sampler"]`` records for a sampler of
-    :func:`choose_sampler`: ``"pymc-nuts"``, ``"nutpie-<version>"`` or
-    ``"nutpie-<version>-jax"``.
-
-    Example
-    -------
-    >>> sampler_label("pymc")
-    'pymc-nuts'
-    """
-    if name == "pymc":
-        return "pymc-nuts"
-    return f"nutpie-{nutpie_version()}" + ("-jax" if name == "nutpie-jax" else "")
-
-
-def _jax_cache() -> None:
-    """Turn on JAX's persistent compilation cache, unless the user configured one: a folder
-    ``jax`` in PyTensor's compile folder (so one setting moves both caches), keeping every
-    compiled function however quick its compile."""
-    import jax
-    import pytensor
-
-    if os.environ.get("JAX_COMPILATION_CACHE_DIR") or jax.config.jax_compilation_cache_dir:
-        return
-    jax.config.update("jax_compilation_cache_dir",
-                      os.path.join(pytensor.config.compiledir, "jax"))
-    jax.config.update("jax_persistent_cache_min_compile_time_secs", 0)
-    jax.config.update("jax_persistent_cache_min_entry_size_bytes", -1)
-
-
-def compile_nutpie(model: pm.Model, name: str = "nutpie"):
-    """``model`` compiled for nutpie: with numba (``"nutpie"``) or JAX (``"nutpie-jax"``,
-    JAX's value and gradient, its persistent compilation cache on)."""
-    import nutpie
-
-    kwargs = {}
-    if name == "nutpie-jax":
-        _jax_cache()
-        kwargs = {"backend": "jax", "gradient_backend": "jax"}
-    with _quiet_pymc(), warnings.catch_warnings():
-        warnings.simplefilter("ignore")  # numba's cache notes
-        return nutpie.compile_pymc_model(model, **kwargs)
 
 
 def fit_work(rows: int, settings: SamplerSettings) -> float:
@@ -372,12 +280,18 @@ def _nutpie_draws(compiled, settings: SamplerSettings, progress: bool) -> az.Inf
     return idata
 
 
-def nutpie_idata(model: pm.Model, idata: az.InferenceData) -> az.InferenceData:
-    """nutpie's draws of ``model`` made to read as PyMC's: the tree-depth flag under PyMC's
-    name, and the observed counts as PyMC stores them."""
+def _sample_nutpie(model: pm.Model, settings: SamplerSettings, progress: bool
+                   ) -> az.InferenceData:
+    import nutpie
+
+    with _quiet_pymc(), warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # numba's cache notes
+        compiled = nutpie.compile_pymc_model(model)
+        idata = _nutpie_draws(compiled, settings, progress)
     stats = idata.sample_stats
     if "maxdepth_reached" in stats and "reached_max_treedepth" not in stats:
         stats["reached_max_treedepth"] = stats["maxdepth_reached"]
+    # the observed counts, as PyMC stores them
     obs = {}
     for rv in model.observed_RVs:
         dims = tuple(model.named_vars_to_dims.get(rv.name) or ())
@@ -385,15 +299,6 @@ def nutpie_idata(model: pm.Model, idata: az.InferenceData) -> az.InferenceData:
                                     coords={d: list(model.coords[d]) for d in dims})
     idata.add_groups(observed_data=xr.Dataset(obs))
     return idata
-
-
-def _sample_nutpie(model: pm.Model, settings: SamplerSettings, progress: bool,
-                   name: str = "nutpie") -> az.InferenceData:
-    compiled = compile_nutpie(model, name)
-    with _quiet_pymc(), warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        idata = _nutpie_draws(compiled, settings, progress)
-    return nutpie_idata(model, idata)
 
 
 def run_nuts(model: pm.Model, settings: SamplerSettings, rows: int) -> az.InferenceData:
@@ -405,18 +310,19 @@ def run_nuts(model: pm.Model, settings: SamplerSettings, rows: int) -> az.Infere
 
     ``settings.sampler`` picks PyMC's NUTS (``"pymc"``), nutpie (``"nutpie"``: falls back
     to PyMC with a warning when it cannot be imported) or the measured default (``"auto"``,
-    see :func:`choose_sampler`: nutpie on JAX for small fits when JAX is installed).
-    ``settings.progressbar`` (None: when standard error is a terminal) shows bayeszi's
-    progress line (:class:`~bayeszi.model.progress.SamplingProgress`). The attribute
-    ``bayeszi_sampler`` reads as :func:`sampler_label` says.
+    see :func:`choose_sampler`). ``settings.progressbar`` (None: when standard error is a
+    terminal) shows bayeszi's progress line (:class:`~bayeszi.model.progress.SamplingProgress`).
+    The attribute ``bayeszi_sampler`` reads ``"pymc-nuts"`` or ``"nutpie-<version>"``.
     """
     progress = settings.progressbar
     if progress is None:
         progress = sys.stderr.isatty()
     name = choose_sampler(settings.sampler, fit_work(rows, settings))
-    if name.startswith("nutpie"):
-        idata = _sample_nutpie(model, settings, bool(progress), name)
+    if name == "nutpie":
+        idata = _sample_nutpie(model, settings, bool(progress))
+        label = f"nutpie-{nutpie_version()}"
     else:
         idata = _sample_pymc(model, settings, bool(progress))
-    idata.sample_stats.attrs["bayeszi_sampler"] = sampler_label(name)
+        label = "pymc-nuts"
+    idata.sample_stats.attrs["bayeszi_sampler"] = label
     return idata
