@@ -8,7 +8,8 @@ backend. Backends:
 * ``pymc-c``: today's path: PyMC's NUTS step method, PyTensor's default C backend, each
   chain in a forked worker process (:mod:`bayeszi.model.chains`, as ``bayeszi demo``);
 * ``pymc-numba`` / ``pymc-py``: the same with PyTensor's numba mode, or with no C compiler
-  (``PYTENSOR_FLAGS=cxx=``: every operation in Python/NumPy, nothing compiled);
+  (``PYTENSOR_FLAGS=cxx=``: every operation in Python/NumPy, nothing compiled; over ten
+  minutes of sampling here, so leave it out with ``--backends``);
 * ``nutpie-numba``: ``nutpie.compile_pymc_model(model)`` (numba), chains as nutpie's threads;
 * ``nutpie-jax``: ``backend="jax", gradient_backend="jax"``, JAX's persistent compilation
   cache on. JAX is not a dependency of bayeszi: install it aside
@@ -21,6 +22,8 @@ repeats so that machine load falls on all. Reported per run: seconds to import a
 the model, to compile (up to a first gradient: JAX compiles on first call), to warm up and
 draw, in all; seconds per leapfrog step per chain while sampling; one gradient evaluation
 alone (median of 300, one thread); min bulk ESS over the posterior and per sampling second.
+
+Figures and what was concluded: docs/performance.md, "Compile backends for small fits".
 
 Run:  python benchmarks/bench_backend.py [--backends pymc-c nutpie-numba ...] [--repeat 2]
       [--jax-path /tmp/jaxpkgs] [--out results.json]
