@@ -43,10 +43,12 @@ def slug(name: str) -> str:
 
 
 def figure_bytes(figure, fmt: str, dpi: int = 110) -> bytes:
-    """The figure rendered as ``png`` or ``svg`` bytes."""
+    """The figure rendered as ``png`` or ``svg`` bytes, drawn once: every report figure lays
+    itself out (constrained layout or ``tight_layout``), so no tight bounding box is asked
+    for (it would draw the figure, and rerun its layout, a second time)."""
     buf = io.BytesIO()
     meta = {"Software": None} if fmt == "png" else {"Date": None}
-    figure.savefig(buf, format=fmt, dpi=dpi, bbox_inches="tight", metadata=meta)
+    figure.savefig(buf, format=fmt, dpi=dpi, metadata=meta)
     return buf.getvalue()
 
 
