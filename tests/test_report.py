@@ -177,7 +177,7 @@ def test_priors_table_shows_labels_and_the_study_files_prior(report):
 def test_loo_table_equals_the_api(report):
     from bayeszi.answers.comparison import rank_models
 
-    fits = {"poisson": _fit(report, "poisson")}
+    fits = {n: _fit(report, n) for n in ("zinb-reach", "poisson")}
     api = rank_models(fits)
     csv = pd.read_csv(report["out"] / "tables" / "loo_comparison.csv").set_index("model")
     assert list(csv.index) == list(api.index)
