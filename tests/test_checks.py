@@ -616,6 +616,56 @@ def test_pearson_draws_do_not_depend_on_the_chunks():
     assert len(whole) == 100
 
 
+@pytest.mark.parametrize("family", ["zinb", "hurdle-poisson"])
+def test_one_set_of_replicates_gives_every_check_its_own_table(family):
+    """replicated_data draws the data sets once; each check given them returns exactly the
+    table it returns alone with the same seed and draws."""
+    m, _ = _hand_fit(family, n=400, S=200)
+    sites = np.array([f"s{i % 7}" for i in range(m.design.n)])
+    reps = checks.replicated_data(m, by=sites, draws=150, seed=5)
+    same = dict(draws=150, seed=5)
+    pd.testing.assert_frame_equal(checks.zero_check(m, by=sites, interval=0.8, **same),
+                                  checks.zero_check(m, by=sites, interval=0.8, replicates=reps))
+    for fn in (checks.dispersion_check, checks.max_count_check, checks.pearson_check,
+               checks.count_frequencies):
+        alone, shared = fn(m, interval=0.8, **same), fn(m, interval=0.8, replicates=reps)
+        pd.testing.assert_frame_equal(alone, shared, obj=fn.__name__)
+        assert alone.attrs == shared.attrs
+    stats_alone = checks.replicated_statistics(m, **same)
+    pd.testing.assert_frame_equal(stats_alone, checks.replicated_statistics(m, replicates=reps))
+    # one pass, one set of data sets: the zero count of each data set is its frequency of 0
+    freq = checks.replicated_frequency_draws(m, replicates=reps).to_numpy()
+    np.testing.assert_array_equal(freq[:, 0], reps.zeros)
+    np.testing.assert_array_equal(freq.sum(axis=1), m.design.n)
+    np.testing.assert_array_equal(reps.zeros_by["by"].sum(axis=1), reps.zeros)
+    # in chunks of 9 rows the streams still agree, and another seed draws other data sets
+    small = dict(draws=150, seed=5, max_floats=150 * 10 * 9)
+    chunked = checks.replicated_data(m, by=sites, **small)
+    pd.testing.assert_frame_equal(checks.pearson_draws(m, **small),
+                                  checks.pearson_draws(m, replicates=chunked))
+    pd.testing.assert_frame_equal(checks.replicated_frequency_draws(m, **small),
+                                  checks.replicated_frequency_draws(m, replicates=chunked))
+    other = checks.replicated_data(m, by=sites, draws=150, seed=6)
+    assert not np.array_equal(other.zeros, reps.zeros)
+
+
+def test_replicates_of_another_fit_or_setting_are_refused():
+    m, _ = _hand_fit("zip", n=60, S=100)
+    other, _ = _hand_fit("zinb", n=60, S=100)
+    reps = checks.replicated_data(m, draws=50, seed=1)
+    with pytest.raises(bz.BayesziError, match="drawn from a zip fit"):
+        checks.zero_check(other, replicates=reps)
+    with pytest.raises(bz.BayesziError, match="drawn with draws=50"):
+        checks.pearson_check(m, draws=80, replicates=reps)
+    with pytest.raises(bz.BayesziError, match="no zero counts per level of 'by'"):
+        checks.zero_check(m, by=np.repeat(["a", "b"], 30), replicates=reps)
+    with pytest.raises(bz.BayesziError, match="drawn with kmax="):
+        checks.count_frequencies(m, kmax=int(reps.kmax) + 1, replicates=reps)
+    no_freq = checks._replicate(m, 50, 1)
+    with pytest.raises(bz.BayesziError, match="hold no frequencies"):
+        checks.replicated_frequency_draws(m, replicates=no_freq)
+
+
 @pytest.fixture(scope="module")
 def negbin_pair(cached_fit):
     """Negative binomial data (alpha 0.5), 300 records, fitted by a Poisson and a negbin."""

@@ -317,6 +317,22 @@ def test_pmf_table_sums_to_one_and_matches_logpmf(name, setting):
     np.testing.assert_allclose(table[keep], np.exp(logpmf[keep]), rtol=1e-10, atol=0)
 
 
+@pytest.mark.parametrize("name", FAMILY_NAMES)
+def test_pmf_table_on_both_scales_matches_logpmf(name):
+    """pmf_table steps on the natural scale unless a starting value is near underflow (a
+    mean of 2,000 here) or the NB's theta is above 1e4: both ways give exp(logpmf)."""
+    fam = get_family(name)
+    k = np.arange(81)
+    for mus, alpha in (([0.01, 0.7, 4.0, 30.0], 0.6), ([0.7, 4.0, 2000.0], 0.6),
+                       ([0.7, 4.0, 30.0], 1e-6)):
+        ec = np.log(np.array(mus))[:, None]
+        table = fam.pmf_table(80, ec, 0.4, math.log(alpha))
+        logpmf = fam.logpmf(k[None, :], ec, 0.4, math.log(alpha))
+        keep = logpmf > -700  # where exp() is not denormal
+        np.testing.assert_allclose(table[:, 0, :][keep], np.exp(logpmf[keep]), rtol=1e-11,
+                                   atol=0, err_msg=f"{mus} {alpha}")
+
+
 def test_pmf_table_vectorised_shape_and_values():
     fam = get_family("hurdle-negbin")
     ec = np.log([[0.5, 3.0, 10.0]] * 2)  # 2 "draws" x 3 "rows"

@@ -216,6 +216,47 @@ def test_pearson_table_equals_the_api(report):
     assert (rows["residual df"] == api.attrs["residual df"]).all()
 
 
+def test_spread_and_rootogram_tables_equal_the_api(report):
+    """The report draws one set of replicated data per model for all its checks; its tables
+    equal what each check draws alone with the study's seed."""
+    from bayeszi.answers.checks import count_frequencies, dispersion_check, max_count_check
+
+    fit = _fit(report, "zinb-reach")
+    csv = pd.read_csv(report["out"] / "tables" / "spread_check.csv")
+    rows = csv[csv["model"] == "zinb-reach"].set_index("statistic")
+    api = pd.concat([dispersion_check(fit, seed=7), max_count_check(fit, seed=7)])
+    for col in ("observed", "replicated 5%", "replicated 95%", "tail prob"):
+        np.testing.assert_allclose(rows[col], api[col], rtol=1e-12, err_msg=col)
+    freq = pd.read_csv(report["out"] / "tables" / "count_frequencies_zinb-reach.csv")
+    api = count_frequencies(fit, seed=7)
+    for col in ("observed", "expected", "replicated 5%", "replicated 95%"):
+        np.testing.assert_allclose(freq[col], api[col], rtol=1e-12, err_msg=col)
+
+
+def test_checks_share_one_set_of_replicates_per_model(report, monkeypatch):
+    from bayeszi.app.report import context
+    from bayeszi.app.report.sections.rootograms import section_rootograms
+    from bayeszi.app.report.sections.spread import section_spread
+    from bayeszi.app.report.sections.zero_checks import section_zero_checks
+
+    drawn = []
+
+    def counted(fitted, **kw):
+        drawn.append(fitted)
+        return real(fitted, **kw)
+
+    real = context.replicated_data
+    monkeypatch.setattr(context, "replicated_data", counted)
+    fits = {"poisson": _fit(report, "poisson")}
+    ctx = context.ReportContext(
+        inp=context.ReportInput("t", fits, fits["poisson"].data, seed=7),
+        log=context.WarningLog(), loo={}, comparison=None, preferred="poisson",
+        preferred_reason="", coefficients={}, problems={})
+    for section in (section_zero_checks, section_spread, section_rootograms):
+        section(ctx)
+    assert [id(f) for f in drawn] == [id(f) for f in fits.values()]
+
+
 def test_residual_summary_equals_the_api_and_the_figure_is_binned_by_depth(report):
     from bayeszi.answers.checks import residuals
     from bayeszi.answers.residual_checks import residual_statistics

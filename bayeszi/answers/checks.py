@@ -20,7 +20,9 @@ Every check answers one question about a fitted model and returns a DataFrame:
 All numbers come from the closed forms of :mod:`bayeszi.families` applied to the per-draw
 linear predictors of :func:`bayeszi.engine.draws.linear_predictors`, worked through the rows in
 chunks so that no array holds more than about :data:`MAX_FLOATS` floats. Checks that need
-replicated data draw them with ``family.random`` from a seeded NumPy generator.
+replicated data draw them with ``family.random`` from a seeded NumPy generator, always in the
+same chunks; :func:`replicated_data` draws them once for all of them (a report), and each
+such check given them as ``replicates=`` returns what it returns alone with the same seed.
 
 Example
 -------
@@ -63,6 +65,8 @@ __all__ = [
     "replicated_frequency_draws",
     "replicated_statistics",
     "residual_df",
+    "Replicates",
+    "replicated_data",
     "residuals",
     "zero_check",
     "zero_sources",
@@ -368,36 +372,36 @@ def expected_frequency_draws(fitted: FitRecord, kmax: int | None = None,
 
 def replicated_frequency_draws(fitted: FitRecord, kmax: int | None = None,
                                draws: int | None = None, seed: options.Seed = 0, *,
-                               max_floats: int = MAX_FLOATS) -> pd.DataFrame:
+                               max_floats: int = MAX_FLOATS,
+                               replicates: Replicates | None = None) -> pd.DataFrame:
     """Number of records with count k = 0..K and in the tail bin, in replicated data sets.
 
     Row s is one data set drawn from the model (``family.random``) at posterior draw s, for
     the fitted rows; columns as :func:`expected_frequency_draws`. Every row sums to the
-    number of records.
+    number of records. ``replicates`` (from :func:`replicated_data`) are read instead of
+    drawing; they fix ``seed``, ``draws`` and K (``kmax`` None or theirs).
 
     Example
     -------
     >>> reps = replicated_frequency_draws(m, kmax=8, seed=1)    # doctest: +SKIP
     >>> reps["0"].quantile([0.05, 0.95])                        # doctest: +SKIP
     """
-    fam = _family(fitted)
-    K = _kmax(kmax, fitted.design.y)
-    rng = options.rng(seed)
-    index = _draw_index(fitted, draws)
-    S = _n_used(fitted, index)
-    rows = fitted_rows(fitted)
-    out = np.zeros(S * (K + 2), dtype=np.int64)
-    offsets = (np.arange(S, dtype=np.int64) * (K + 2))[:, None]
-    for sl in _chunks(rows.n, S, 10, max_floats):
-        lp = _predictors(fitted, rows, sl, index)
-        y_rep = fam.random(rng, lp.counts, lp.zeros, lp.log_alpha)
-        out += np.bincount((offsets + np.minimum(y_rep, K + 1).astype(np.int64)).ravel(),
-                           minlength=S * (K + 2))
-    return pd.DataFrame(out.reshape(S, K + 2), columns=_bin_labels(K))
+    if replicates is None:
+        K = _kmax(kmax, fitted.design.y)
+        freq = _replicate(fitted, draws, seed, kmax=K, max_floats=max_floats).frequencies
+    else:
+        rep = _drawn(replicates, fitted, draws, "frequencies")
+        K = int(rep.kmax)
+        if kmax is not None and _kmax(kmax, fitted.design.y) != K:
+            raise BayesziError(f"kmax={kmax} but the replicates were drawn with kmax={K}; "
+                               "leave kmax out or draw the replicates with the same kmax")
+        freq = rep.frequencies
+    return pd.DataFrame(freq, columns=_bin_labels(K))
 
 
 def count_frequencies(fitted: FitRecord, kmax: int | None = None, interval: float = 0.9,
-                      draws: int | None = None, seed: options.Seed = 0) -> pd.DataFrame:
+                      draws: int | None = None, seed: options.Seed = 0, *,
+                      replicates: Replicates | None = None) -> pd.DataFrame:
     """Observed against expected number of records with each count, with posterior intervals.
 
     One row per bin k = 0..K and a tail bin "K+1+" (K from :func:`default_kmax` unless
@@ -410,6 +414,8 @@ def count_frequencies(fitted: FitRecord, kmax: int | None = None, interval: floa
     is one the model rarely produces. The ``sqrt`` columns are the rootogram's coordinates;
     ``hanging bottom`` = sqrt(expected) - sqrt(observed) is where the observed bar ends when
     hung from the expected value (below 0: more records observed than expected).
+    ``replicates`` (from :func:`replicated_data`) are read instead of drawing; they fix
+    ``seed``, ``draws`` and K.
 
     Example
     -------
@@ -418,6 +424,9 @@ def count_frequencies(fitted: FitRecord, kmax: int | None = None, interval: floa
     """
     iv = options.interval_bounds(interval)
     lo_name, hi_name = iv.names
+    if replicates is not None:
+        draws = _drawn(replicates, fitted, draws, "frequencies").draws
+        kmax = replicates.kmax if kmax is None else kmax
     rng = options.rng(seed)
     freq = expected_frequency_draws(fitted, kmax, draws)
     K = freq.shape[1] - 2
@@ -426,7 +435,8 @@ def count_frequencies(fitted: FitRecord, kmax: int | None = None, interval: floa
     vals = freq.to_numpy()
     expected = vals.mean(axis=0)
     lo, hi = np.quantile(vals, [iv.lower, iv.upper], axis=0)
-    reps = replicated_frequency_draws(fitted, K, draws, rng).to_numpy()
+    reps = replicated_frequency_draws(fitted, K, draws, rng,
+                                      replicates=replicates).to_numpy()
     rep_lo, rep_hi = np.quantile(reps, [iv.lower, iv.upper], axis=0)
     table = pd.DataFrame({
         "k": np.arange(K + 2),
@@ -446,58 +456,153 @@ def count_frequencies(fitted: FitRecord, kmax: int | None = None, interval: floa
 
 
 # =============================================================================================
-# Replicated data: zero share, dispersion, maximum
+# Replicated data: drawn once, read by every check
 # =============================================================================================
 
 
 @dataclass
-class _Replicates:
-    """Statistics of replicated data sets, one value per draw (arrays of length S)."""
+class Replicates:
+    """Data sets replicated from a fitted model, one per posterior draw, reduced to what the
+    checks read (the data sets themselves are not kept, so memory stays draws x bins).
 
+    Made by :func:`replicated_data`. :func:`zero_check`, :func:`replicated_statistics`
+    (hence :func:`dispersion_check` and :func:`max_count_check`),
+    :func:`replicated_frequency_draws` (hence :func:`count_frequencies`),
+    :func:`pearson_draws` and :func:`pearson_check` take them as ``replicates=`` and then
+    give exactly the tables they give alone with the same ``seed`` and ``draws``: every check
+    draws its data sets in the same chunks from the same seeded stream, so one set serves all.
+    Per draw: ``zeros``, ``total``, ``sumsq`` (sum of squares), ``maximum`` of each data set
+    and ``expected_zeros`` (sum of P(Y = 0)); per level of each ``by`` column the zeros and
+    expected zeros (draws, levels); ``frequencies`` (draws, K + 2) the records per count
+    0..K and K + 1 or more; ``pearson`` the Pearson statistic of the data and of the data
+    set at each draw (None where not drawn).
+
+    Example
+    -------
+    >>> reps = replicated_data(m, seed=1)                          # doctest: +SKIP
+    >>> zero_check(m, replicates=reps).equals(zero_check(m, seed=1))  # doctest: +SKIP
+    True
+    """
+
+    family: str
+    records: int
+    draws: int | None
+    seed: options.Seed
     zeros: np.ndarray
     total: np.ndarray
     sumsq: np.ndarray
     maximum: np.ndarray
     expected_zeros: np.ndarray
+    groupings: list[_Grouping]
     zeros_by: dict[str, np.ndarray]           # (S, levels)
     expected_zeros_by: dict[str, np.ndarray]  # (S, levels)
+    kmax: int | None = None
+    frequencies: np.ndarray | None = None     # (S, K + 2)
+    pearson: tuple[np.ndarray, np.ndarray] | None = None  # observed, replicated
+
+
+def replicated_data(fitted: FitRecord, by: ByArg = None, kmax: int | None = None,
+                    draws: int | None = None, seed: options.Seed = 0, *,
+                    max_floats: int = MAX_FLOATS) -> Replicates:
+    """One replicated data set per posterior draw, drawn once for every check (see
+    :class:`Replicates`): the statistics, the zeros per level of ``by`` (None: the fit's
+    grouping columns, as :func:`zero_check`), the count frequencies 0..K (``kmax`` None:
+    :func:`default_kmax`) and the Pearson statistic.
+
+    Example
+    -------
+    >>> reps = replicated_data(m, seed=1)                           # doctest: +SKIP
+    >>> count_frequencies(m, replicates=reps)                      # doctest: +SKIP
+    """
+    return _replicate(fitted, draws, seed, _groupings(fitted, by),
+                      _kmax(kmax, fitted.design.y), pearson=True, max_floats=max_floats)
 
 
 def _replicate(fitted: FitRecord, draws: int | None, seed: options.Seed,
-               groupings: Sequence[_Grouping] = (), *,
-               max_floats: int = MAX_FLOATS) -> _Replicates:
-    """One replicated data set per posterior draw (``family.random``), reduced to statistics."""
+               groupings: Sequence[_Grouping] = (), kmax: int | None = None,
+               pearson: bool = False, *, max_floats: int = MAX_FLOATS) -> Replicates:
+    """One replicated data set per posterior draw (``family.random``), reduced to statistics;
+    with ``kmax`` also the frequencies and with ``pearson`` the Pearson statistics.
+
+    The rows are always cut into the same chunks (10 floats per draw and row), so the same
+    seed gives the same data sets whatever is asked for."""
     fam = _family(fitted)
     rng = options.rng(seed)
     index = _draw_index(fitted, draws)
     S = _n_used(fitted, index)
     rows = fitted_rows(fitted)
-    zeros = np.zeros(S)
-    total = np.zeros(S)
-    sumsq = np.zeros(S)
-    maximum = np.zeros(S, dtype=np.int64)
-    expected_zeros = np.zeros(S)
-    zeros_by = {g.name: np.zeros((S, len(g.levels))) for g in groupings}
-    exp_by = {g.name: np.zeros((S, len(g.levels))) for g in groupings}
+    y = fitted.design.y.astype(np.float64)
+    rep = Replicates(
+        fitted.spec.family, int(rows.n), draws, seed, np.zeros(S), np.zeros(S), np.zeros(S),
+        np.zeros(S, dtype=np.int64), np.zeros(S), list(groupings),
+        {g.name: np.zeros((S, len(g.levels))) for g in groupings},
+        {g.name: np.zeros((S, len(g.levels))) for g in groupings}, kmax,
+        None if kmax is None else np.zeros(S * (kmax + 2), dtype=np.int64),
+        (np.zeros(S), np.zeros(S)) if pearson else None)
     for sl in _chunks(rows.n, S, 10, max_floats):
         lp = _predictors(fitted, rows, sl, index)
         y_rep = fam.random(rng, lp.counts, lp.zeros, lp.log_alpha)
-        p0 = fam.prob_zero(lp.counts, lp.zeros, lp.log_alpha)
-        p0 = np.broadcast_to(p0, y_rep.shape)
-        is_zero = (y_rep == 0).astype(np.float64)
-        zeros += is_zero.sum(axis=1)
-        expected_zeros += p0.sum(axis=1)
-        yf = y_rep.astype(np.float64)
-        total += yf.sum(axis=1)
-        sumsq += np.einsum("ij,ij->i", yf, yf)
-        np.maximum(maximum, y_rep.max(axis=1), out=maximum)
-        for g in groupings:
-            codes = g.codes[sl]
-            onehot = np.zeros((codes.shape[0], len(g.levels)))
-            onehot[np.arange(codes.shape[0]), codes] = 1.0
-            zeros_by[g.name] += is_zero @ onehot
-            exp_by[g.name] += p0 @ onehot
-    return _Replicates(zeros, total, sumsq, maximum, expected_zeros, zeros_by, exp_by)
+        _add_statistics(rep, fam, lp, y_rep, sl)
+        if rep.frequencies is not None:
+            offsets = (np.arange(S, dtype=np.int64) * (kmax + 2))[:, None]
+            rep.frequencies += np.bincount(
+                (offsets + np.minimum(y_rep, kmax + 1).astype(np.int64)).ravel(),
+                minlength=S * (kmax + 2))
+        if rep.pearson is not None:
+            shape = lp.counts.shape
+            mean = np.broadcast_to(fam.mean(lp.counts, lp.zeros, lp.log_alpha), shape)
+            var = np.broadcast_to(fam.variance(lp.counts, lp.zeros, lp.log_alpha), shape)
+            rep.pearson[0][:] += ((y[sl][None, :] - mean) ** 2 / var).sum(axis=1)
+            rep.pearson[1][:] += ((y_rep.astype(np.float64) - mean) ** 2 / var).sum(axis=1)
+    if rep.frequencies is not None:
+        rep.frequencies = rep.frequencies.reshape(S, kmax + 2)
+    return rep
+
+
+def _add_statistics(rep: Replicates, fam: Family, lp: LinearPredictors, y_rep: np.ndarray,
+                    sl: slice) -> None:
+    """Add one chunk of rows of the replicated data sets to the statistics of ``rep``."""
+    p0 = np.broadcast_to(fam.prob_zero(lp.counts, lp.zeros, lp.log_alpha), y_rep.shape)
+    is_zero = (y_rep == 0).astype(np.float64)
+    rep.zeros += is_zero.sum(axis=1)
+    rep.expected_zeros += p0.sum(axis=1)
+    yf = y_rep.astype(np.float64)
+    rep.total += yf.sum(axis=1)
+    rep.sumsq += np.einsum("ij,ij->i", yf, yf)
+    np.maximum(rep.maximum, y_rep.max(axis=1), out=rep.maximum)
+    for g in rep.groupings:
+        codes = g.codes[sl]
+        onehot = np.zeros((codes.shape[0], len(g.levels)))
+        onehot[np.arange(codes.shape[0]), codes] = 1.0
+        rep.zeros_by[g.name] += is_zero @ onehot
+        rep.expected_zeros_by[g.name] += p0 @ onehot
+
+
+def _drawn(replicates: Replicates, fitted: FitRecord, draws: int | None, what: str
+           ) -> Replicates:
+    """``replicates`` if they were drawn from ``fitted`` with ``draws`` (None: as they were)
+    and hold ``what`` ("frequencies", "pearson"); else a BayesziError saying what to pass."""
+    if not isinstance(replicates, Replicates):
+        raise BayesziError(f"replicates must come from replicated_data(), got "
+                           f"{type(replicates).__name__}")
+    if replicates.family != fitted.spec.family or replicates.records != fitted.design.n:
+        raise BayesziError(
+            f"these replicates were drawn from a {replicates.family} fit of "
+            f"{replicates.records} records, not from this {fitted.spec.family} fit of "
+            f"{fitted.design.n}; pass replicated_data(fitted) of the same fit")
+    if draws is not None and draws != replicates.draws:
+        raise BayesziError(
+            f"draws={draws} but the replicates were drawn with draws={replicates.draws}; "
+            "leave draws out or draw the replicates with the same draws")
+    if what and getattr(replicates, what) is None:
+        raise BayesziError(f"these replicates hold no {what}; draw them with "
+                           "replicated_data(fitted, ...)")
+    return replicates
+
+
+# =============================================================================================
+# Zero share, dispersion, maximum
+# =============================================================================================
 
 
 def _variance(total: np.ndarray, sumsq: np.ndarray, n: int) -> np.ndarray:
@@ -507,20 +612,23 @@ def _variance(total: np.ndarray, sumsq: np.ndarray, n: int) -> np.ndarray:
 
 
 def replicated_statistics(fitted: FitRecord, draws: int | None = None,
-                          seed: options.Seed = 0) -> pd.DataFrame:
+                          seed: options.Seed = 0, *,
+                          replicates: Replicates | None = None) -> pd.DataFrame:
     """Summary statistics of one replicated data set per posterior draw.
 
     Each row is a data set drawn from the model (``family.random``) at one posterior draw,
     for the fitted rows; columns: ``zero share``, ``mean``, ``variance``,
     ``variance / mean`` and ``maximum``. ``attrs["observed"]`` holds the same statistics of
-    the observed data.
+    the observed data. ``replicates`` (from :func:`replicated_data`) are read instead of
+    drawing; they fix ``seed`` and ``draws``.
 
     Example
     -------
     >>> reps = replicated_statistics(m, seed=1)                    # doctest: +SKIP
     >>> (reps["zero share"] >= reps.attrs["observed"]["zero share"]).mean()  # doctest: +SKIP
     """
-    rep = _replicate(fitted, draws, seed)
+    rep = (_replicate(fitted, draws, seed) if replicates is None
+           else _drawn(replicates, fitted, draws, ""))
     n = fitted.design.n
     mean = rep.total / n
     var = _variance(rep.total, rep.sumsq, n)
@@ -593,13 +701,15 @@ def statistics_check(reps: pd.DataFrame, statistics: Sequence[str], interval: fl
 
 def dispersion_check(fitted: FitRecord, interval: float = 0.9, draws: int | None = None,
                      seed: options.Seed = 0,
-                     flag: float = FLAG) -> pd.DataFrame:
+                     flag: float = FLAG, *,
+                     replicates: Replicates | None = None) -> pd.DataFrame:
     """Mean, variance and variance-to-mean ratio of the data against replicated data sets.
 
     One row per statistic: the observed value, the mean and central ``interval`` of the
     statistic over data sets replicated from the posterior (one per draw), the tail
     probability P(replicated > observed) + P(replicated = observed)/2 and a verdict
-    (tail probability below ``flag`` or above 1 - ``flag``).
+    (tail probability below ``flag`` or above 1 - ``flag``). ``replicates`` (from
+    :func:`replicated_data`) are read instead of drawing; they fix ``seed`` and ``draws``.
 
     Example
     -------
@@ -607,18 +717,20 @@ def dispersion_check(fitted: FitRecord, interval: float = 0.9, draws: int | None
     """
     flag = _check_flag(flag)
     options.interval_bounds(interval)
-    reps = replicated_statistics(fitted, draws, seed)
+    reps = replicated_statistics(fitted, draws, seed, replicates=replicates)
     return statistics_check(reps, ["mean", "variance", "variance / mean"], interval, flag)
 
 
 def max_count_check(fitted: FitRecord, interval: float = 0.9, draws: int | None = None,
                     seed: options.Seed = 0,
-                    flag: float = FLAG) -> pd.DataFrame:
+                    flag: float = FLAG, *,
+                    replicates: Replicates | None = None) -> pd.DataFrame:
     """Largest observed count against the largest count of replicated data sets.
 
     Same columns as :func:`dispersion_check`, one row ``maximum``. A tail probability near 0
     means the model rarely produces a count as large as the largest one observed (a heavier
     tail, e.g. a negative binomial, may be needed); near 1, the model's tail is too heavy.
+    ``replicates`` as :func:`dispersion_check`.
 
     Example
     -------
@@ -626,14 +738,14 @@ def max_count_check(fitted: FitRecord, interval: float = 0.9, draws: int | None 
     """
     flag = _check_flag(flag)
     options.interval_bounds(interval)
-    reps = replicated_statistics(fitted, draws, seed)
+    reps = replicated_statistics(fitted, draws, seed, replicates=replicates)
     return statistics_check(reps, ["maximum"], interval, flag)
 
 
 def zero_check(fitted: FitRecord, by: ByArg = None,
                interval: float = 0.9, draws: int | None = None,
-               seed: options.Seed = 0, flag: float = FLAG
-               ) -> pd.DataFrame:
+               seed: options.Seed = 0, flag: float = FLAG, *,
+               replicates: Replicates | None = None) -> pd.DataFrame:
     """Observed share of zeros against the model, overall and per level of ``by``.
 
     ``by`` names grouping columns; None checks the grouping columns of the fit (sites,
@@ -648,7 +760,9 @@ def zero_check(fitted: FitRecord, by: ByArg = None,
     zero share of data sets replicated from the posterior (one per draw, ``family.random``
     with ``seed``); ``tail prob`` = P(replicated zeros > observed) + P(equal)/2; and a
     verdict when the tail probability is below ``flag`` ("more zeros than the model
-    predicts") or above 1 - ``flag`` ("fewer zeros ...").
+    predicts") or above 1 - ``flag`` ("fewer zeros ..."). ``replicates`` (from
+    :func:`replicated_data` with the same ``by``) are read instead of drawing; they fix
+    ``seed`` and ``draws``.
 
     Example
     -------
@@ -658,7 +772,12 @@ def zero_check(fitted: FitRecord, by: ByArg = None,
     flag = _check_flag(flag)
     iv = options.interval_bounds(interval)
     groupings = _groupings(fitted, by)
-    rep = _replicate(fitted, draws, seed, groupings)
+    if replicates is None:
+        rep = _replicate(fitted, draws, seed, groupings)
+    else:
+        rep = _drawn(replicates, fitted, draws, "")
+        _same_groupings(rep, groupings)
+        seed = rep.seed
     y = fitted.design.y
     is_zero = y == 0
     rows = [_zero_row(iv, flag, "all records", "", int(y.size), int(is_zero.sum()), rep.zeros,
@@ -677,6 +796,18 @@ def zero_check(fitted: FitRecord, by: ByArg = None,
                        replicated_share=tuple((rep.zeros / y.size).tolist()),
                        draws=int(rep.zeros.size), seed=seed)
     return table
+
+
+def _same_groupings(rep: Replicates, groupings: Sequence[_Grouping]) -> None:
+    """A BayesziError unless ``rep`` counted the zeros of every level of ``groupings``."""
+    drawn = {g.name: g for g in rep.groupings}
+    for g in groupings:
+        d = drawn.get(g.name)
+        if d is None or d.levels != g.levels or not np.array_equal(d.codes, g.codes):
+            raise BayesziError(
+                f"the replicates hold no zero counts per level of {g.name!r} (drawn with by="
+                f"{[d.name for d in rep.groupings]}); draw them with replicated_data(fitted, "
+                "by=...) naming the same columns as the check")
 
 
 def _zero_row(iv: options.Interval, flag: float, group: str, level: str, records: int,
@@ -720,7 +851,8 @@ def residual_df(fitted: FitRecord) -> int:
 
 
 def pearson_draws(fitted: FitRecord, draws: int | None = None, seed: options.Seed = 0, *,
-                  max_floats: int = MAX_FLOATS) -> pd.DataFrame:
+                  max_floats: int = MAX_FLOATS,
+                  replicates: Replicates | None = None) -> pd.DataFrame:
     """The Pearson statistic of the observed and of one replicated data set, per draw.
 
     At posterior draw s, T(y, s) = sum over records of (y_i - E_s[Y_i])^2 / Var_s[Y_i], with
@@ -729,37 +861,29 @@ def pearson_draws(fitted: FitRecord, draws: int | None = None, seed: options.See
     the model at the same draw (``family.random`` with ``seed``), judged by the same draw's
     moments (Gelman, Meng & Stern 1996). Rows are worked through in chunks (at most about
     ``max_floats`` floats at a time), all draws at once. ``attrs`` holds ``records``,
-    ``residual df`` (:func:`residual_df`), ``family``, ``seed``.
+    ``residual df`` (:func:`residual_df`), ``family``, ``seed``. ``replicates`` (from
+    :func:`replicated_data`) are read instead of drawing; they fix ``seed`` and ``draws``.
 
     Example
     -------
     >>> t = pearson_draws(m, seed=1)                                   # doctest: +SKIP
     >>> (t["replicated"] >= t["observed"]).mean()                      # doctest: +SKIP
     """
-    fam = _family(fitted)
-    rng = options.rng(seed)
-    index = _draw_index(fitted, draws)
-    S = _n_used(fitted, index)
-    rows = fitted_rows(fitted)
-    y = fitted.design.y.astype(np.float64)
-    observed, replicated = np.zeros(S), np.zeros(S)
-    # mean, variance, the replicate and a few (draws, rows) temporaries per row
-    for sl in _chunks(rows.n, S, 10, max_floats):
-        lp = _predictors(fitted, rows, sl, index)
-        shape = lp.counts.shape
-        mean = np.broadcast_to(fam.mean(lp.counts, lp.zeros, lp.log_alpha), shape)
-        var = np.broadcast_to(fam.variance(lp.counts, lp.zeros, lp.log_alpha), shape)
-        y_rep = fam.random(rng, lp.counts, lp.zeros, lp.log_alpha).astype(np.float64)
-        observed += ((y[sl][None, :] - mean) ** 2 / var).sum(axis=1)
-        replicated += ((y_rep - mean) ** 2 / var).sum(axis=1)
+    if replicates is None:
+        rep = _replicate(fitted, draws, seed, pearson=True, max_floats=max_floats)
+    else:
+        rep = _drawn(replicates, fitted, draws, "pearson")
+        seed = rep.seed
+    observed, replicated = rep.pearson
     out = pd.DataFrame({"observed": observed, "replicated": replicated})
-    out.attrs.update(records=int(rows.n), family=fitted.spec.family, seed=seed,
+    out.attrs.update(records=int(rep.records), family=fitted.spec.family, seed=seed,
                      **{"residual df": residual_df(fitted)})
     return out
 
 
 def pearson_check(fitted: FitRecord, interval: float = 0.9, draws: int | None = None,
-                  seed: options.Seed = 0, flag: float = FLAG) -> pd.DataFrame:
+                  seed: options.Seed = 0, flag: float = FLAG, *,
+                  replicates: Replicates | None = None) -> pd.DataFrame:
     """The Pearson statistic of the data against replicated data, draw by draw.
 
     Two rows: ``Pearson statistic`` (T of :func:`pearson_draws`) and ``per residual df``
@@ -772,7 +896,8 @@ def pearson_check(fitted: FitRecord, interval: float = 0.9, draws: int | None = 
     model predicts"; above 1 - ``flag``: "less spread ..."). ``attrs`` has ``residual df``.
 
     Unlike the classical ratio, the tail probability needs no reference distribution and
-    works the same for every family, zero-inflated and hurdle included.
+    works the same for every family, zero-inflated and hurdle included. ``replicates`` as
+    :func:`pearson_draws`.
 
     Example
     -------
@@ -781,7 +906,8 @@ def pearson_check(fitted: FitRecord, interval: float = 0.9, draws: int | None = 
     flag = _check_flag(flag)
     iv = options.interval_bounds(interval)
     lo_name, hi_name = iv.names
-    t = pearson_draws(fitted, draws, seed)
+    t = pearson_draws(fitted, draws, seed, replicates=replicates)
+    seed = t.attrs["seed"]
     dof = t.attrs["residual df"]
     # draw by draw: the share of replicated T above the observed T at the same draw
     tail = tail_probability(t["replicated"].to_numpy() - t["observed"].to_numpy(), 0.0)

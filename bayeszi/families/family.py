@@ -36,6 +36,9 @@ __all__ = ["FAMILY_NAMES", "Family", "get_family", "FAMILY_PARTS"]
 
 #: pmf_table restarts its ratio recurrence from the exact log-pmf every this many k.
 REANCHOR = 32
+#: pmf_table steps on the natural scale (multiplications, no exp per k) when every
+#: log P(Y = 1) / f(1) * f(0) is above this, so nothing it steps from underflows
+LINEAR_FLOOR = -700.0
 
 
 def _f64(x: Any, what: str, family: str) -> np.ndarray:
@@ -318,8 +321,12 @@ class Family:
         """P(Y = k) for k = 0..kmax, as an array of shape (broadcast shape, kmax + 1).
 
         Uses the kernel's ratio recurrence f(k+1)/f(k) = mu/(k+1) (Poisson) or
-        (k + theta)/(k + 1) * alpha mu/(1 + alpha mu) (NB) on the log scale, restarted from the
-        exact log f(k) every 32 steps so that rounding cannot build up for large kmax.
+        (k + theta)/(k + 1) * alpha mu/(1 + alpha mu) (NB), restarted from the exact log f(k)
+        every 32 steps so that rounding cannot build up for large kmax. The recurrence runs
+        on the natural scale (two multiplications per k) when the starting values are far
+        from underflow (log above :data:`LINEAR_FLOOR`; the count laws are unimodal, so a
+        value that underflows later lies in the falling tail, below 1e-300) and the NB's
+        theta is at most 1e4; else on the log scale (an ``exp`` per k).
 
         Example
         -------
@@ -342,14 +349,26 @@ class Family:
         if kmax == 0:
             return out.reshape(final_shape)
         log_scale = self.mechanism.log_scale(eta_z, log1m_f0)  # P(Y = k) / f(k), k >= 1
-        advance = self.kernel.pmf_stepper(eta_c, la)
-        log_fk = np.array(np.broadcast_to(log_f0, shape), dtype=np.float64)
+        log_fk = np.array(np.broadcast_to(log_f0 + log_scale, shape), dtype=np.float64)
+        linear = bool(np.all(log_fk > LINEAR_FLOOR)) and (
+            not self.kernel.has_dispersion or bool(np.all(la > nx.LOG_ALPHA_STIRLING)))
+        if linear:
+            advance = self.kernel.pmf_multiplier(eta_c, la)
+            fk = np.exp(log_fk)
+        else:
+            advance = self.kernel.pmf_stepper(eta_c, la)
+            fk = log_fk
         for k in range(kmax):
             if (k + 1) % REANCHOR == 0:  # exact value now and then: no drift over many k
-                log_fk[...] = self.kernel.logf(float(k + 1), eta_c, la)
+                np.add(self.kernel.logf(float(k + 1), eta_c, la), log_scale, out=fk)
+                if linear:
+                    np.exp(fk, out=fk)
             else:
-                advance(log_fk, k)
-            np.exp(log_fk + log_scale, out=buf[k + 1])
+                advance(fk, k)
+            if linear:
+                buf[k + 1] = fk
+            else:
+                np.exp(fk, out=buf[k + 1])
         return out.reshape(final_shape)
 
 

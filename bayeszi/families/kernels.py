@@ -86,7 +86,8 @@ class CountKernel:
     """What the two kernels share: derived pieces built on each one's own formulas.
 
     Subclasses define ``logf``, ``neg_logf0``, ``log_neg_logf0_at``, ``alpha``,
-    ``mean_minus_q``, ``tail``, ``pmf_stepper``, ``draw``, ``draw_positive`` and the PyTensor
+    ``mean_minus_q``, ``tail``, ``pmf_stepper``, ``pmf_multiplier``, ``draw``,
+    ``draw_positive`` and the PyTensor
     ``pt_dispersion``, ``pt_logf0``, ``pt_logf`` and ``pt_log1m_f0`` (which take the
     dispersion as ``pt_dispersion`` gives it).
     """
@@ -193,6 +194,17 @@ class PoissonKernel(CountKernel):
         def advance(log_fk: np.ndarray, k: int) -> None:
             log_fk += step
             log_fk -= math.log(k + 1.0)
+
+        return advance
+
+    def pmf_multiplier(self, eta_c: np.ndarray, la: Any) -> Callable[[np.ndarray, int], None]:
+        """In-place update of f(k) to f(k + 1) on the natural scale: ``* mu / (k + 1)``
+        (two multiplications instead of an ``exp`` per k; see ``Family.pmf_table``)."""
+        mu = np.exp(eta_c)
+
+        def advance(fk: np.ndarray, k: int) -> None:
+            fk *= mu
+            fk *= 1.0 / (k + 1.0)
 
         return advance
 
@@ -331,6 +343,20 @@ class NegBinKernel(CountKernel):
             log_fk -= math.log(k + 1.0)
             if k > 0:
                 log_fk += np.log1p(alpha * k)
+
+        return advance
+
+    def pmf_multiplier(self, eta_c: np.ndarray, la: np.ndarray
+                       ) -> Callable[[np.ndarray, int], None]:
+        """In-place update of f(k) to f(k + 1) on the natural scale:
+        ``* alpha mu / (1 + alpha mu) * (k + theta) / (k + 1)`` (for theta <= 1e4, where
+        ``Family.pmf_table`` uses it)."""
+        q = sc.expit(eta_c + la)  # alpha mu / (1 + alpha mu)
+        theta = np.exp(-la)
+
+        def advance(fk: np.ndarray, k: int) -> None:
+            fk *= q
+            fk *= (k + theta) / (k + 1.0)
 
         return advance
 

@@ -4,8 +4,10 @@
 everything came from). :func:`build_context` turns it into a :class:`ReportContext`: the
 input plus every answer that more than one section reads, computed once per report: the
 PSIS-LOO estimate of each model, the LOO comparison table, the preferred model (and why),
-each model's coefficient table and sampler problems. Sections read the context and compute
-only what is theirs alone; warnings raised on the way are collected in ``context.warnings``.
+each model's coefficient table and sampler problems; and, drawn when a section first asks
+(:meth:`ReportContext.replicated`), one set of data sets replicated from each model that every
+check reads. Sections read the context and compute only what is theirs alone; warnings raised
+on the way are collected in ``context.warnings``.
 
 Example
 -------
@@ -24,6 +26,7 @@ from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
+from bayeszi.answers.checks import Replicates, replicated_data
 from bayeszi.answers.comparison import WEIGHT, LooEstimate, loo, rank_models
 
 if TYPE_CHECKING:
@@ -116,7 +119,8 @@ class ReportContext:
     ``loo`` holds each model's PSIS-LOO estimate; ``comparison`` the LOO comparison table
     (None with one model); ``coefficients`` and ``problems`` each model's coefficient table
     (at the report's interval) and sampler problems; ``preferred`` the model the reading and
-    the per-model figures are about, and ``preferred_reason`` why.
+    the per-model figures are about, and ``preferred_reason`` why; ``replicates`` the data
+    sets replicated from each model so far (see :meth:`replicated`).
 
     Example
     -------
@@ -132,6 +136,7 @@ class ReportContext:
     preferred_reason: str
     coefficients: dict[str, pd.DataFrame]
     problems: dict[str, list[str]]
+    replicates: dict[str, Replicates] = field(default_factory=dict)
 
     @property
     def fits(self) -> Mapping[str, FittedModel]:
@@ -158,6 +163,25 @@ class ReportContext:
     def caught(self, where: str, fn: Callable[..., Any], *args: Any, **kwargs: Any) -> Any:
         """Call ``fn`` recording its warnings under ``where`` (see :class:`WarningLog`)."""
         return self.log.caught(where, fn, *args, **kwargs)
+
+    @property
+    def seed(self) -> int:
+        """The seed of every random draw of the report (the study's, else 0)."""
+        return self.inp.seed or 0
+
+    def replicated(self, name: str) -> Replicates:
+        """Data sets replicated from model ``name``, one per posterior draw, drawn on the first
+        call (:func:`~bayeszi.answers.checks.replicated_data` with the report's seed) and read
+        by every check after: zero shares, spread, rootograms, the Pearson statistic.
+
+        Example
+        -------
+        >>> zero_check(ctx.fits["zinb"], replicates=ctx.replicated("zinb"))  # doctest: +SKIP
+        """
+        if name not in self.replicates:
+            self.replicates[name] = self.caught(
+                f"replicated data of {name}", replicated_data, self.fits[name], seed=self.seed)
+        return self.replicates[name]
 
 
 def plain(frame: pd.DataFrame) -> pd.DataFrame:

@@ -25,6 +25,7 @@ from __future__ import annotations
 import io
 import re
 from collections.abc import Sequence
+from typing import Any
 
 from bayeszi.app.report.document import Document, render_html
 from bayeszi.app.report.output import OutputFolder
@@ -43,17 +44,20 @@ def slug(name: str) -> str:
 
 
 def figure_bytes(figure, fmt: str, dpi: int = 110) -> bytes:
-    """The figure rendered as ``png`` or ``svg`` bytes."""
+    """The figure rendered as ``png`` or ``svg`` bytes, drawn once: every report figure lays
+    itself out (constrained layout or ``tight_layout``), so no tight bounding box is asked
+    for (it would draw the figure, and rerun its layout, a second time)."""
     buf = io.BytesIO()
     meta = {"Software": None} if fmt == "png" else {"Date": None}
-    figure.savefig(buf, format=fmt, dpi=dpi, bbox_inches="tight", metadata=meta)
+    figure.savefig(buf, format=fmt, dpi=dpi, metadata=meta)
     return buf.getvalue()
 
 
 def write_document(doc: Document, out: OutputFolder, footer: Sequence[str] = (),
-                   vector: bool = False) -> list[str]:
+                   vector: bool = False, rendered: Any = None) -> list[str]:
     """Write tables, figures (PNG; SVG too when ``vector``) and the page into ``out``;
-    returns the relative file names."""
+    returns the relative file names. ``rendered`` (a
+    :class:`~bayeszi.app.report.render.PngRenderer`) gives PNGs already drawn."""
     import matplotlib.pyplot as plt
 
     files: list[str] = []
@@ -70,7 +74,7 @@ def write_document(doc: Document, out: OutputFolder, footer: Sequence[str] = (),
         name = slug(f.name)
         if name in images:
             raise ValueError(f"two report figures share the file name {name!r}")
-        png = figure_bytes(f.figure, "png")
+        png = figure_bytes(f.figure, "png") if rendered is None else rendered.png(f.figure)
         images[f.name] = png
         files.append(out.write_bytes(f"figures/{name}.png", png))
         if vector:

@@ -32,7 +32,7 @@ def section_rootograms(ctx: ReportContext) -> Section:
     blocks: list = [Text(INTRO)]
     for name, f in ctx.fits.items():
         raw = ctx.caught(f"rootogram of {name}", count_frequencies, f,
-                         interval=ctx.inp.interval, seed=ctx.inp.seed or 0)
+                         interval=ctx.inp.interval, replicates=ctx.replicated(name))
         blocks += table_blocks(f"count_frequencies_{name}", plain(raw),
                                f"Model {name}: observed and expected number of records per "
                                "count, and the number in replicated data sets", index=True,

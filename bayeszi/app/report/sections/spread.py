@@ -31,16 +31,15 @@ PEARSON = ("The Pearson statistic, the sum over records of (y - E[y])^2 / Var[y]
 
 def section_spread(ctx: ReportContext) -> Section:
     """Mean, variance, variance-to-mean ratio and largest count against replicated data."""
-    seed = ctx.inp.seed or 0
     frames, figs = [], []
     for name, f in ctx.fits.items():
         reps = ctx.caught(f"replicated statistics of {name}", replicated_statistics, f,
-                          seed=seed)
+                          replicates=ctx.replicated(name))
         figs.append(Figure(f"statistics_{name}", statistics_figure(reps),
                            f"Model {name}: zero share, variance-to-mean ratio and largest "
                            "count of replicated data sets, with the observed values."))
-        # one set of replicates per model for the figure and both checks (same numbers as
-        # dispersion_check and max_count_check with this seed, drawn once)
+        # the report's one set of replicates per model, for the figure and both checks (the
+        # numbers of dispersion_check and max_count_check with the report's seed)
         for stats in (["mean", "variance", "variance / mean"], ["maximum"]):
             t = plain(ctx.caught(f"spread check of {name}", statistics_check, reps, stats,
                                  interval=ctx.inp.interval)).reset_index()
@@ -50,15 +49,15 @@ def section_spread(ctx: ReportContext) -> Section:
         Text(INTRO),
         Table("spread_check", pd.concat(frames, ignore_index=True),
               "Mean, variance, variance / mean and maximum", flag_column="verdict",
-              ok_values=OK_VERDICT), *figs, Text(PEARSON), _pearson_table(ctx, seed)])
+              ok_values=OK_VERDICT), *figs, Text(PEARSON), _pearson_table(ctx)])
 
 
-def _pearson_table(ctx: ReportContext, seed: int) -> Table:
+def _pearson_table(ctx: ReportContext) -> Table:
     """:func:`pearson_check` of every model in one table, with the residual df."""
     frames = []
     for name, f in ctx.fits.items():
         check = ctx.caught(f"Pearson check of {name}", pearson_check, f,
-                           interval=ctx.inp.interval, seed=seed)
+                           interval=ctx.inp.interval, replicates=ctx.replicated(name))
         t = plain(check).reset_index()
         t.insert(0, "model", name)
         t.insert(2, "residual df", check.attrs["residual df"])

@@ -27,8 +27,8 @@ def section_zero_checks(ctx: ReportContext) -> Section:
     """Observed share of zeros against replicated data, per model and per group."""
     overall, by_group, figs = [], [], []
     for name, f in ctx.fits.items():
-        raw = ctx.caught(f"zero check of {name}", zero_check, f,
-                         interval=ctx.inp.interval, seed=ctx.inp.seed or 0)
+        raw = ctx.caught(f"zero check of {name}", zero_check, f, interval=ctx.inp.interval,
+                         replicates=ctx.replicated(name))
         t = plain(raw)
         t.insert(0, "model", name)
         overall.append(t.iloc[:1])
