@@ -334,6 +334,9 @@ def dask_cluster(tmp_path):
                 p.wait(timeout=20)
 
 
+# slow: about 95 s on 2 cores (the default run stays under CI's 20 minutes); the cluster
+# itself is tested in the default run by the example-equals-direct-fits test
+@pytest.mark.slow
 def test_scheduler_and_workers_survive_a_killed_worker(tmp_path, dask_cluster):
     from distributed import Client
 
