@@ -41,13 +41,13 @@ from bayeszi.model.diagnostics import Diagnostics, diagnose, passes
 from bayeszi.model.enough import STOP_ENOUGH, STOP_FIXED, STOP_LIMIT, BlockPlan, sample_until_enough
 from bayeszi.model.enough_nutpie import nutpie_until_enough
 from bayeszi.model.priors import resolve
-from bayeszi.model.progress import SamplingProgress
 from bayeszi.model.reuse import attach_active
 from bayeszi.model.sample import (
     chain_cores,
     choose_sampler,
     fit_work,
     nutpie_version,
+    progress_display,
     run_nuts,
     show_progress,
 )
@@ -108,14 +108,6 @@ def _enough_judge(design: Design):
     return judge
 
 
-def _blocks_display(settings: SamplerSettings) -> SamplingProgress | None:
-    """The progress line of PyMC's NUTS in blocks (told after warm-up and each block)."""
-    if not show_progress(settings):
-        return None
-    return SamplingProgress((settings.warmup_steps + settings.draws_limit) * settings.chains,
-                            f"PyMC's NUTS, {settings.chains} chain(s), until enough")
-
-
 def _draw(model: pm.Model, settings: SamplerSettings, rows: int, judge) -> az.InferenceData:
     """Fixed draws through :func:`run_nuts`, or blocks until enough; the sample_stats attrs
     say how many draws per chain were taken and why sampling stopped."""
@@ -129,7 +121,8 @@ def _draw(model: pm.Model, settings: SamplerSettings, rows: int, judge) -> az.In
         idata, stop = run.idata, run.stop
         idata.sample_stats.attrs["bayeszi_sampler"] = f"nutpie-{nutpie_version()}-blocks"
     else:
-        display = _blocks_display(settings)
+        display = progress_display(settings, show_progress(settings),
+                                   "PyMC's NUTS, until enough")
         run = sample_until_enough(
             model, chains=settings.chains, warmup_steps=settings.warmup_steps,
             plan=BlockPlan(settings.block_draws, settings.draws_limit),

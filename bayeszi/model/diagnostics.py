@@ -62,11 +62,24 @@ def passes(idata: az.InferenceData, thresholds: Thresholds | None = None) -> boo
     for chunk in ([n for n in names if size[n] <= 100], [n for n in names if size[n] > 100]):
         if not chunk:
             continue
-        t = diagnostics_table(idata.posterior, chunk)
-        if (t["r_hat"] > th.rhat).any() or (t["ess_bulk"] < th.ess).any() \
-                or (t["ess_tail"] < th.ess).any():
+        summ = _named(diagnostics_table(idata.posterior, chunk))
+        if _too_high_rhat(summ, th).any() or _too_low_ess(summ, th).any():
             return False
     return True
+
+
+def _named(table: pd.DataFrame) -> pd.DataFrame:
+    """The table of :func:`diagnostics_table` under bayeszi's column names."""
+    return table[["r_hat", "ess_bulk", "ess_tail"]].set_axis(
+        list(var_names.DIAGNOSTIC_COLUMNS), axis=1)
+
+
+def _too_high_rhat(summ: pd.DataFrame, th: Thresholds) -> pd.Series:
+    return summ[var_names.RHAT] > th.rhat
+
+
+def _too_low_ess(summ: pd.DataFrame, th: Thresholds) -> pd.Series:
+    return (summ[var_names.BULK_ESS] < th.ess) | (summ[var_names.TAIL_ESS] < th.ess)
 
 
 @dataclass(frozen=True)
@@ -135,9 +148,7 @@ def diagnose(idata: az.InferenceData, thresholds: Thresholds | None = None) -> D
     names = parameter_names(idata)
     chains = int(idata.posterior.sizes["chain"])
     # ArviZ's algorithms for all parameters at once (az.summary loops over scalars)
-    summ = diagnostics_table(idata.posterior, names)
-    summ = summ[["r_hat", "ess_bulk", "ess_tail"]].set_axis(
-        list(var_names.DIAGNOSTIC_COLUMNS), axis=1)
+    summ = _named(diagnostics_table(idata.posterior, names))
     if chains < 2:
         summ[var_names.RHAT] = np.nan
     tree = idata.sample_stats.get("reached_max_treedepth")
@@ -146,9 +157,8 @@ def diagnose(idata: az.InferenceData, thresholds: Thresholds | None = None) -> D
         divergences=int(np.asarray(idata.sample_stats["diverging"]).sum()),
         draws=int(idata.posterior.sizes["chain"] * idata.posterior.sizes["draw"]),
         chains=chains,
-        bad_rhat=summ.index[summ[var_names.RHAT] > th.rhat].tolist(),
-        bad_ess=summ.index[(summ[var_names.BULK_ESS] < th.ess)
-                           | (summ[var_names.TAIL_ESS] < th.ess)].tolist(),
+        bad_rhat=summ.index[_too_high_rhat(summ, th)].tolist(),
+        bad_ess=summ.index[_too_low_ess(summ, th)].tolist(),
         max_treedepth_hits=int(np.asarray(tree).sum()) if tree is not None else 0,
         thresholds=th,
     )

@@ -34,6 +34,7 @@ import arviz as az
 import numpy as np
 import pymc as pm
 
+from bayeszi.base.errors import BayesziError
 from bayeszi.base.spec import SamplerSettings
 from bayeszi.model.enough import STOP_ENOUGH, STOP_FIXED, STOP_LIMIT, BlockPlan, BlockRun
 from bayeszi.model.progress import SamplingProgress
@@ -43,6 +44,8 @@ from bayeszi.model.sample import (
     as_pymc_idata,
     chain_cores,
     compile_nutpie,
+    nutpie_version,
+    progress_display,
     start_nutpie,
 )
 
@@ -111,14 +114,6 @@ def _judge_blocks(sampler, plan: BlockPlan, judged: int, judge, seconds: dict[st
     return _judge_from(idata, _drawn_per_chain(idata), plan, judged, judge, seconds)
 
 
-def _display(settings: SamplerSettings, plan: BlockPlan, progress: bool
-             ) -> SamplingProgress | None:
-    if not progress:
-        return None
-    total = (settings.warmup_steps + plan.limit) * settings.chains
-    return SamplingProgress(total, f"nutpie, {settings.chains} chain(s), until enough")
-
-
 def _finished(sampler) -> bool:
     """Whether the run has ended (nutpie 0.16 answers a busy sampler with a TimeoutError)."""
     try:
@@ -160,12 +155,17 @@ def nutpie_until_enough(model: pm.Model, settings: SamplerSettings, plan: BlockP
     """
     seconds = {"sampling_s": 0.0, "inspect_s": 0.0, "judge_s": 0.0}
     compiled = compile_nutpie(model) if compiled is None else compiled
-    watch = _Watch(settings.chains, _display(settings, plan, progress))
+    watch = _Watch(settings.chains, progress_display(
+        dataclasses.replace(settings, until_enough=True, block_draws=plan.block,
+                            draws_limit=plan.limit), progress, "nutpie, until enough"))
     nuts = _nutpie_settings(dataclasses.replace(settings, draws=plan.limit))
     sampler = start_nutpie(compiled, nuts, chain_cores(settings), watch.feed, _CHAIN_TEMPLATE)
     if sampler is None:
-        raise RuntimeError("this nutpie does not offer the interface draws until enough "
-                           "needs; install nutpie 0.16.x or fix the number of draws")
+        raise BayesziError(
+            f"draws until enough with nutpie needs nutpie 0.16.x, but nutpie "
+            f"{nutpie_version()} is installed; reinstall it with "
+            "'pip install \"nutpie[pymc]>=0.16.8,<0.17\"', or set until_enough=False "
+            "(a fixed number of draws) or sampler='pymc'")
     t0, stop = time.perf_counter(), STOP_LIMIT
     try:
         with _quiet_pymc(), warnings.catch_warnings():

@@ -163,11 +163,17 @@ def _quiet_pymc():
     return quiet()
 
 
-def _progress(settings: SamplerSettings, show: bool, label: str) -> SamplingProgress | None:
-    """bayeszi's progress line for this fit, or None when progress is off."""
+def progress_display(settings: SamplerSettings, show: bool, label: str
+                     ) -> SamplingProgress | None:
+    """bayeszi's progress line for this fit, or None when progress is off: warm-up steps
+    plus the most draws the fit can take (:attr:`SamplerSettings.most_draws`), all chains.
+
+    >>> progress_display(SamplerSettings(), False, "nutpie") is None
+    True
+    """
     if not show:
         return None
-    total = (settings.warmup_steps + settings.draws) * settings.chains
+    total = (settings.warmup_steps + settings.most_draws) * settings.chains
     return SamplingProgress(total, f"{label}, {settings.chains} chain(s)")
 
 
@@ -188,7 +194,7 @@ def _pymc_callback(progress: SamplingProgress | None):
 
 def _sample_pymc(model: pm.Model, settings: SamplerSettings, progress: bool
                  ) -> az.InferenceData:
-    display = _progress(settings, progress, "PyMC's NUTS")
+    display = progress_display(settings, progress, "PyMC's NUTS")
     with model, _quiet_pymc():
         idata = pm.sample(
             draws=settings.draws,
@@ -271,7 +277,7 @@ def _nutpie_draws(compiled, settings: SamplerSettings, progress: bool) -> az.Inf
     """Sample a compiled model with nutpie; all draws or a KeyboardInterrupt."""
     import nutpie
 
-    display = _progress(settings, progress, "nutpie")
+    display = progress_display(settings, progress, "nutpie")
     sampler = _nutpie_with_progress(compiled, settings, display) if display else None
     if sampler is None:
         idata = nutpie.sample(
