@@ -25,7 +25,6 @@ from bayeszi.app.report.context import ReportInput
 from bayeszi.app.report.document import Document
 from bayeszi.app.report.footer import footer_lines
 from bayeszi.app.report.output import OutputFolder
-from bayeszi.app.report.render import PngRenderer
 from bayeszi.app.report.sections import build_document
 from bayeszi.app.report.sections.preview import preview_document
 from bayeszi.app.report.write import REPORT_NAME, slug, write_document
@@ -169,21 +168,18 @@ def run_study(study: Study, out: str, command: str = "", progress: Progress = _q
 def _finish(inp: ReportInput, folder: OutputFolder, progress: Progress,
             vector: bool = False) -> str:
     progress("building the report ...")
-    # figures are drawn in a second thread while the later sections are computed
-    with PngRenderer() as png:
-        with refit_advice(REFIT_ADVICE):
-            doc, footer, warned = build_document(inp, progress=lambda s: progress(f"  {s}"),
-                                                 renderer=png)
-        for w in warned:
-            progress(f"      warning: {' '.join(w.split())}")
-        return _write(doc, footer, folder, progress, vector, png)
+    with refit_advice(REFIT_ADVICE):
+        doc, footer, warned = build_document(inp, progress=lambda s: progress(f"  {s}"))
+    for w in warned:
+        progress(f"      warning: {' '.join(w.split())}")
+    return _write(doc, footer, folder, progress, vector)
 
 
 def _write(doc: Document, footer: Sequence[str], folder: OutputFolder, progress: Progress,
-           vector: bool = False, rendered: PngRenderer | None = None) -> str:
-    """Write ``doc`` into ``folder`` (SVG figures too when ``vector``; PNGs from ``rendered``
-    where drawn already), move it into place and return where it went."""
-    files = write_document(doc, folder, footer, vector=vector, rendered=rendered)
+           vector: bool = False) -> str:
+    """Write ``doc`` into ``folder`` (SVG figures too when ``vector``), move it into place
+    and return where it went."""
+    files = write_document(doc, folder, footer, vector=vector)
     dest = folder.commit()
     progress(f"report written: {os.path.join(dest, REPORT_NAME)} ({len(files)} files)")
     return dest

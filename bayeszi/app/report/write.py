@@ -25,7 +25,6 @@ from __future__ import annotations
 import io
 import re
 from collections.abc import Sequence
-from typing import Any
 
 from bayeszi.app.report.document import Document, render_html
 from bayeszi.app.report.output import OutputFolder
@@ -54,10 +53,9 @@ def figure_bytes(figure, fmt: str, dpi: int = 110) -> bytes:
 
 
 def write_document(doc: Document, out: OutputFolder, footer: Sequence[str] = (),
-                   vector: bool = False, rendered: Any = None) -> list[str]:
+                   vector: bool = False) -> list[str]:
     """Write tables, figures (PNG; SVG too when ``vector``) and the page into ``out``;
-    returns the relative file names. ``rendered`` (a
-    :class:`~bayeszi.app.report.render.PngRenderer`) gives PNGs already drawn."""
+    returns the relative file names."""
     import matplotlib.pyplot as plt
 
     files: list[str] = []
@@ -74,7 +72,7 @@ def write_document(doc: Document, out: OutputFolder, footer: Sequence[str] = (),
         name = slug(f.name)
         if name in images:
             raise ValueError(f"two report figures share the file name {name!r}")
-        png = figure_bytes(f.figure, "png") if rendered is None else rendered.png(f.figure)
+        png = figure_bytes(f.figure, "png")
         images[f.name] = png
         files.append(out.write_bytes(f"figures/{name}.png", png))
         if vector:

@@ -23,7 +23,6 @@ Example
 from __future__ import annotations
 
 from collections.abc import Callable
-from typing import TYPE_CHECKING
 
 from bayeszi.app.report.context import ReportContext, ReportInput, build_context
 from bayeszi.app.report.document import Document, Section, Text
@@ -45,9 +44,6 @@ from bayeszi.app.report.sections.spread import section_spread
 from bayeszi.app.report.sections.zero_checks import section_zero_checks
 from bayeszi.app.report.sections.zero_sources import section_zero_sources
 
-if TYPE_CHECKING:
-    from bayeszi.app.report.render import PngRenderer
-
 SectionFn = Callable[[ReportContext], Section | None]
 
 #: The sections in page order.
@@ -59,11 +55,9 @@ SECTIONS: tuple[SectionFn, ...] = (
 )
 
 
-def build_document(inp: ReportInput, progress: Callable[[str], None] | None = None,
-                   renderer: PngRenderer | None = None
+def build_document(inp: ReportInput, progress: Callable[[str], None] | None = None
                    ) -> tuple[Document, list[str], list[str]]:
-    """Compute the context and every section; returns (document, footer lines, warnings).
-    Each section's figures go to ``renderer`` as soon as the section is built."""
+    """Compute the context and every section; returns (document, footer lines, warnings)."""
     say = progress or (lambda _: None)
     say("LOO and the answers the sections share")
     ctx = build_context(inp)
@@ -73,8 +67,6 @@ def build_document(inp: ReportInput, progress: Callable[[str], None] | None = No
         section = fn(ctx)
         if section is not None:
             sections.append(section)
-            if renderer is not None:
-                renderer.submit(section.blocks)
     doc = Document(inp.title, inp.summary, sections)
     if ctx.warnings:
         doc.section("diagnostics").blocks += [Text(w, "warning") for w in ctx.warnings]
