@@ -26,8 +26,9 @@ from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
-from bayeszi.answers.checks import Replicates, replicated_data
+from bayeszi.answers.checks import Replicates, count_frequencies, replicated_data, residuals
 from bayeszi.answers.comparison import WEIGHT, LooEstimate, loo, rank_models
+from bayeszi.app.report.ahead import Task, WorkAhead
 
 if TYPE_CHECKING:
     from bayeszi.app.study import Contrast, Scenario
@@ -137,6 +138,7 @@ class ReportContext:
     coefficients: dict[str, pd.DataFrame]
     problems: dict[str, list[str]]
     replicates: dict[str, Replicates] = field(default_factory=dict)
+    ahead: WorkAhead | None = None
 
     @property
     def fits(self) -> Mapping[str, FittedModel]:
@@ -179,9 +181,42 @@ class ReportContext:
         >>> zero_check(ctx.fits["zinb"], replicates=ctx.replicated("zinb"))  # doctest: +SKIP
         """
         if name not in self.replicates:
-            self.replicates[name] = self.caught(
-                f"replicated data of {name}", replicated_data, self.fits[name], seed=self.seed)
+            self.replicates[name] = self.shared(
+                ("replicated", name), f"replicated data of {name}",
+                lambda: replicated_data(self.fits[name], seed=self.seed))
         return self.replicates[name]
+
+    def shared(self, key: tuple[str, str], where: str, compute: Callable[[], Any]) -> Any:
+        """The answer ``compute()``, taken from the work done ahead under ``key`` when a
+        worker computed it (:mod:`bayeszi.app.report.ahead`), else computed here; its
+        warnings are recorded under ``where`` either way.
+
+        Example
+        -------
+        >>> ctx.shared(("residuals", "zinb"), "residuals of zinb",
+        ...            lambda: residuals(ctx.fits["zinb"], seed=ctx.seed))  # doctest: +SKIP
+        """
+        if self.ahead is None:
+            return self.caught(where, compute)
+        return self.caught(where, self.ahead.take(key, compute).replay)
+
+    def residuals(self, name: str) -> pd.DataFrame:
+        """The randomized quantile residuals of model ``name`` at the report's seed."""
+        return self.shared(("residuals", name), f"residuals of {name}",
+                           lambda: residuals(self.fits[name], seed=self.seed))
+
+    def count_frequencies(self, name: str) -> pd.DataFrame:
+        """Observed, expected and replicated records per count of model ``name`` (the
+        rootogram's table), from :meth:`replicated`."""
+        return self.shared(("rootogram", name), f"rootogram of {name}",
+                           lambda: count_frequencies(self.fits[name],
+                                                     interval=self.inp.interval,
+                                                     replicates=self.replicated(name)))
+
+    def close(self) -> None:
+        """Stop the workers of the work done ahead, if any are still running."""
+        if self.ahead is not None:
+            self.ahead.close()
 
 
 def plain(frame: pd.DataFrame) -> pd.DataFrame:
@@ -232,17 +267,51 @@ def choose_preferred(inp: ReportInput, comparison: pd.DataFrame | None) -> tuple
     return names[0], "it is listed first in the study (no LOO comparison was available)."
 
 
-def build_context(inp: ReportInput) -> ReportContext:
-    """Compute the answers several sections share, once each (see :class:`ReportContext`)."""
-    log = WarningLog()
-    ests, comparison = loo_answers(inp.fits, log, inp.exact_refits)
-    preferred, reason = choose_preferred(inp, comparison)
-    return ReportContext(
-        inp=inp, log=log, loo=ests, comparison=comparison, preferred=preferred,
-        preferred_reason=reason,
-        coefficients={n: f.coefficients(interval=inp.interval) for n, f in inp.fits.items()},
-        problems={n: f.sampler_problems() for n, f in inp.fits.items()})
+def plan_ahead(inp: ReportInput) -> list[list[Task]]:
+    """The report's work that workers can do ahead (:mod:`bayeszi.app.report.ahead`), in two
+    lanes of about equal cost: the replicated data sets of every model, then their
+    rootogram tables; and every model's residuals, last model first (the report, when it
+    gets there, computes the first ones itself if no worker has begun them). Each task is
+    exactly the call :class:`ReportContext` makes when a section needs it.
+
+    >>> [len(lane) for lane in plan_ahead(ReportInput("t", {"a": m, "b": m}, df))]
+    ...                                                                # doctest: +SKIP
+    [4, 2]
+    """
+    seed = inp.seed or 0
+    replicates: list[Task] = []
+    rootograms: list[Task] = []
+    resid: list[Task] = []
+    for name, f in inp.fits.items():
+        replicates.append((("replicated", name),
+                           lambda done, f=f: replicated_data(f, seed=seed)))
+        rootograms.append((("rootogram", name),
+                           lambda done, f=f, name=name: count_frequencies(
+                               f, interval=inp.interval,
+                               replicates=done[("replicated", name)])))
+        resid.append((("residuals", name), lambda done, f=f: residuals(f, seed=seed)))
+    return [replicates + rootograms, resid[::-1]]
+
+
+def build_context(inp: ReportInput, ahead: bool = True) -> ReportContext:
+    """Compute the answers several sections share, once each (see :class:`ReportContext`);
+    with ``ahead``, workers start on the heaviest answers at once (see :func:`plan_ahead`)."""
+    work = WorkAhead(plan_ahead(inp)) if ahead else None
+    try:
+        log = WarningLog()
+        ests, comparison = loo_answers(inp.fits, log, inp.exact_refits)
+        preferred, reason = choose_preferred(inp, comparison)
+        return ReportContext(
+            inp=inp, log=log, loo=ests, comparison=comparison, preferred=preferred,
+            preferred_reason=reason,
+            coefficients={n: f.coefficients(interval=inp.interval)
+                          for n, f in inp.fits.items()},
+            problems={n: f.sampler_problems() for n, f in inp.fits.items()}, ahead=work)
+    except BaseException:
+        if work is not None:
+            work.close()
+        raise
 
 
 __all__ = ["REDUNDANT", "ReportContext", "ReportInput", "WarningLog", "build_context",
-           "choose_preferred", "loo_answers", "plain"]
+           "choose_preferred", "loo_answers", "plain", "plan_ahead"]

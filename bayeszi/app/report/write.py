@@ -3,7 +3,9 @@
 The folder gets ``report.html`` (self-contained: figures embedded), ``tables/NAME.csv`` for
 every table (full precision) and ``figures/NAME.png`` for every figure, rendered once and
 used for both the page and the file; ``vector=True`` adds ``figures/NAME.svg`` (each SVG
-costs about as much again as its PNG). Everything goes into the temporary folder of an
+costs about as much again as its PNG). Where a second core is free, a forked worker renders
+figures from the last one back while this process renders from the first
+(:mod:`bayeszi.app.report.ahead`). Everything goes into the temporary folder of an
 :class:`~bayeszi.app.report.output.OutputFolder`, which the caller commits.
 
 Example
@@ -26,6 +28,7 @@ import io
 import re
 from collections.abc import Sequence
 
+from bayeszi.app.report.ahead import WorkAhead
 from bayeszi.app.report.document import Document, render_html
 from bayeszi.app.report.output import OutputFolder
 
@@ -68,15 +71,25 @@ def write_document(doc: Document, out: OutputFolder, footer: Sequence[str] = (),
         frame = t.frame.reset_index() if t.index else t.frame
         files.append(out.write_text(f"tables/{name}.csv", frame.to_csv(index=False)))
     images: dict[str, bytes] = {}
-    for f in doc.figures():
-        name = slug(f.name)
-        if name in images:
+    figures = list(doc.figures())
+    names = [slug(f.name) for f in figures]
+    for i, name in enumerate(names):
+        if name in names[:i]:
             raise ValueError(f"two report figures share the file name {name!r}")
-        png = figure_bytes(f.figure, "png")
-        images[f.name] = png
-        files.append(out.write_bytes(f"figures/{name}.png", png))
-        if vector:
-            files.append(out.write_bytes(f"figures/{name}.svg", figure_bytes(f.figure, "svg")))
-        plt.close(f.figure)
+    formats = ("png", "svg") if vector else ("png",)
+
+    def render(i: int) -> dict[str, bytes]:
+        return {fmt: figure_bytes(figures[i].figure, fmt) for fmt in formats}
+
+    # a worker renders from the last figure back while this process renders from the first
+    # (each figure once, by whoever reaches it first; the same bytes either way)
+    lane = [(i, lambda done, i=i: render(i)) for i in reversed(range(len(figures)))]
+    with WorkAhead([lane] if len(figures) > 1 else []) as work:
+        for i, (f, name) in enumerate(zip(figures, names, strict=True)):
+            rendered = work.take(i, lambda i=i: render(i)).replay()
+            images[f.name] = rendered["png"]
+            for fmt in formats:
+                files.append(out.write_bytes(f"figures/{name}.{fmt}", rendered[fmt]))
+            plt.close(f.figure)
     files.append(out.write_text(REPORT_NAME, render_html(doc, images, footer)))
     return files

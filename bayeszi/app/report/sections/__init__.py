@@ -55,18 +55,23 @@ SECTIONS: tuple[SectionFn, ...] = (
 )
 
 
-def build_document(inp: ReportInput, progress: Callable[[str], None] | None = None
-                   ) -> tuple[Document, list[str], list[str]]:
-    """Compute the context and every section; returns (document, footer lines, warnings)."""
+def build_document(inp: ReportInput, progress: Callable[[str], None] | None = None,
+                   ahead: bool = True) -> tuple[Document, list[str], list[str]]:
+    """Compute the context and every section; returns (document, footer lines, warnings).
+    ``ahead``: let worker processes compute the heaviest answers meanwhile (same results;
+    see :mod:`bayeszi.app.report.ahead`)."""
     say = progress or (lambda _: None)
     say("LOO and the answers the sections share")
-    ctx = build_context(inp)
+    ctx = build_context(inp, ahead=ahead)
     sections: list[Section] = []
-    for fn in SECTIONS:
-        say(fn.__name__.removeprefix("section_").replace("_", " "))
-        section = fn(ctx)
-        if section is not None:
-            sections.append(section)
+    try:
+        for fn in SECTIONS:
+            say(fn.__name__.removeprefix("section_").replace("_", " "))
+            section = fn(ctx)
+            if section is not None:
+                sections.append(section)
+    finally:
+        ctx.close()
     doc = Document(inp.title, inp.summary, sections)
     if ctx.warnings:
         doc.section("diagnostics").blocks += [Text(w, "warning") for w in ctx.warnings]

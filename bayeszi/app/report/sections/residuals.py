@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import pandas as pd
 
-from bayeszi.answers.checks import residuals
 from bayeszi.answers.residual_checks import BAND_LEVEL, residual_statistics
 from bayeszi.app.report.context import ReportContext
 from bayeszi.app.report.document import Figure, Section, Table, Text
@@ -55,8 +54,8 @@ def section_residuals(ctx: ReportContext) -> Section:
     """Randomized quantile residuals: a summary per model, the figure of the preferred one."""
     rows, figs = [], []
     against = ctx.inp.residuals_against
-    for name, f in ctx.fits.items():
-        res = ctx.caught(f"residuals of {name}", residuals, f, seed=ctx.inp.seed or 0)
+    for name in ctx.fits:
+        res = ctx.residuals(name)
         rows.append(_row(name, res))
         if name == ctx.preferred:
             fig = residual_figure(res, against=against, data=ctx.inp.data)

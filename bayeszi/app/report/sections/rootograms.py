@@ -8,7 +8,6 @@ Example
 
 from __future__ import annotations
 
-from bayeszi.answers.checks import count_frequencies
 from bayeszi.app.report.context import ReportContext, plain
 from bayeszi.app.report.document import Figure, Section, Text
 from bayeszi.app.report.sections.common import interval_labels, table_blocks
@@ -30,9 +29,8 @@ def section_rootograms(ctx: ReportContext) -> Section:
     """Observed against expected frequency of each count (hanging rootograms)."""
     lo, hi = interval_labels(ctx.inp.interval)
     blocks: list = [Text(INTRO)]
-    for name, f in ctx.fits.items():
-        raw = ctx.caught(f"rootogram of {name}", count_frequencies, f,
-                         interval=ctx.inp.interval, replicates=ctx.replicated(name))
+    for name in ctx.fits:
+        raw = ctx.count_frequencies(name)
         blocks += table_blocks(f"count_frequencies_{name}", plain(raw),
                                f"Model {name}: observed and expected number of records per "
                                "count, and the number in replicated data sets", index=True,
