@@ -49,6 +49,27 @@ def test_version(capsys):
     assert capsys.readouterr().out.strip() == f"bayeszi {bayeszi.__version__}"
 
 
+def test_the_command_exits_with_mains_code_and_flushes_its_output(tmp_path):
+    """The installed command (``run``) skips the interpreter's teardown: its exit code and
+    everything it printed must still arrive, and exit handlers must still run."""
+    import subprocess
+    import sys
+
+    done = subprocess.run([sys.executable, "-m", "bayeszi.app.cli", "--version"],
+                          capture_output=True, text=True, timeout=120)
+    assert (done.returncode, done.stdout.strip()) == (0, f"bayeszi {bayeszi.__version__}")
+    done = subprocess.run([sys.executable, "-m", "bayeszi.app.cli", "run"],
+                          capture_output=True, text=True, timeout=120)
+    assert done.returncode == 2 and "--out" in one_line_error(done.stderr)
+    marker = tmp_path / "exit-handler-ran"
+    code = ("import atexit, sys; from bayeszi.app import cli; "
+            f"atexit.register(lambda: open({str(marker)!r}, 'w').close()); "
+            "sys.argv = ['bayeszi', '--version']; cli.run()")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          timeout=120)
+    assert done.returncode == 0 and marker.exists()
+
+
 def test_usage_error_is_one_line_exit_2(capsys):
     assert main(["run"]) == 2
     line = one_line_error(capsys.readouterr().err)
