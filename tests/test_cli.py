@@ -55,19 +55,17 @@ def test_the_command_exits_with_mains_code_and_flushes_its_output(tmp_path):
     import subprocess
     import sys
 
-    done = subprocess.run([sys.executable, "-m", "bayeszi.app.cli", "--version"],
-                          capture_output=True, text=True, timeout=120)
-    assert (done.returncode, done.stdout.strip()) == (0, f"bayeszi {bayeszi.__version__}")
-    done = subprocess.run([sys.executable, "-m", "bayeszi.app.cli", "run"],
-                          capture_output=True, text=True, timeout=120)
-    assert done.returncode == 2 and "--out" in one_line_error(done.stderr)
     marker = tmp_path / "exit-handler-ran"
     code = ("import atexit, sys; from bayeszi.app import cli; "
             f"atexit.register(lambda: open({str(marker)!r}, 'w').close()); "
             "sys.argv = ['bayeszi', '--version']; cli.run()")
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                           timeout=120)
-    assert done.returncode == 0 and marker.exists()
+    assert (done.returncode, done.stdout.strip()) == (0, f"bayeszi {bayeszi.__version__}")
+    assert marker.exists()
+    done = subprocess.run([sys.executable, "-m", "bayeszi.app.cli", "run"],
+                          capture_output=True, text=True, timeout=120)
+    assert done.returncode == 2 and "--out" in one_line_error(done.stderr)
 
 
 def test_usage_error_is_one_line_exit_2(capsys):
