@@ -107,7 +107,7 @@ def _run_lane(results: Any, lane: Sequence[tuple[int, Task]], claims: Any) -> No
             done[key] = value
             outcome: Outcome | None = Outcome(value, [(w.category, str(w.message))
                                                      for w in seen])
-        except BaseException:  # noqa: BLE001 - the report recomputes it and shows the error
+        except Exception:  # noqa: BLE001 - the report recomputes it and shows the error
             outcome = None
         if outcome is not None:
             try:
