@@ -40,12 +40,14 @@ from __future__ import annotations
 import argparse
 import json
 import os
-import platform
 import shutil
 import subprocess
 import sys
 import tempfile
 import time
+
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+from bench_results import save_result  # noqa: E402
 
 WARMUP, DRAWS, CHAINS = 500, 800, 2
 BACKENDS = ["pymc-c", "nutpie-numba", "nutpie-jax", "pymc-numba", "pymc-py"]
@@ -229,13 +231,7 @@ def main() -> None:
                 print(_line(row), flush=True)
     for cache in caches.values():
         shutil.rmtree(cache, ignore_errors=True)
-    result = {"machine": platform.platform(), "cpus": os.cpu_count(), "warmup": WARMUP,
-              "draws": DRAWS, "chains": CHAINS, "when": time.strftime("%Y-%m-%d %H:%M"),
-              "rows": rows}
-    if a.out:
-        with open(a.out + ".tmp", "w", encoding="utf-8") as fh:
-            json.dump(result, fh, indent=1)
-        os.replace(a.out + ".tmp", a.out)
+    save_result(a.out, {"warmup": WARMUP, "draws": DRAWS, "chains": CHAINS, "rows": rows})
 
 
 if __name__ == "__main__":

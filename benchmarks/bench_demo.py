@@ -20,15 +20,16 @@ True
 from __future__ import annotations
 
 import argparse
-import json
 import os
-import platform
 import shutil
 import subprocess
 import sys
 import tempfile
 import threading
 import time
+
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+from bench_results import save_result  # noqa: E402
 
 
 def _read_lines(stream, stamps: list[tuple[float, str]]) -> None:
@@ -101,13 +102,7 @@ def main() -> None:
                 if name != "total" and sec >= 0.5:
                     print(f"    {sec:7.1f} s  {name}")
     shutil.rmtree(cache, ignore_errors=True)
-    result = {"machine": platform.platform(), "cpus": os.cpu_count(), "runs": runs,
-              "args": extra, "load_avg": os.getloadavg(),
-              "when": time.strftime("%Y-%m-%d %H:%M")}
-    if a.out:
-        with open(a.out + ".tmp", "w", encoding="utf-8") as fh:
-            json.dump(result, fh, indent=1)
-        os.replace(a.out + ".tmp", a.out)
+    save_result(a.out, {"runs": runs, "args": extra})
 
 
 if __name__ == "__main__":

@@ -25,11 +25,13 @@ from __future__ import annotations
 
 import argparse
 import dataclasses
-import json
 import os
-import platform
+import sys
 import time
 import warnings
+
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+from bench_results import save_result  # noqa: E402
 
 MODES = {
     "fixed": {"until_enough": False, "draws": 1000, "warmup_steps": 1000},
@@ -80,13 +82,7 @@ def main() -> None:
             print(f"{row['model']:16s} {mode:12s} sample {row['sample_s']:6.1f} s  "
                   f"draws {row['draws']:5d}  min bulk ESS {row['min_bulk_ess']:6.0f}  "
                   f"max R-hat {row['max_rhat']:.3f}  {row['stop']}", flush=True)
-    result = {"machine": platform.platform(), "cpus": os.cpu_count(),
-              "load_avg": os.getloadavg(), "when": time.strftime("%Y-%m-%d %H:%M"),
-              "rows": rows}
-    if a.out:
-        with open(a.out + ".tmp", "w", encoding="utf-8") as fh:
-            json.dump(result, fh, indent=1)
-        os.replace(a.out + ".tmp", a.out)
+    save_result(a.out, {"rows": rows})
 
 
 if __name__ == "__main__":
