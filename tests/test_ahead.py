@@ -77,6 +77,11 @@ def test_a_failing_or_dying_worker_leaves_the_work_here():
         _until_begun(w, "after")
         assert w.take("fails", lambda: "here").replay() == "here"
         assert w.take("after", lambda: "here").replay() == "worker"
+    with WorkAhead([[("unpicklable", lambda done: (lambda: 1)),
+                     ("next", lambda done: "worker")]], workers=1) as w:
+        _until_begun(w, "next")
+        assert w.take("unpicklable", lambda: "here").replay() == "here"
+        assert w.take("next", lambda: "here").replay() == "worker"
     with WorkAhead([[("dies", dies), ("never", lambda done: "worker")]], workers=1) as w:
         _until_begun(w, "dies")
         assert w.take("dies", lambda: "here").replay() == "here"

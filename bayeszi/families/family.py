@@ -324,17 +324,16 @@ class Family:
         tails."""
         shape = nx.broadcast_shape(kpos, eta_c, la)
         one = np.broadcast_to(kpos == 1.0, shape)
-        if not one.any() or one.all():
-            if one.all():
-                return np.broadcast_to(-np.expm1(-self.kernel.neg_logf0(eta_c, la)), shape)
-            return self.kernel.tail(kpos, eta_c, la)
         out = np.empty(shape)
-        ec, lz = nx.take(one, eta_c, la)
-        out[one] = -np.expm1(-self.kernel.neg_logf0(ec, lz))
-        rest = ~one
-        kr, ec, lz = nx.take(rest, kpos, eta_c, la)
-        out[rest] = self.kernel.tail(kr, ec, lz)
+        for mask, tail in ((one, self._tail_at_one), (~one, self.kernel.tail)):
+            if mask.any():
+                picked = nx.take(mask, kpos, eta_c, la)
+                out[mask] = tail(*picked)
         return out
+
+    def _tail_at_one(self, kpos: np.ndarray, eta_c: np.ndarray, la: Any) -> np.ndarray:
+        """The kernel's P(X >= 1) = 1 - f(0) = -expm1(log f(0))."""
+        return -np.expm1(-self.kernel.neg_logf0(eta_c, la))
 
     def pmf_table(self, kmax: int, eta_c: Any, eta_z: Any, log_alpha: Any) -> np.ndarray:
         """P(Y = k) for k = 0..kmax, as an array of shape (broadcast shape, kmax + 1).

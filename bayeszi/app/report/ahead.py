@@ -91,9 +91,10 @@ def available_workers() -> int:
 
 def _run_lane(results: Any, lane: Sequence[tuple[int, Task]], claims: Any) -> None:
     """In the worker: run the lane's tasks in order, each one the report has not claimed
-    first, putting ``(key, outcome)`` on the ``results`` queue after each (``outcome`` None
-    when the task failed: the report then computes it itself). The queue's own thread
-    sends them, so the next task starts while the report has not yet read the last."""
+    first, putting ``(key, pickled outcome)`` on the ``results`` queue after each (None
+    when the task failed or its value cannot be pickled: the report then computes it). The
+    queue's own thread sends them, so the next task starts while the report has not yet
+    read the last."""
     done: dict[Hashable, Any] = {}
     for slot, (key, fn) in lane:
         with claims.get_lock():
@@ -109,12 +110,13 @@ def _run_lane(results: Any, lane: Sequence[tuple[int, Task]], claims: Any) -> No
                                                      for w in seen])
         except Exception:  # noqa: BLE001 - the report recomputes it and shows the error
             outcome = None
+        blob = None
         if outcome is not None:
-            try:
-                pickle.dumps(outcome)
+            try:  # pickled here, once, so that an unpicklable value is known at once
+                blob = pickle.dumps(outcome, protocol=pickle.HIGHEST_PROTOCOL)
             except Exception:  # noqa: BLE001 - unpicklable: the report computes it itself
-                outcome = None
-        results.put((key, outcome))
+                blob = None
+        results.put((key, blob))
     results.close()
     results.join_thread()
 
@@ -192,7 +194,7 @@ class WorkAhead:
         results, proc = self._queues[lane], self._procs[lane]
         while key not in self._got:
             try:
-                got_key, outcome = results.get(timeout=0.25)
+                got_key, blob = results.get(timeout=0.25)
             except queue.Empty:
                 if proc.is_alive() or not results.empty():
                     continue
@@ -204,7 +206,7 @@ class WorkAhead:
             except (EOFError, OSError):
                 self._got.setdefault(key, None)
                 break
-            self._got[got_key] = outcome
+            self._got[got_key] = None if blob is None else pickle.loads(blob)
         return self._got.pop(key, None)
 
     def take(self, key: Hashable, compute: Callable[[], Any]) -> Outcome:
