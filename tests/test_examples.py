@@ -53,7 +53,10 @@ def _small_copy(name: str, folder: Path) -> Path:
     return path
 
 
-@pytest.mark.parametrize("name", EXAMPLES)
+# crayfish in the default run; the other two (about 75 s together) with the slow set, to keep
+# the default run well inside CI's 20 minutes
+@pytest.mark.parametrize("name", [pytest.param(n, marks=pytest.mark.slow) if n != "crayfish"
+                                  else n for n in EXAMPLES])
 def test_example_study_runs_small(name, tmp_path, capsys):
     study_path = _small_copy(name, tmp_path)
     out = tmp_path / "report"
