@@ -27,6 +27,7 @@ from bayeszi.model.enough import (
     sample_until_enough,
     stop_reason,
 )
+from bayeszi.model.warmup import PYMC
 
 
 def _poisson_model() -> pm.Model:
@@ -59,7 +60,8 @@ def test_blocks_continue_the_chains_exactly_as_pm_sample(model, reference, proce
     chains here or in worker processes: the step size, mass matrix and random streams carry
     across blocks."""
     run = sample_until_enough(model, chains=2, warmup_steps=150, plan=BlockPlan(60, 180),
-                              acceptance_target=0.9, seed=7, judge=None, processes=processes)
+                              acceptance_target=0.9, seed=7, judge=None, processes=processes,
+                              windows=PYMC)
     assert (run.draws, run.stop, run.blocks) == (180, STOP_FIXED, 3)
     for name in ("a", "b", "ab"):
         np.testing.assert_array_equal(run.idata.posterior[name].values,
@@ -197,3 +199,19 @@ def test_nutpie_until_enough_keeps_exactly_the_draws_of_a_fixed_run():
                                 BlockPlan(100, 200), judge=lambda idata: False,
                                 compiled=compiled)
     assert (never.draws, never.stop) == (200, STOP_LIMIT)
+
+
+@pytest.mark.parametrize("processes", [False, True], ids=["here", "processes"])
+def test_progress_counts_every_iteration_of_every_chain(model, processes):
+    """The progress heard ends at chains x (warm-up + draws) iterations, never goes back,
+    and its divergences are those of the draws (sample_stats), with the chains here or in
+    worker processes."""
+    heard: list[tuple[int, int]] = []
+    run = sample_until_enough(model, chains=2, warmup_steps=40, plan=BlockPlan(30, 60),
+                              acceptance_target=0.9, seed=4, judge=None, processes=processes,
+                              on_progress=lambda done, div: heard.append((done, div)))
+    assert heard[-1] == (2 * (40 + 60), int(run.idata.sample_stats["diverging"].sum()))
+    done = [d for d, _ in heard]
+    assert done == sorted(done)
+    if not processes:  # here: one report per iteration
+        assert done == list(range(1, 201))

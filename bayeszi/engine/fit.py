@@ -127,8 +127,7 @@ def _draw(model: pm.Model, settings: SamplerSettings, rows: int, judge) -> az.In
             model, chains=settings.chains, warmup_steps=settings.warmup_steps,
             plan=BlockPlan(settings.block_draws, settings.draws_limit),
             acceptance_target=settings.acceptance_target, seed=settings.seed, judge=judge,
-            on_block=None if display is None else lambda drawn, _limit: display.update(
-                (settings.warmup_steps + drawn) * settings.chains),
+            on_progress=None if display is None else display.update,
             processes=settings.chains > 1 and chain_cores(settings) > 1)
         if display is not None:
             display.close("enough draws" if run.stop == STOP_ENOUGH else None)

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import os
 import sys
+import time
 import warnings
 
 import arviz as az
@@ -24,6 +25,7 @@ import xarray as xr
 
 from bayeszi.base.errors import BayesziWarning
 from bayeszi.base.spec import SamplerSettings
+from bayeszi.model.enough import BlockPlan, sample_until_enough
 from bayeszi.model.progress import SamplingProgress
 
 
@@ -177,40 +179,29 @@ def progress_display(settings: SamplerSettings, show: bool, label: str
     return SamplingProgress(total, f"{label}, {settings.chains} chain(s)")
 
 
-def _pymc_callback(progress: SamplingProgress | None):
-    """A ``pm.sample`` callback that feeds ``progress`` (None: no callback)."""
-    if progress is None:
-        return None
-    counts = {"done": 0, "divergent": 0}
-
-    def callback(trace, draw) -> None:
-        counts["done"] += 1
-        stats = draw.stats[0] if isinstance(draw.stats, list) and draw.stats else {}
-        counts["divergent"] += bool(stats.get("diverging", False)) and not draw.tuning
-        progress.update(counts["done"], counts["divergent"])
-
-    return callback
+#: draws per chain in each block of a fixed PyMC run (the progress line moves once a block)
+FIXED_BLOCK = 100
 
 
 def _sample_pymc(model: pm.Model, settings: SamplerSettings, progress: bool
                  ) -> az.InferenceData:
+    """``settings.draws`` draws per chain with PyMC's NUTS step method, started as every
+    bayeszi NUTS fit starts (:mod:`bayeszi.model.warmup`) and driven in blocks of
+    :data:`FIXED_BLOCK` (:func:`~bayeszi.model.enough.sample_until_enough` without a judge:
+    where the blocks fall does not change the draws)."""
     display = progress_display(settings, progress, "PyMC's NUTS")
-    with model, _quiet_pymc():
-        idata = pm.sample(
-            draws=settings.draws,
-            tune=settings.warmup_steps,
-            chains=settings.chains,
-            cores=chain_cores(settings),
-            target_accept=settings.acceptance_target,
-            random_seed=settings.seed,
-            progressbar=False,
-            callback=_pymc_callback(display),
-            idata_kwargs={"log_likelihood": False},
-            compute_convergence_checks=False,
-        )
+    t0 = time.perf_counter()
+    run = sample_until_enough(
+        model, chains=settings.chains, warmup_steps=settings.warmup_steps,
+        plan=BlockPlan(FIXED_BLOCK, settings.draws),
+        acceptance_target=settings.acceptance_target, seed=settings.seed, judge=None,
+        on_progress=None if display is None else display.update,
+        processes=settings.chains > 1 and chain_cores(settings) > 1)
     if display is not None:
         display.close()
-    return idata
+    # as pm.sample records it (strata runs add it up)
+    run.idata.posterior.attrs["sampling_time"] = time.perf_counter() - t0
+    return run.idata
 
 
 #: what nutpie's progress callback renders for us: draws done, draws in all, divergences
