@@ -27,7 +27,6 @@ from bayeszi.model.enough import (
     sample_until_enough,
     stop_reason,
 )
-from bayeszi.model.warmup import PYMC
 
 
 def _poisson_model() -> pm.Model:
@@ -60,8 +59,7 @@ def test_blocks_continue_the_chains_exactly_as_pm_sample(model, reference, proce
     chains here or in worker processes: the step size, mass matrix and random streams carry
     across blocks."""
     run = sample_until_enough(model, chains=2, warmup_steps=150, plan=BlockPlan(60, 180),
-                              acceptance_target=0.9, seed=7, judge=None, processes=processes,
-                              windows=PYMC)
+                              acceptance_target=0.9, seed=7, judge=None, processes=processes)
     assert (run.draws, run.stop, run.blocks) == (180, STOP_FIXED, 3)
     for name in ("a", "b", "ab"):
         np.testing.assert_array_equal(run.idata.posterior[name].values,
@@ -71,7 +69,10 @@ def test_blocks_continue_the_chains_exactly_as_pm_sample(model, reference, proce
                                       reference.sample_stats[name].values)
 
 
-def test_stops_at_the_first_block_the_judge_accepts(model):
+@pytest.mark.parametrize("processes", [False, True], ids=["here", "processes"])
+def test_stops_at_the_first_block_the_judge_accepts(model, processes):
+    """The judge sees 50, then 100 draws and stops there; with processes the block drawn
+    ahead while it judged is dropped, and the draws are those of the chains here."""
     seen: list[int] = []
 
     def judge(idata):
@@ -79,10 +80,14 @@ def test_stops_at_the_first_block_the_judge_accepts(model):
         return seen[-1] >= 100
 
     run = sample_until_enough(model, chains=2, warmup_steps=100, plan=BlockPlan(50, 400),
-                              acceptance_target=0.9, seed=3, judge=judge)
+                              acceptance_target=0.9, seed=3, judge=judge, processes=processes)
     assert seen == [50, 100]
     assert (run.draws, run.stop) == (100, STOP_ENOUGH)
     assert run.idata.posterior.sizes["draw"] == 100
+    here = sample_until_enough(model, chains=2, warmup_steps=100, plan=BlockPlan(100, 100),
+                               acceptance_target=0.9, seed=3, judge=None)
+    np.testing.assert_array_equal(run.idata.posterior["a"].values,
+                                  here.idata.posterior["a"].values)
 
 
 def test_limit_reached_when_never_enough(model):

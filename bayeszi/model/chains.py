@@ -7,6 +7,10 @@ method is inherited, not compiled again), so the chains of a block run at the sa
 a machine with the cores for them. Both give the same draws for the same start: a chain's
 draws depend only on its own state and random streams. Used by :mod:`bayeszi.model.enough`.
 
+Blocks are asked for (:meth:`ask`) and taken (:meth:`take`) separately, so that worker
+processes can draw the next block while this process judges the last one; a block asked
+for and not taken is dropped at :meth:`close` (here it is never drawn).
+
 Both count every chain's iterations (warm-up included) and divergent draws as they go, for a
 progress display (``on_progress(iterations, divergences)``, all chains together): here after
 every iteration, with processes while waiting for them (the workers count in shared memory).
@@ -104,6 +108,7 @@ class ChainsHere:
     def __init__(self, step, points: list[dict], rngs: list[np.random.Generator],
                  warmup_steps: int, on_progress: Progress | None = None) -> None:
         self.step = step
+        self.pending = 0
         self.tally = Tally(len(points))
         self.report = None if on_progress is None else (
             lambda: on_progress(*self.tally.totals()))
@@ -111,6 +116,15 @@ class ChainsHere:
         self.chains = [_warm(step, fresh, p, r, warmup_steps,
                              _ticker(self.tally, i, False, self.report))
                        for i, (p, r) in enumerate(zip(points, rngs, strict=True))]
+
+    def ask(self, n: int) -> None:
+        """Ask for ``n`` more draws of every chain (made when :meth:`take` is called)."""
+        self.pending = n
+
+    def take(self) -> list[list[Record]]:
+        """The draws last asked for."""
+        n, self.pending = self.pending, 0
+        return self.draw(n)
 
     def draw(self, n: int) -> list[list[Record]]:
         """``n`` more draws of every chain."""
@@ -151,6 +165,7 @@ class ChainProcesses:
         ctx = multiprocessing.get_context("fork")
         fresh = step.sampling_state
         self.conns, self.procs = [], []
+        self.pending = False
         self.tally = Tally(len(points), shared=True)
         self.on_progress = on_progress
         try:
@@ -187,20 +202,35 @@ class ChainProcesses:
         self._report()
         return out
 
-    def draw(self, n: int) -> list[list[Record]]:
-        """``n`` more draws of every chain, the chains running at the same time."""
+    def ask(self, n: int) -> None:
+        """Start ``n`` more draws of every chain, the chains running at the same time (while
+        this process does something else, such as judging the draws before them)."""
         for conn in self.conns:
             conn.send(n)
-        return self._answers()
+        self.pending = True
+
+    def take(self) -> list[list[Record]]:
+        """The draws last asked for (waiting for them)."""
+        out = self._answers()
+        self.pending = False
+        return out
+
+    def draw(self, n: int) -> list[list[Record]]:
+        """``n`` more draws of every chain, the chains running at the same time."""
+        self.ask(n)
+        return self.take()
 
     def close(self) -> None:
-        """Stop the processes."""
+        """Stop the processes (at once when a block asked for is still being drawn: its
+        draws are not wanted)."""
         for conn in self.conns:
             try:
                 conn.send(None)
             except (OSError, ValueError):
                 pass
         for proc in self.procs:
+            if self.pending:
+                proc.terminate()
             proc.join(timeout=2)
             if proc.is_alive():
                 proc.terminate()

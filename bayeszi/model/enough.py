@@ -14,9 +14,11 @@ where the blocks fall, so a seeded run that stops after 600 draws holds the same
 fixed run of 600 draws through this function (see tests/test_until_enough.py).
 
 What it costs: the judge runs once per block (an ArviZ summary, well under a second for the
-models here), and every block is a round trip to the chains. The chains run in worker
-processes (one per chain, forked after the compile) or one after the other in this process;
-:mod:`bayeszi.model.chains`.
+models here), and every block is a round trip to the chains. With the chains in worker
+processes the next block is already being drawn while the judge looks at the last one (and
+is dropped when the judge says enough), so judging costs no sampling time there. The chains
+run in worker processes (one per chain, forked after the compile) or one after the other in
+this process; :mod:`bayeszi.model.chains`.
 
 Example
 -------
@@ -40,7 +42,7 @@ from pymc.backends.base import MultiTrace
 from pymc.backends.ndarray import NDArray
 
 from bayeszi.model.chains import open_chains
-from bayeszi.model.warmup import EARLY, Windows, start_nuts
+from bayeszi.model.warmup import PYMC, Windows, start_nuts
 
 #: why a run stopped, as the report says it
 STOP_ENOUGH = "enough"
@@ -118,7 +120,7 @@ def sample_until_enough(model: pm.Model, *, chains: int, warmup_steps: int, plan
                         acceptance_target: float, seed: int | None,
                         judge: Callable[[az.InferenceData], bool] | None,
                         on_progress: Callable[[int, int], None] | None = None,
-                        processes: bool = False, windows: Windows = EARLY) -> BlockRun:
+                        processes: bool = False, windows: Windows = PYMC) -> BlockRun:
     """Warm up every chain, then draw blocks of ``plan.block`` per chain until ``judge``
     (given all draws so far) says they are enough or ``plan.limit`` draws per chain are
     drawn. ``judge=None`` draws exactly ``plan.limit`` (a fixed run through the same path).
@@ -126,7 +128,7 @@ def sample_until_enough(model: pm.Model, *, chains: int, warmup_steps: int, plan
     warm-up included; divergences among the draws), for a progress display.
     ``processes=True`` runs each chain in its own worker process (same draws, chains at the
     same time; :mod:`bayeszi.model.chains`). ``windows``: the mass matrix's adaptation
-    windows (:mod:`bayeszi.model.warmup`; ``PYMC`` gives exactly ``pm.sample``'s draws).
+    windows (:mod:`bayeszi.model.warmup`; the default, PyMC's, gives ``pm.sample``'s draws).
 
     Example
     -------
@@ -146,9 +148,14 @@ def sample_until_enough(model: pm.Model, *, chains: int, warmup_steps: int, plan
             traces = [NDArray(model=model, test_point=points[0]) for _ in points]
             seconds["warmup_s"] = time.perf_counter() - t0
             drawn, stop, blocks = 0, STOP_LIMIT if judge is not None else STOP_FIXED, 0
-            for size in plan.sizes():
+            sizes = plan.sizes()
+            runner.ask(sizes[0])
+            for i, size in enumerate(sizes):
                 t1 = time.perf_counter()
-                _record(traces, step, runner.draw(size))
+                block = runner.take()
+                if i + 1 < len(sizes):  # drawn while this block is judged; dropped if enough
+                    runner.ask(sizes[i + 1])
+                _record(traces, step, block)
                 drawn, blocks = drawn + size, blocks + 1
                 seconds["draws_s"] += time.perf_counter() - t1
                 if judge is not None and drawn < plan.limit:
