@@ -155,35 +155,3 @@ def test_a_report_with_workers_equals_one_without(small_run, monkeypatch, tmp_pa
 def test_take_of_an_unplanned_key_computes_here(n):
     with WorkAhead([[("a", lambda done: 1)]], workers=1) as w:
         assert w.take(("other", n), lambda: n).replay() == n
-
-
-def test_loo_takes_the_pareto_smoothing_a_worker_began(small_run, monkeypatch):
-    """The worker starts with the last model's Pareto smoothing; LOO takes it from there
-    (an Outcome, not computed here) and the estimates equal those computed without it."""
-    from bayeszi.app.report.context import ReportInput, WarningLog, loo_answers, plan_ahead
-
-    fits = {n: bayeszi.load(str(small_run["out"] / "fits" / f"{n}.nc"))
-            for n in ("zinb-reach", "poisson")}
-    inp = ReportInput("t", fits, fits["poisson"].data, seed=7)
-    lanes = plan_ahead(inp)
-    assert [key for key, _ in lanes[0][:2]] == [("psis", "poisson"), ("psis", "zinb-reach")]
-    taken: dict = {}
-    real_take = WorkAhead.take
-
-    def recorded(self, key, compute):
-        out = real_take(self, key, compute)
-        taken[key] = type(out).__name__
-        return out
-
-    monkeypatch.setattr(WorkAhead, "take", recorded)
-    with WorkAhead(lanes, workers=1) as work:
-        _until_begun(work, ("psis", "poisson"))
-        ests, comparison = loo_answers(fits, WarningLog(), ahead=work)
-    assert taken[("psis", "poisson")] == "Outcome"
-    plain_ests, plain_comparison = loo_answers(fits, WarningLog())
-    for name, est in ests.items():
-        assert (est.elpd, est.se, est.p_loo) == (plain_ests[name].elpd, plain_ests[name].se,
-                                                 plain_ests[name].p_loo)
-        np.testing.assert_array_equal(est.pointwise["pareto_k"],
-                                      plain_ests[name].pointwise["pareto_k"])
-    assert comparison.equals(plain_comparison)

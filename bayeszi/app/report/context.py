@@ -27,7 +27,7 @@ from typing import TYPE_CHECKING, Any
 import pandas as pd
 
 from bayeszi.answers.checks import Replicates, count_frequencies, replicated_data, residuals
-from bayeszi.answers.comparison import WEIGHT, LooEstimate, loo, psis_values, rank_models
+from bayeszi.answers.comparison import WEIGHT, LooEstimate, loo, rank_models
 from bayeszi.app.report.ahead import Task, WorkAhead
 
 if TYPE_CHECKING:
@@ -230,34 +230,20 @@ def plain(frame: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
-def _psis_ahead(ahead: WorkAhead | None, name: str) -> Any:
-    """Model ``name``'s PSIS values from the work done ahead, or None (then :func:`loo`
-    computes them): a worker that has begun them is waited for, else they are claimed here
-    so that the worker skips them."""
-    if ahead is None:
-        return None
-    return ahead.take(("psis", name), lambda: None).replay()
-
-
-def loo_answers(fits: Mapping[str, FittedModel], log: WarningLog, exact_refits: bool = False,
-                ahead: WorkAhead | None = None
+def loo_answers(fits: Mapping[str, FittedModel], log: WarningLog, exact_refits: bool = False
                 ) -> tuple[dict[str, LooEstimate], pd.DataFrame | None]:
     """PSIS-LOO of every model, once each, and with two or more models their comparison;
-    with ``exact_refits`` the rows of high Pareto k are refitted exactly. The Pareto
-    smoothing of the models a worker has begun (``ahead``, :func:`plan_ahead`) is taken from
-    it.
+    with ``exact_refits`` the rows of high Pareto k are refitted exactly.
 
     With several models the estimates' own warnings are left to :func:`rank_models`, which
     repeats them for every model it ranks.
     """
     if len(fits) < 2:
-        return {n: log.caught("LOO", loo, f, label=n, exact_refits=exact_refits,
-                              psis=_psis_ahead(ahead, n))
+        return {n: log.caught("LOO", loo, f, label=n, exact_refits=exact_refits)
                 for n, f in fits.items()}, None
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        ests = {n: loo(f, label=n, exact_refits=exact_refits, psis=_psis_ahead(ahead, n))
-                for n, f in fits.items()}
+        ests = {n: loo(f, label=n, exact_refits=exact_refits) for n, f in fits.items()}
     return ests, plain(log.caught("LOO comparison", rank_models, ests))
 
 
@@ -283,23 +269,20 @@ def choose_preferred(inp: ReportInput, comparison: pd.DataFrame | None) -> tuple
 
 def plan_ahead(inp: ReportInput) -> list[list[Task]]:
     """The report's work that workers can do ahead (:mod:`bayeszi.app.report.ahead`), in two
-    lanes of about equal cost: every model's Pareto smoothing for LOO (last model first,
-    while the report does the first), the replicated data sets of every model, then their
+    lanes of about equal cost: the replicated data sets of every model, then their
     rootogram tables; and every model's residuals, last model first (the report, when it
     gets there, computes the first ones itself if no worker has begun them). Each task is
-    exactly the call the report makes when it needs the answer.
+    exactly the call :class:`ReportContext` makes when a section needs it.
 
     >>> [len(lane) for lane in plan_ahead(ReportInput("t", {"a": m, "b": m}, df))]
     ...                                                                # doctest: +SKIP
-    [6, 2]
+    [4, 2]
     """
     seed = inp.seed or 0
     replicates: list[Task] = []
     rootograms: list[Task] = []
     resid: list[Task] = []
-    psis: list[Task] = []
     for name, f in inp.fits.items():
-        psis.append((("psis", name), lambda done, f=f, name=name: psis_values(f, name)))
         replicates.append((("replicated", name),
                            lambda done, f=f: replicated_data(f, seed=seed)))
         rootograms.append((("rootogram", name),
@@ -307,7 +290,7 @@ def plan_ahead(inp: ReportInput) -> list[list[Task]]:
                                f, interval=inp.interval,
                                replicates=done[("replicated", name)])))
         resid.append((("residuals", name), lambda done, f=f: residuals(f, seed=seed)))
-    return [psis[::-1] + replicates + rootograms, resid[::-1]]
+    return [replicates + rootograms, resid[::-1]]
 
 
 def build_context(inp: ReportInput, ahead: bool = True) -> ReportContext:
@@ -316,7 +299,7 @@ def build_context(inp: ReportInput, ahead: bool = True) -> ReportContext:
     work = WorkAhead(plan_ahead(inp)) if ahead else None
     try:
         log = WarningLog()
-        ests, comparison = loo_answers(inp.fits, log, inp.exact_refits, work)
+        ests, comparison = loo_answers(inp.fits, log, inp.exact_refits)
         preferred, reason = choose_preferred(inp, comparison)
         return ReportContext(
             inp=inp, log=log, loo=ests, comparison=comparison, preferred=preferred,
