@@ -486,6 +486,16 @@ def test_zero_sources_by_group_add_up(zip_sites):
     assert ((by_site["share extra"] > 0) & (by_site["share extra"] <= 1)).all()
 
 
+def test_both_zero_source_tables_in_one_pass_equal_the_two_calls(zip_sites):
+    """zero_source_tables (what the report uses) gives exactly the per-zero table of
+    zero_sources() and the per-level table of zero_sources(by=...) (same draws, one pass)."""
+    site = _site_data()[0]["site"]
+    per_zero, per_site = checks.zero_source_tables(zip_sites, by=site, interval=0.8)
+    pd.testing.assert_frame_equal(per_zero, zip_sites.zero_sources(interval=0.8))
+    pd.testing.assert_frame_equal(per_site, zip_sites.zero_sources(by=site, interval=0.8))
+    assert checks.zero_source_tables(zip_sites)[1] is None
+
+
 def test_zero_sources_say_where_zeros_come_from_without_inflation(hurdle_groups, zip_poisson):
     hurdle = hurdle_groups.zero_sources()
     assert (hurdle["P(zero from zeros part)"] == 1.0).all()

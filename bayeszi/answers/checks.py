@@ -69,6 +69,7 @@ __all__ = [
     "replicated_data",
     "residuals",
     "zero_check",
+    "zero_source_tables",
     "zero_sources",
 ]
 
@@ -1110,18 +1111,35 @@ def zero_sources(fitted: FitRecord, by: ByArg = None,
     -------
     >>> zero_sources(m, by="site").head()                          # doctest: +SKIP
     """
+    per_zero, per_level = zero_source_tables(
+        fitted, None if by is None or (isinstance(by, (list, tuple)) and len(by) == 0) else by,
+        interval, draws)
+    return per_zero if per_level is None else per_level
+
+
+def zero_source_tables(fitted: FitRecord, by: ByArg = None, interval: float = 0.9,
+                       draws: int | None = None) -> tuple[pd.DataFrame, pd.DataFrame | None]:
+    """Both tables of :func:`zero_sources` from one pass over the draws: one row per observed
+    zero, and (with ``by``) one row per level; the same numbers as the two calls
+    ``zero_sources(fitted)`` and ``zero_sources(fitted, by=by)``, at the cost of one.
+
+    Example
+    -------
+    >>> per_zero, per_site = zero_source_tables(m, by="site")        # doctest: +SKIP
+    """
     iv = options.interval_bounds(interval)
     note = _source_note(_family(fitted))
     zero_rows = np.flatnonzero(fitted.design.y == 0)
     index = _draw_index(fitted, draws)
     groupings = _groupings(fitted, by) if by is not None else []
     src = _zero_source_draws(fitted, zero_rows, index, groupings, iv)
-    if by is None or (isinstance(by, (list, tuple)) and len(by) == 0):
-        table = _sources_per_zero(fitted, zero_rows, src, iv, note)
-    else:
-        table = _sources_per_level(fitted, zero_rows, groupings, src, iv, note)
-    table.attrs.update(interval=interval, family=fitted.spec.family, message=note)
-    return table
+    tables = [_sources_per_zero(fitted, zero_rows, src, iv, note),
+              _sources_per_level(fitted, zero_rows, groupings, src, iv, note)
+              if by is not None else None]
+    for table in tables:
+        if table is not None:
+            table.attrs.update(interval=interval, family=fitted.spec.family, message=note)
+    return tables[0], tables[1]
 
 
 @dataclass

@@ -12,7 +12,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from bayeszi.answers.checks import zero_sources
+from bayeszi.answers.checks import zero_source_tables
 from bayeszi.app.report import figures as F
 from bayeszi.app.report.context import ReportContext, plain
 from bayeszi.app.report.document import Figure, Section, Table, Text
@@ -55,15 +55,14 @@ def section_zero_sources(ctx: ReportContext) -> Section:
         "each observed zero the model gives the probability that it is an extra zero; the "
         "table sums these per group level. The split rests on the model's form: the data "
         "alone cannot tell the two kinds of zero apart.")]
-    interval = ctx.inp.interval
-    if f.design.groups:
-        by = [g.name for g in f.design.groups]
-        t = plain(ctx.caught("zero sources", zero_sources, f, by=by, interval=interval))
-        t = t.sort_values(["group", "share extra"], ascending=[True, False])
+    by = [g.name for g in f.design.groups] or None
+    t_all, t = ctx.caught("zero sources", zero_source_tables, f, by=by,
+                          interval=ctx.inp.interval)  # one pass over the draws for both
+    if t is not None:
+        t = plain(t).sort_values(["group", "share extra"], ascending=[True, False])
         blocks += table_blocks(f"zero_sources_{pref}", t,
                                f"Model {pref}: expected extra zeros per group level",
                                columns=[c for c in t.columns if c != "note"])
-    t_all = ctx.caught("zero sources", zero_sources, f, interval=interval)
     if COLUMN in t_all.columns:
         blocks.insert(1, _summary(ctx, f.design.y, t_all))
     if f.design.groups:
