@@ -190,3 +190,36 @@ def test_fit_each_tells_of_each_fit_as_it_is_made(monkeypatch):
     assert order == ["fit poisson", "heard poisson poisson", "fit negbin",
                      "heard negbin negbin"]
     assert run.fits == {"poisson": "poisson", "negbin": "negbin"}
+
+
+def test_loo_takes_the_pareto_smoothing_started_on_a_fit(small_run, monkeypatch):
+    """Work started on a fit does LOO's Pareto smoothing first; LOO takes it from there (an
+    Outcome, not computed here) and the estimates equal those computed without it."""
+    from bayeszi.app.report.ahead import AheadGroup
+    from bayeszi.app.report.context import WarningLog, loo_answers, start_fit_work
+
+    fits = {n: bayeszi.load(str(small_run["out"] / "fits" / f"{n}.nc"))
+            for n in ("zinb-reach", "poisson")}
+    taken: dict = {}
+    real_take = WorkAhead.take
+
+    def recorded(self, key, compute):
+        out = real_take(self, key, compute)
+        taken[key] = type(out).__name__
+        return out
+
+    monkeypatch.setattr(WorkAhead, "take", recorded)
+    monkeypatch.setattr(ahead, "available_workers", lambda: 1)
+    work = start_fit_work("poisson", fits["poisson"], 7, 0.9)
+    with AheadGroup([work]) as group:
+        _until_begun(work, ("psis", "poisson"))
+        ests, comparison = loo_answers(fits, WarningLog(), ahead=group)
+    assert taken[("psis", "poisson")] == "Outcome"
+    assert ("psis", "zinb-reach") not in taken  # planned by nobody: computed here
+    plain_ests, plain_comparison = loo_answers(fits, WarningLog())
+    for name, est in ests.items():
+        assert (est.elpd, est.se, est.p_loo) == (plain_ests[name].elpd, plain_ests[name].se,
+                                                 plain_ests[name].p_loo)
+        np.testing.assert_array_equal(est.pointwise["pareto_k"],
+                                      plain_ests[name].pointwise["pareto_k"])
+    assert comparison.equals(plain_comparison)

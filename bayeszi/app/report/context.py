@@ -27,7 +27,7 @@ from typing import TYPE_CHECKING, Any
 import pandas as pd
 
 from bayeszi.answers.checks import Replicates, count_frequencies, replicated_data, residuals
-from bayeszi.answers.comparison import WEIGHT, LooEstimate, loo, rank_models
+from bayeszi.answers.comparison import WEIGHT, LooEstimate, loo, psis_values, rank_models
 from bayeszi.app.report.ahead import AheadGroup, Task, WorkAhead
 
 if TYPE_CHECKING:
@@ -230,20 +230,34 @@ def plain(frame: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
-def loo_answers(fits: Mapping[str, FittedModel], log: WarningLog, exact_refits: bool = False
+def _psis_ahead(ahead: WorkAhead | AheadGroup | None, name: str) -> Any:
+    """Model ``name``'s Pareto smoothing from the work started on its fit, or None (then
+    :func:`loo` computes it): a worker that has begun it is waited for, else it is claimed
+    here so that the worker skips it."""
+    if ahead is None:
+        return None
+    return ahead.take(("psis", name), lambda: None).replay()
+
+
+def loo_answers(fits: Mapping[str, FittedModel], log: WarningLog, exact_refits: bool = False,
+                ahead: WorkAhead | AheadGroup | None = None
                 ) -> tuple[dict[str, LooEstimate], pd.DataFrame | None]:
     """PSIS-LOO of every model, once each, and with two or more models their comparison;
-    with ``exact_refits`` the rows of high Pareto k are refitted exactly.
+    with ``exact_refits`` the rows of high Pareto k are refitted exactly. The Pareto
+    smoothing done by the work started on a fit (``ahead``, :func:`start_fit_work`) is
+    taken from it.
 
     With several models the estimates' own warnings are left to :func:`rank_models`, which
     repeats them for every model it ranks.
     """
     if len(fits) < 2:
-        return {n: log.caught("LOO", loo, f, label=n, exact_refits=exact_refits)
+        return {n: log.caught("LOO", loo, f, label=n, exact_refits=exact_refits,
+                              psis=_psis_ahead(ahead, n))
                 for n, f in fits.items()}, None
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        ests = {n: loo(f, label=n, exact_refits=exact_refits) for n, f in fits.items()}
+        ests = {n: loo(f, label=n, exact_refits=exact_refits, psis=_psis_ahead(ahead, n))
+                for n, f in fits.items()}
     return ests, plain(log.caught("LOO comparison", rank_models, ests))
 
 
@@ -269,15 +283,16 @@ def choose_preferred(inp: ReportInput, comparison: pd.DataFrame | None) -> tuple
 
 def fit_tasks(name: str, fitted: FittedModel, seed: int | None, interval: float
               ) -> dict[str, Task]:
-    """The report's tasks that depend on one fit alone, by kind (``replicated``,
-    ``rootogram``, ``residuals``): exactly the calls :class:`ReportContext` makes when a
-    section needs them, for the report's ``seed`` (None reads as 0) and ``interval``.
+    """The report's tasks that depend on one fit alone, by kind (``psis``, ``replicated``,
+    ``rootogram``, ``residuals``): exactly the calls the report makes when it needs them,
+    for the report's ``seed`` (None reads as 0) and ``interval``.
 
     >>> [key for key, _ in fit_tasks("a", m, 1, 0.9).values()]           # doctest: +SKIP
-    [('replicated', 'a'), ('rootogram', 'a'), ('residuals', 'a')]
+    [('psis', 'a'), ('replicated', 'a'), ('rootogram', 'a'), ('residuals', 'a')]
     """
     seed = seed or 0
     return {
+        "psis": (("psis", name), lambda done: psis_values(fitted, name)),
         "replicated": (("replicated", name),
                        lambda done: replicated_data(fitted, seed=seed)),
         "rootogram": (("rootogram", name),
@@ -289,14 +304,16 @@ def fit_tasks(name: str, fitted: FittedModel, seed: int | None, interval: float
 
 def start_fit_work(name: str, fitted: FittedModel, seed: int | None, interval: float
                    ) -> WorkAhead:
-    """Start the report's work on one fit in a worker now (:func:`fit_tasks`, in one lane),
-    as soon as the fit is made: while the next candidate compiles and samples, it runs on
-    the core the compile leaves idle. Hand the works to :func:`build_context` (``started``).
+    """Start the report's work on one fit in a worker now (:func:`fit_tasks`, in one lane,
+    LOO's Pareto smoothing first), as soon as the fit is made: while the next candidate
+    compiles and samples, it runs on the core the compile leaves idle. Hand the works to
+    :func:`build_context` (``started``).
 
     >>> work = start_fit_work("a", m, 1, 0.9)                             # doctest: +SKIP
     """
     tasks = fit_tasks(name, fitted, seed, interval)
-    return WorkAhead([[tasks["replicated"], tasks["rootogram"], tasks["residuals"]]])
+    return WorkAhead([[tasks["psis"], tasks["replicated"], tasks["rootogram"],
+                       tasks["residuals"]]])
 
 
 def plan_ahead(inp: ReportInput, started: Sequence[WorkAhead] = ()) -> list[list[Task]]:
@@ -335,7 +352,7 @@ def build_context(inp: ReportInput, ahead: bool = True,
     work = AheadGroup([*started, WorkAhead(plan_ahead(inp, started))]) if ahead else None
     try:
         log = WarningLog()
-        ests, comparison = loo_answers(inp.fits, log, inp.exact_refits)
+        ests, comparison = loo_answers(inp.fits, log, inp.exact_refits, work)
         preferred, reason = choose_preferred(inp, comparison)
         return ReportContext(
             inp=inp, log=log, loo=ests, comparison=comparison, preferred=preferred,
