@@ -101,7 +101,7 @@ def test_no_workers_where_they_cannot_help_or_fork_safely(monkeypatch):
 
 
 def test_a_report_with_workers_equals_one_without(small_run, monkeypatch, tmp_path):
-    from bayeszi.app.report.context import ReportInput, start_fit_work
+    from bayeszi.app.report.context import ReportInput
     from bayeszi.app.report.output import OutputFolder
     from bayeszi.app.report.sections import build_document
     from bayeszi.app.report.write import write_document
@@ -120,27 +120,16 @@ def test_a_report_with_workers_equals_one_without(small_run, monkeypatch, tmp_pa
     monkeypatch.setattr(WorkAhead, "take", counted)
     monkeypatch.setattr(ahead, "available_workers", lambda: 1)
     built = {}
-    for mode in ("started", "with", "without"):
+    for mode in ("with", "without"):
         if mode == "without":
             monkeypatch.setattr(ahead, "available_workers", lambda: 0)
-        # "started": each fit's work begun before the report, as bayeszi run does
-        started = [start_fit_work(n, f, inp.seed, inp.interval) for n, f in fits.items()
-                   ] if mode == "started" else []
-        doc, _, warned = build_document(inp, ahead=True, started=started)
+        doc, _, warned = build_document(inp, ahead=True)
         with OutputFolder(str(tmp_path / mode)) as out:
             write_document(doc, out)
             out.commit()
         built[mode] = (doc, warned)
-        if mode != "without":
-            assert "Outcome" in kinds  # this build took answers from a worker
-            kinds.clear()
-    _same_report(tmp_path, built, "with", "without")
-    _same_report(tmp_path, built, "started", "without")
-
-
-def _same_report(tmp_path, built, mode_a: str, mode_b: str) -> None:
-    """Every table equal (exactly) and every PNG byte-identical between two builds."""
-    (doc_a, warned_a), (doc_b, warned_b) = built[mode_a], built[mode_b]
+    assert "Outcome" in kinds  # the first build took answers from a worker
+    (doc_a, warned_a), (doc_b, warned_b) = built["with"], built["without"]
     assert warned_a == warned_b
     tables_a = {t.name: t.frame for t in doc_a.tables()}
     tables_b = {t.name: t.frame for t in doc_b.tables()}
@@ -154,72 +143,15 @@ def _same_report(tmp_path, built, mode_a: str, mode_b: str) -> None:
                 np.testing.assert_array_equal(a, b, err_msg=f"{name}: {col}")
             else:
                 assert list(a) == list(b), f"{name}: {col}"
-    figures = sorted(p.name for p in (tmp_path / mode_a / "figures").iterdir())
-    assert figures and figures == sorted(p.name for p in (tmp_path / mode_b / "figures")
+    figures = sorted(p.name for p in (tmp_path / "with" / "figures").iterdir())
+    assert figures and figures == sorted(p.name for p in (tmp_path / "without" / "figures")
                                          .iterdir())
     for name in figures:
-        assert ((tmp_path / mode_a / "figures" / name).read_bytes()
-                == (tmp_path / mode_b / "figures" / name).read_bytes()), name
+        assert ((tmp_path / "with" / "figures" / name).read_bytes()
+                == (tmp_path / "without" / "figures" / name).read_bytes()), name
 
 
 @pytest.mark.parametrize("n", [0, 1, 3])
 def test_take_of_an_unplanned_key_computes_here(n):
     with WorkAhead([[("a", lambda done: 1)]], workers=1) as w:
         assert w.take(("other", n), lambda: n).replay() == n
-
-
-def test_fit_each_tells_of_each_fit_as_it_is_made(monkeypatch):
-    """on_fit hears of every candidate right after its fit, before the next one starts (so
-    bayeszi run can start the report's work on it while the next candidate fits)."""
-    import pandas as pd
-
-    from bayeszi.base.spec import ModelSpec
-    from bayeszi.fitting import candidates as C
-
-    order: list[str] = []
-
-    def fake_fit(data, spec):
-        order.append(f"fit {spec.family}")
-        return spec.family
-
-    monkeypatch.setattr(C.api, "fit_spec", fake_fit)
-    df = pd.DataFrame({"y": [0, 1, 0, 3, 2, 0, 1, 4], "x": np.linspace(0, 1, 8)})
-    checked = C.check_candidates(df, [C.Candidate(f, ModelSpec(counts="y ~ x", family=f))
-                                      for f in ("poisson", "negbin")], noun="model")
-    run = C.fit_each(df, checked, on_fit=lambda name, f: order.append(f"heard {name} {f}"))
-    assert order == ["fit poisson", "heard poisson poisson", "fit negbin",
-                     "heard negbin negbin"]
-    assert run.fits == {"poisson": "poisson", "negbin": "negbin"}
-
-
-def test_loo_takes_the_pareto_smoothing_started_on_a_fit(small_run, monkeypatch):
-    """Work started on a fit does LOO's Pareto smoothing first; LOO takes it from there (an
-    Outcome, not computed here) and the estimates equal those computed without it."""
-    from bayeszi.app.report.ahead import AheadGroup
-    from bayeszi.app.report.context import WarningLog, loo_answers, start_fit_work
-
-    fits = {n: bayeszi.load(str(small_run["out"] / "fits" / f"{n}.nc"))
-            for n in ("zinb-reach", "poisson")}
-    taken: dict = {}
-    real_take = WorkAhead.take
-
-    def recorded(self, key, compute):
-        out = real_take(self, key, compute)
-        taken[key] = type(out).__name__
-        return out
-
-    monkeypatch.setattr(WorkAhead, "take", recorded)
-    monkeypatch.setattr(ahead, "available_workers", lambda: 1)
-    work = start_fit_work("poisson", fits["poisson"], 7, 0.9)
-    with AheadGroup([work]) as group:
-        _until_begun(work, ("psis", "poisson"))
-        ests, comparison = loo_answers(fits, WarningLog(), ahead=group)
-    assert taken[("psis", "poisson")] == "Outcome"
-    assert ("psis", "zinb-reach") not in taken  # planned by nobody: computed here
-    plain_ests, plain_comparison = loo_answers(fits, WarningLog())
-    for name, est in ests.items():
-        assert (est.elpd, est.se, est.p_loo) == (plain_ests[name].elpd, plain_ests[name].se,
-                                                 plain_ests[name].p_loo)
-        np.testing.assert_array_equal(est.pointwise["pareto_k"],
-                                      plain_ests[name].pointwise["pareto_k"])
-    assert comparison.equals(plain_comparison)

@@ -306,31 +306,14 @@ def _check_loglik(fitted: FitRecord, label: str) -> None:
                            f"the design {fitted.design.n}; the fit is inconsistent, refit it")
 
 
-def psis_values(fitted: FitRecord, label: str | None = None) -> Any:
-    """The Pareto-smoothed LOO values of one fit (an ArviZ ``ELPDData``, one entry per
-    record), without warnings: the expensive part of :func:`loo`, which a caller may compute
-    elsewhere (a report's worker process) and hand to it as ``psis``.
-
-    Example
-    -------
-    >>> elpd = psis_values(fitted)                 # doctest: +SKIP
-    >>> loo(fitted, psis=elpd).elpd == loo(fitted).elpd   # doctest: +SKIP
-    True
-    """
-    _check_loglik(fitted, label or fitted.spec.family)
+def _psis(fitted: FitRecord, k_limit: float, label: str) -> LooEstimate:
+    """PSIS-LOO of one fit, without warnings (callers warn)."""
+    _check_loglik(fitted, label)
     with warnings.catch_warnings():
         # ArviZ's generic Pareto-k advice is replaced by ours, which names the rows.
         warnings.simplefilter("ignore", UserWarning)
         warnings.simplefilter("ignore", RuntimeWarning)
-        return loglik.loo(fitted.idata)
-
-
-def _psis(fitted: FitRecord, k_limit: float, label: str, elpd: Any = None) -> LooEstimate:
-    """PSIS-LOO of one fit, without warnings (callers warn); ``elpd``: its
-    :func:`psis_values` if already computed."""
-    _check_loglik(fitted, label)
-    if elpd is None:
-        elpd = psis_values(fitted, label)
+        elpd = loglik.loo(fitted.idata)
     data = _training_frame(fitted)
     pointwise = pd.DataFrame({
         "y": fitted.design.y,
@@ -436,7 +419,7 @@ def _warn_flagged(est: LooEstimate, label: str) -> None:
 @refusing_renamed
 def loo(fitted: FitRecord, exact_refits: bool = False, k_limit: float = K_LIMIT,
         max_refits: int = MAX_REFITS, refit_settings: Mapping[str, Any] | None = None,
-        label: str | None = None, *, psis: Any = None) -> LooEstimate:
+        label: str | None = None) -> LooEstimate:
     """PSIS-LOO of one fit, with exact refits of the rows PSIS cannot handle on request.
 
     Parameters
@@ -451,8 +434,6 @@ def loo(fitted: FitRecord, exact_refits: bool = False, k_limit: float = K_LIMIT,
     refit_settings : sampler settings for the refits (e.g. ``{"draws": 500}``); the seed of
         each refit is derived from the model's seed and the held-out row.
     label : the model's name in messages.
-    psis : this fit's :func:`psis_values` when already computed (e.g. in a worker process);
-        None computes them here.
 
     Returns
     -------
@@ -465,7 +446,7 @@ def loo(fitted: FitRecord, exact_refits: bool = False, k_limit: float = K_LIMIT,
     """
     label = label or fitted.spec.family
     _check_refit_args(max_refits, refit_settings)
-    est = _psis(fitted, _check_threshold(k_limit), label, psis)
+    est = _psis(fitted, _check_threshold(k_limit), label)
     if exact_refits and est.flagged_rows:
         _check_refit_budget(est, max_refits, label)
         est = _refine(est, refit_settings)
@@ -664,4 +645,4 @@ HEADINGS = (PLACE, "family", SCORE, SCORE_SE, BEHIND, BEHIND_SE, BEHIND_IN_SE, E
 
 
 __all__ = ["HEADINGS", "K_LIMIT", "K_LOW_LIMIT", "LooEstimate", "RefitWrapper",
-           "check_same_data", "loo", "psis_values", "rank_models", "refit_advice"]
+           "check_same_data", "loo", "rank_models", "refit_advice"]

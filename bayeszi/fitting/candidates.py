@@ -31,7 +31,7 @@ from __future__ import annotations
 import sys
 import time
 import warnings
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import IO, Any, Protocol
 
@@ -308,11 +308,8 @@ def _warn_if_slow(spec: ModelSpec, design: Design) -> None:
 
 
 def fit_each(data: pd.DataFrame, checked: CheckedCandidates,
-             progress: FitProgress | None = None,
-             on_fit: Callable[[str, FittedModel], None] | None = None) -> CandidateFits:
-    """Fit checked candidates one after the other (the one fit-many loop); ``on_fit(name,
-    fitted)`` hears of each fit as soon as it is made (to start work on it while the next
-    candidate fits).
+             progress: FitProgress | None = None) -> CandidateFits:
+    """Fit checked candidates one after the other (the one fit-many loop).
 
     bayeszi warnings raised while fitting a candidate are collected per candidate and shown
     prefixed with its name, except the data warnings the check showed already; other
@@ -340,8 +337,6 @@ def fit_each(data: pd.DataFrame, checked: CheckedCandidates,
         out.warnings[c.name] = _show(caught, f"{checked.noun} {c.name!r}", shown)
         if progress is not None:
             progress.finish(c.name, time.perf_counter() - t0, out.warnings[c.name])
-        if on_fit is not None:
-            on_fit(c.name, out.fits[c.name])
     return out
 
 

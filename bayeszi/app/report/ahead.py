@@ -169,10 +169,6 @@ class WorkAhead:
         """How many worker processes were started."""
         return len(self._procs)
 
-    def plans(self, key: Hashable) -> bool:
-        """Whether task ``key`` is one of this work's (and not taken yet)."""
-        return key in self._where or key in self._got
-
     def begun(self, key: Hashable) -> bool:
         """Whether a worker has begun (or finished) task ``key``."""
         where = self._where.get(key)
@@ -245,46 +241,6 @@ class WorkAhead:
         self.close()
 
 
-class AheadGroup:
-    """Several :class:`WorkAhead` read as one: a task is taken from the one that planned it
-    (computed here when none did). Work started at different times (say, on each fit as
-    soon as it is made, while the next one fits) is read by the report through this.
-
-    >>> with AheadGroup([WorkAhead([[("a", lambda done: 1)]], workers=0)]) as group:
-    ...     group.take("b", lambda: 2).replay()
-    2
-    """
-
-    def __init__(self, works: Sequence[WorkAhead]) -> None:
-        self.works = list(works)
-
-    def plans(self, key: Hashable) -> bool:
-        """Whether one of the works plans task ``key``."""
-        return any(w.plans(key) for w in self.works)
-
-    def begun(self, key: Hashable) -> bool:
-        """Whether a worker of one of the works has begun task ``key``."""
-        return any(w.begun(key) for w in self.works)
-
-    def take(self, key: Hashable, compute: Callable[[], Any]) -> Outcome:
-        """As :meth:`WorkAhead.take`, from the work that planned ``key``."""
-        for w in self.works:
-            if w.plans(key):
-                return w.take(key, compute)
-        return _Here(compute)
-
-    def close(self) -> None:
-        """Stop every work's workers."""
-        for w in self.works:
-            w.close()
-
-    def __enter__(self) -> AheadGroup:
-        return self
-
-    def __exit__(self, *exc: Any) -> None:
-        self.close()
-
-
 class _Here(Outcome):
     """An outcome computed in this process when :meth:`Outcome.replay` is called."""
 
@@ -296,4 +252,4 @@ class _Here(Outcome):
         return self._compute()
 
 
-__all__ = ["AheadGroup", "Outcome", "WORKERS_ENV", "WorkAhead", "available_workers"]
+__all__ = ["Outcome", "WORKERS_ENV", "WorkAhead", "available_workers"]

@@ -27,8 +27,8 @@ from typing import TYPE_CHECKING, Any
 import pandas as pd
 
 from bayeszi.answers.checks import Replicates, count_frequencies, replicated_data, residuals
-from bayeszi.answers.comparison import WEIGHT, LooEstimate, loo, psis_values, rank_models
-from bayeszi.app.report.ahead import AheadGroup, Task, WorkAhead
+from bayeszi.answers.comparison import WEIGHT, LooEstimate, loo, rank_models
+from bayeszi.app.report.ahead import Task, WorkAhead
 
 if TYPE_CHECKING:
     from bayeszi.app.study import Contrast, Scenario
@@ -138,7 +138,7 @@ class ReportContext:
     coefficients: dict[str, pd.DataFrame]
     problems: dict[str, list[str]]
     replicates: dict[str, Replicates] = field(default_factory=dict)
-    ahead: WorkAhead | AheadGroup | None = None
+    ahead: WorkAhead | None = None
 
     @property
     def fits(self) -> Mapping[str, FittedModel]:
@@ -230,34 +230,20 @@ def plain(frame: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
-def _psis_ahead(ahead: WorkAhead | AheadGroup | None, name: str) -> Any:
-    """Model ``name``'s Pareto smoothing from the work started on its fit, or None (then
-    :func:`loo` computes it): a worker that has begun it is waited for, else it is claimed
-    here so that the worker skips it."""
-    if ahead is None:
-        return None
-    return ahead.take(("psis", name), lambda: None).replay()
-
-
-def loo_answers(fits: Mapping[str, FittedModel], log: WarningLog, exact_refits: bool = False,
-                ahead: WorkAhead | AheadGroup | None = None
+def loo_answers(fits: Mapping[str, FittedModel], log: WarningLog, exact_refits: bool = False
                 ) -> tuple[dict[str, LooEstimate], pd.DataFrame | None]:
     """PSIS-LOO of every model, once each, and with two or more models their comparison;
-    with ``exact_refits`` the rows of high Pareto k are refitted exactly. The Pareto
-    smoothing done by the work started on a fit (``ahead``, :func:`start_fit_work`) is
-    taken from it.
+    with ``exact_refits`` the rows of high Pareto k are refitted exactly.
 
     With several models the estimates' own warnings are left to :func:`rank_models`, which
     repeats them for every model it ranks.
     """
     if len(fits) < 2:
-        return {n: log.caught("LOO", loo, f, label=n, exact_refits=exact_refits,
-                              psis=_psis_ahead(ahead, n))
+        return {n: log.caught("LOO", loo, f, label=n, exact_refits=exact_refits)
                 for n, f in fits.items()}, None
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        ests = {n: loo(f, label=n, exact_refits=exact_refits, psis=_psis_ahead(ahead, n))
-                for n, f in fits.items()}
+        ests = {n: loo(f, label=n, exact_refits=exact_refits) for n, f in fits.items()}
     return ests, plain(log.caught("LOO comparison", rank_models, ests))
 
 
@@ -281,78 +267,39 @@ def choose_preferred(inp: ReportInput, comparison: pd.DataFrame | None) -> tuple
     return names[0], "it is listed first in the study (no LOO comparison was available)."
 
 
-def fit_tasks(name: str, fitted: FittedModel, seed: int | None, interval: float
-              ) -> dict[str, Task]:
-    """The report's tasks that depend on one fit alone, by kind (``psis``, ``replicated``,
-    ``rootogram``, ``residuals``): exactly the calls the report makes when it needs them,
-    for the report's ``seed`` (None reads as 0) and ``interval``.
-
-    >>> [key for key, _ in fit_tasks("a", m, 1, 0.9).values()]           # doctest: +SKIP
-    [('psis', 'a'), ('replicated', 'a'), ('rootogram', 'a'), ('residuals', 'a')]
-    """
-    seed = seed or 0
-    return {
-        "psis": (("psis", name), lambda done: psis_values(fitted, name)),
-        "replicated": (("replicated", name),
-                       lambda done: replicated_data(fitted, seed=seed)),
-        "rootogram": (("rootogram", name),
-                      lambda done: count_frequencies(fitted, interval=interval,
-                                                     replicates=done[("replicated", name)])),
-        "residuals": (("residuals", name), lambda done: residuals(fitted, seed=seed)),
-    }
-
-
-def start_fit_work(name: str, fitted: FittedModel, seed: int | None, interval: float
-                   ) -> WorkAhead:
-    """Start the report's work on one fit in a worker now (:func:`fit_tasks`, in one lane,
-    LOO's Pareto smoothing first), as soon as the fit is made: while the next candidate
-    compiles and samples, it runs on the core the compile leaves idle. Hand the works to
-    :func:`build_context` (``started``).
-
-    >>> work = start_fit_work("a", m, 1, 0.9)                             # doctest: +SKIP
-    """
-    tasks = fit_tasks(name, fitted, seed, interval)
-    return WorkAhead([[tasks["psis"], tasks["replicated"], tasks["rootogram"],
-                       tasks["residuals"]]])
-
-
-def plan_ahead(inp: ReportInput, started: Sequence[WorkAhead] = ()) -> list[list[Task]]:
+def plan_ahead(inp: ReportInput) -> list[list[Task]]:
     """The report's work that workers can do ahead (:mod:`bayeszi.app.report.ahead`), in two
     lanes of about equal cost: the replicated data sets of every model, then their
     rootogram tables; and every model's residuals, last model first (the report, when it
     gets there, computes the first ones itself if no worker has begun them). Each task is
-    exactly the call :class:`ReportContext` makes when a section needs it. Models whose work
-    was ``started`` already (:func:`start_fit_work`) are left out.
+    exactly the call :class:`ReportContext` makes when a section needs it.
 
     >>> [len(lane) for lane in plan_ahead(ReportInput("t", {"a": m, "b": m}, df))]
     ...                                                                # doctest: +SKIP
     [4, 2]
     """
+    seed = inp.seed or 0
     replicates: list[Task] = []
     rootograms: list[Task] = []
     resid: list[Task] = []
     for name, f in inp.fits.items():
-        if any(w.plans(("replicated", name)) for w in started):
-            continue
-        tasks = fit_tasks(name, f, inp.seed, inp.interval)
-        replicates.append(tasks["replicated"])
-        rootograms.append(tasks["rootogram"])
-        resid.append(tasks["residuals"])
+        replicates.append((("replicated", name),
+                           lambda done, f=f: replicated_data(f, seed=seed)))
+        rootograms.append((("rootogram", name),
+                           lambda done, f=f, name=name: count_frequencies(
+                               f, interval=inp.interval,
+                               replicates=done[("replicated", name)])))
+        resid.append((("residuals", name), lambda done, f=f: residuals(f, seed=seed)))
     return [replicates + rootograms, resid[::-1]]
 
 
-def build_context(inp: ReportInput, ahead: bool = True,
-                  started: Sequence[WorkAhead] = ()) -> ReportContext:
+def build_context(inp: ReportInput, ahead: bool = True) -> ReportContext:
     """Compute the answers several sections share, once each (see :class:`ReportContext`);
-    with ``ahead``, workers start on the heaviest answers at once (see :func:`plan_ahead`),
-    and the work ``started`` on the fits as they were made is read too."""
-    if not ahead:
-        for w in started:
-            w.close()
-    work = AheadGroup([*started, WorkAhead(plan_ahead(inp, started))]) if ahead else None
+    with ``ahead``, workers start on the heaviest answers at once (see :func:`plan_ahead`)."""
+    work = WorkAhead(plan_ahead(inp)) if ahead else None
     try:
         log = WarningLog()
-        ests, comparison = loo_answers(inp.fits, log, inp.exact_refits, work)
+        ests, comparison = loo_answers(inp.fits, log, inp.exact_refits)
         preferred, reason = choose_preferred(inp, comparison)
         return ReportContext(
             inp=inp, log=log, loo=ests, comparison=comparison, preferred=preferred,
@@ -367,5 +314,4 @@ def build_context(inp: ReportInput, ahead: bool = True,
 
 
 __all__ = ["REDUNDANT", "ReportContext", "ReportInput", "WarningLog", "build_context",
-           "choose_preferred", "fit_tasks", "loo_answers", "plain", "plan_ahead",
-           "start_fit_work"]
+           "choose_preferred", "loo_answers", "plain", "plan_ahead"]

@@ -21,8 +21,7 @@ from typing import TYPE_CHECKING, Any
 import pandas as pd
 
 from bayeszi.answers.comparison import refit_advice
-from bayeszi.app.report.ahead import WorkAhead
-from bayeszi.app.report.context import ReportInput, start_fit_work
+from bayeszi.app.report.context import ReportInput
 from bayeszi.app.report.document import Document
 from bayeszi.app.report.footer import footer_lines
 from bayeszi.app.report.output import OutputFolder
@@ -30,7 +29,7 @@ from bayeszi.app.report.sections import build_document
 from bayeszi.app.report.sections.preview import preview_document
 from bayeszi.app.report.write import REPORT_NAME, slug, write_document
 from bayeszi.base.errors import BayesziError
-from bayeszi.fitting.candidates import CandidateFits, fit_each
+from bayeszi.fitting.candidates import fit_each
 from bayeszi.fitting.preview import preview_each
 
 if TYPE_CHECKING:
@@ -140,57 +139,37 @@ def run_study(study: Study, out: str, command: str = "", progress: Progress = _q
             doc = preview_document(study.title, study.summary, previews, study.interval)
             return _write(doc, footer_lines(provenance, {}, study.seed), folder, progress,
                           study.vector_figures if vector_figures is None else vector_figures)
-        started: list[WorkAhead] = []  # the report's work on each fit, begun as it is made
-        try:
-            run = fit_each(data, checked, _StudyProgress(study, progress),
-                           on_fit=lambda name, f: started.append(
-                               start_fit_work(name, f, study.seed, study.interval)))
-            return _report_fits(study, run, folder, progress, provenance, previews, data,
-                                started, save_fits=save_fits, exact_refits=exact_refits,
-                                vector_figures=vector_figures, inspect=inspect)
-        finally:
-            for work in started:
-                work.close()
+        run = fit_each(data, checked, _StudyProgress(study, progress))
+        fits, notes = run.fits, run.warnings
+        if inspect is not None:
+            inspect(fits)
+        if save_fits:
+            from bayeszi.app.study import sha256_of
 
-
-def _report_fits(study: Study, run: CandidateFits, folder: OutputFolder, progress: Progress,
-                 provenance: dict[str, Any], previews: dict[str, Any], data: pd.DataFrame,
-                 started: Sequence[WorkAhead], *, save_fits: bool, exact_refits: bool | None,
-                 vector_figures: bool | None,
-                 inspect: Callable[[dict[str, FittedModel]], None] | None) -> str:
-    """After the fits of :func:`run_study`: save them if asked, then build and write the
-    report (reading the work ``started`` on each fit)."""
-    fits, notes = run.fits, run.warnings
-    if inspect is not None:
-        inspect(fits)
-    if save_fits:
-        from bayeszi.app.study import sha256_of
-
-        saved = {}
-        for name, f in fits.items():
-            rel = f"fits/{slug(name)}.nc"
-            progress(f"saving {rel}")
-            path = save_fit(f, folder.path(rel), {**provenance, "model": name})
-            saved[rel] = sha256_of(path)
-        provenance["saved_fits"] = saved
-    inp = ReportInput(
-        title=study.title, summary=study.summary, fits=fits, data=data,
-        interval=study.interval, unit=study.exposure_unit, seed=study.seed,
-        scenarios=study.scenarios, contrasts=study.contrasts, preferred=study.preferred,
-        predictions=study.predictions,
-        exact_refits=study.exact_refits if exact_refits is None else exact_refits,
-        residuals_against=study.residuals_against,
-        provenance=provenance, notes=notes, previews=previews)
-    vector = study.vector_figures if vector_figures is None else vector_figures
-    return _finish(inp, folder, progress, vector, started)
+            saved = {}
+            for name, f in fits.items():
+                rel = f"fits/{slug(name)}.nc"
+                progress(f"saving {rel}")
+                path = save_fit(f, folder.path(rel), {**provenance, "model": name})
+                saved[rel] = sha256_of(path)
+            provenance["saved_fits"] = saved
+        inp = ReportInput(
+            title=study.title, summary=study.summary, fits=fits, data=data,
+            interval=study.interval, unit=study.exposure_unit, seed=study.seed,
+            scenarios=study.scenarios, contrasts=study.contrasts, preferred=study.preferred,
+            predictions=study.predictions,
+            exact_refits=study.exact_refits if exact_refits is None else exact_refits,
+            residuals_against=study.residuals_against,
+            provenance=provenance, notes=notes, previews=previews)
+        vector = study.vector_figures if vector_figures is None else vector_figures
+        return _finish(inp, folder, progress, vector)
 
 
 def _finish(inp: ReportInput, folder: OutputFolder, progress: Progress,
-            vector: bool = False, started: Sequence[WorkAhead] = ()) -> str:
+            vector: bool = False) -> str:
     progress("building the report ...")
     with refit_advice(REFIT_ADVICE):
-        doc, footer, warned = build_document(inp, progress=lambda s: progress(f"  {s}"),
-                                             started=started)
+        doc, footer, warned = build_document(inp, progress=lambda s: progress(f"  {s}"))
     for w in warned:
         progress(f"      warning: {' '.join(w.split())}")
     return _write(doc, footer, folder, progress, vector)

@@ -22,9 +22,8 @@ Example
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+from collections.abc import Callable
 
-from bayeszi.app.report.ahead import WorkAhead
 from bayeszi.app.report.context import ReportContext, ReportInput, build_context
 from bayeszi.app.report.document import Document, Section, Text
 from bayeszi.app.report.footer import footer_lines
@@ -57,15 +56,13 @@ SECTIONS: tuple[SectionFn, ...] = (
 
 
 def build_document(inp: ReportInput, progress: Callable[[str], None] | None = None,
-                   ahead: bool = True, started: Sequence[WorkAhead] = ()
-                   ) -> tuple[Document, list[str], list[str]]:
+                   ahead: bool = True) -> tuple[Document, list[str], list[str]]:
     """Compute the context and every section; returns (document, footer lines, warnings).
     ``ahead``: let worker processes compute the heaviest answers meanwhile (same results;
-    see :mod:`bayeszi.app.report.ahead`); ``started``: such work already started on the
-    fits as they were made (:func:`~bayeszi.app.report.context.start_fit_work`)."""
+    see :mod:`bayeszi.app.report.ahead`)."""
     say = progress or (lambda _: None)
     say("LOO and the answers the sections share")
-    ctx = build_context(inp, ahead=ahead, started=started)
+    ctx = build_context(inp, ahead=ahead)
     sections: list[Section] = []
     try:
         for fn in SECTIONS:
