@@ -194,3 +194,19 @@ def panel(n_groups: int = 150, seed: int = 21) -> pd.DataFrame:
     y[rng.random(n) < 1.0 / (1.0 + np.exp(-eta_z))] = 0
     return pd.DataFrame({"y": y.astype(np.int64), "x": x, "u": u, "e": e,
                          "unit": [f"p{i:04d}" for i in unit]})
+
+
+def poisson_pymc_model():
+    """A small hand-written PyMC Poisson regression (60 records, seeded), for tests of the
+    sampler's machinery rather than of bayeszi's models."""
+    import pymc as pm
+
+    rng = np.random.default_rng(0)
+    x = rng.normal(size=60)
+    y = rng.poisson(np.exp(0.5 + 0.3 * x))
+    with pm.Model() as model:
+        a = pm.Normal("a", 0, 1)
+        b = pm.Normal("b", 0, 1)
+        pm.Deterministic("ab", a + b)
+        pm.Poisson("y", pm.math.exp(a + b * x), observed=y)
+    return model

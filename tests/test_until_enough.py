@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 import pymc as pm
 import pytest
+from simulate import poisson_pymc_model
 
 import bayeszi as bz
 from bayeszi.base.errors import BayesziError
@@ -29,21 +30,9 @@ from bayeszi.model.enough import (
 )
 
 
-def _poisson_model() -> pm.Model:
-    rng = np.random.default_rng(0)
-    x = rng.normal(size=60)
-    y = rng.poisson(np.exp(0.5 + 0.3 * x))
-    with pm.Model() as model:
-        a = pm.Normal("a", 0, 1)
-        b = pm.Normal("b", 0, 1)
-        pm.Deterministic("ab", a + b)
-        pm.Poisson("y", pm.math.exp(a + b * x), observed=y)
-    return model
-
-
 @pytest.fixture(scope="module")
 def model() -> pm.Model:
-    return _poisson_model()
+    return poisson_pymc_model()
 
 
 @pytest.fixture(scope="module")

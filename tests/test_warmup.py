@@ -11,6 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pymc as pm
 import pytest
+from simulate import poisson_pymc_model
 
 from bayeszi.base.spec import SamplerSettings
 from bayeszi.model.enough import BlockPlan, sample_until_enough
@@ -18,20 +19,9 @@ from bayeszi.model.sample import run_nuts
 from bayeszi.model.warmup import EARLY, PYMC, start_nuts
 
 
-def _model() -> pm.Model:
-    rng = np.random.default_rng(0)
-    x = rng.normal(size=80)
-    y = rng.poisson(np.exp(2.0 + 0.3 * x))
-    with pm.Model() as model:
-        a = pm.Normal("a", 0, 5)
-        b = pm.Normal("b", 0, 5)
-        pm.Poisson("y", pm.math.exp(a + b * x), observed=y)
-    return model
-
-
 @pytest.fixture(scope="module")
 def model() -> pm.Model:
-    return _model()
+    return poisson_pymc_model()
 
 
 def test_the_step_integrates_with_the_early_potential(model):
@@ -80,7 +70,7 @@ def test_a_fixed_run_is_the_block_path_without_a_judge(model):
     judge never stops it early: fixed and until-enough fits start and continue alike."""
     settings = SamplerSettings(draws=120, warmup_steps=100, chains=2, cores=1, seed=5,
                                sampler="pymc", progressbar=False)
-    fixed = run_nuts(model, settings, rows=80)
+    fixed = run_nuts(model, settings, rows=60)
     blocks = sample_until_enough(model, chains=2, warmup_steps=100, plan=BlockPlan(40, 120),
                                  acceptance_target=settings.acceptance_target, seed=5,
                                  judge=lambda idata: False)
