@@ -57,10 +57,12 @@ def time_demo(cache: str, clean: bool, extra: list[str] | None = None) -> dict[s
     out = tempfile.mkdtemp(prefix="bench-demo-")
     stamps: list[tuple[float, str]] = []
     t0 = time.perf_counter()
+    # run from the empty output folder: ``python -m`` puts the current directory first on
+    # sys.path, so run from a checkout it would time that checkout whatever PYTHONPATH says
     proc = subprocess.Popen([sys.executable, "-m", "bayeszi.app.cli", "demo", "--out",
                              os.path.join(out, "report"), *(extra or [])],
                             stderr=subprocess.PIPE, stdout=subprocess.DEVNULL, text=True,
-                            env=env)
+                            env=env, cwd=out)
     reader = threading.Thread(target=_read_lines, args=(proc.stderr, stamps))
     reader.start()
     rc = proc.wait()
