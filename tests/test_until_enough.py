@@ -209,3 +209,20 @@ def test_progress_counts_every_iteration_of_every_chain(model, processes):
     assert done == sorted(done)
     if not processes:  # here: one report per iteration
         assert done == list(range(1, 201))
+
+
+def test_a_fixed_run_is_the_block_path_without_a_judge(model):
+    """run_nuts's fixed draws equal, value for value, a block run of the same total whose
+    judge never stops it early: fixed and until-enough fits start and continue alike."""
+    from bayeszi.model.sample import run_nuts
+
+    settings = SamplerSettings(draws=120, warmup_steps=100, chains=2, cores=1, seed=5,
+                               sampler="pymc", progressbar=False)
+    fixed = run_nuts(model, settings, rows=60)
+    blocks = sample_until_enough(model, chains=2, warmup_steps=100, plan=BlockPlan(40, 120),
+                                 acceptance_target=settings.acceptance_target, seed=5,
+                                 judge=lambda idata: False)
+    for name in ("a", "b"):
+        np.testing.assert_array_equal(fixed.posterior[name].values,
+                                      blocks.idata.posterior[name].values)
+    assert fixed.posterior.attrs["sampling_time"] > 0

@@ -18,7 +18,8 @@ every iteration, with processes while waiting for them (the workers count in sha
 Example
 -------
 >>> chains = open_chains(step, points, rngs, warmup_steps=500, processes=False)  # doctest: +SKIP
->>> block = chains.draw(200)          # per chain: 200 (point, stats) pairs     # doctest: +SKIP
+>>> chains.ask(200)                                                              # doctest: +SKIP
+>>> block = chains.take()            # per chain: 200 (point, stats) pairs     # doctest: +SKIP
 >>> chains.close()                                                               # doctest: +SKIP
 """
 
@@ -122,12 +123,8 @@ class ChainsHere:
         self.pending = n
 
     def take(self) -> list[list[Record]]:
-        """The draws last asked for."""
+        """The draws last asked for, made now (the chains one after the other)."""
         n, self.pending = self.pending, 0
-        return self.draw(n)
-
-    def draw(self, n: int) -> list[list[Record]]:
-        """``n`` more draws of every chain."""
         out = []
         for i, (point, state) in enumerate(self.chains):
             point, state, records = _steps(self.step, point, state, n,
@@ -214,11 +211,6 @@ class ChainProcesses:
         out = self._answers()
         self.pending = False
         return out
-
-    def draw(self, n: int) -> list[list[Record]]:
-        """``n`` more draws of every chain, the chains running at the same time."""
-        self.ask(n)
-        return self.take()
 
     def close(self) -> None:
         """Stop the processes (at once when a block asked for is still being drawn: its

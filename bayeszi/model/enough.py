@@ -37,12 +37,12 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import arviz as az
+import numpy as np
 import pymc as pm
 from pymc.backends.base import MultiTrace
 from pymc.backends.ndarray import NDArray
 
 from bayeszi.model.chains import open_chains
-from bayeszi.model.warmup import PYMC, Windows, start_nuts
 
 #: why a run stopped, as the report says it
 STOP_ENOUGH = "enough"
@@ -84,6 +84,18 @@ class BlockRun:
     seconds: dict[str, float]
 
 
+def _start(model: pm.Model, chains: int, seed: int | None, acceptance_target: float,
+           warmup_steps: int) -> tuple[list[dict], object, list[np.random.Generator]]:
+    """Initial points, the NUTS step and one random stream per chain, as pm.sample makes
+    them (jitter around the initial point, diagonal mass matrix adapted during warm-up)."""
+    rngs = np.random.default_rng(seed).spawn(chains)
+    seeds = [int(r.integers(2**30)) for r in rngs]
+    points, step = pm.init_nuts(init="jitter+adapt_diag", chains=chains, model=model,
+                                random_seed=seeds, progressbar=False,
+                                target_accept=acceptance_target, tune=warmup_steps)
+    return points, step, list(rngs)
+
+
 def _record(traces: list[NDArray], step, block: list[list]) -> None:
     """Append one block of (point, stats) pairs per chain to the chains' traces."""
     for i, (trace, records) in enumerate(zip(traces, block, strict=True)):
@@ -120,15 +132,14 @@ def sample_until_enough(model: pm.Model, *, chains: int, warmup_steps: int, plan
                         acceptance_target: float, seed: int | None,
                         judge: Callable[[az.InferenceData], bool] | None,
                         on_progress: Callable[[int, int], None] | None = None,
-                        processes: bool = False, windows: Windows = PYMC) -> BlockRun:
+                        processes: bool = False) -> BlockRun:
     """Warm up every chain, then draw blocks of ``plan.block`` per chain until ``judge``
     (given all draws so far) says they are enough or ``plan.limit`` draws per chain are
     drawn. ``judge=None`` draws exactly ``plan.limit`` (a fixed run through the same path).
     ``on_progress(iterations, divergences)`` hears how far the chains are (all chains,
     warm-up included; divergences among the draws), for a progress display.
     ``processes=True`` runs each chain in its own worker process (same draws, chains at the
-    same time; :mod:`bayeszi.model.chains`). ``windows``: the mass matrix's adaptation
-    windows (:mod:`bayeszi.model.warmup`; the default, PyMC's, gives ``pm.sample``'s draws).
+    same time; :mod:`bayeszi.model.chains`).
 
     Example
     -------
@@ -141,8 +152,7 @@ def sample_until_enough(model: pm.Model, *, chains: int, warmup_steps: int, plan
     seconds = {"warmup_s": 0.0, "draws_s": 0.0, "judge_s": 0.0}
     t0 = time.perf_counter()
     with model, _quiet():
-        points, step, rngs = start_nuts(model, chains, seed, acceptance_target, warmup_steps,
-                                        windows)
+        points, step, rngs = _start(model, chains, seed, acceptance_target, warmup_steps)
         runner = open_chains(step, points, rngs, warmup_steps, processes, on_progress)
         try:
             traces = [NDArray(model=model, test_point=points[0]) for _ in points]

@@ -185,10 +185,9 @@ FIXED_BLOCK = 100
 
 def _sample_pymc(model: pm.Model, settings: SamplerSettings, progress: bool
                  ) -> az.InferenceData:
-    """``settings.draws`` draws per chain with PyMC's NUTS step method, started as every
-    bayeszi NUTS fit starts (:mod:`bayeszi.model.warmup`) and driven in blocks of
+    """``settings.draws`` draws per chain with PyMC's NUTS step method, in blocks of
     :data:`FIXED_BLOCK` (:func:`~bayeszi.model.enough.sample_until_enough` without a judge:
-    where the blocks fall does not change the draws)."""
+    the draws of ``pm.sample`` with the same seed, wherever the blocks fall)."""
     display = progress_display(settings, progress, "PyMC's NUTS")
     t0 = time.perf_counter()
     run = sample_until_enough(
